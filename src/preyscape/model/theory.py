@@ -1,0 +1,145 @@
+"""Published analytic results used by ``check`` and by the tests.
+
+Units: rates 1/yr, densities animals/km², diffusivities km²/yr, lengths km,
+speeds km/yr.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from preyscape.model.reactions import Interaction, rates
+
+J01 = 2.404825557695773
+"""First zero of the Bessel function J0 (Abramowitz & Stegun 1964, Table 9.5)."""
+
+
+def equilibrium(inter: Interaction, r: float, K: float | None, m: float) -> tuple[float, float]:
+    """Coexistence equilibrium ``(N*, P*)`` of the local model, animals/km².
+
+    Returns ``(nan, nan)`` when the predator cannot persist (no positive
+    equilibrium). Lotka–Volterra: ``(m/(e a), r/a)`` (Lotka 1925; Volterra
+    1926). Holling type II: ``N* = m/(a(e - m h))`` (Rosenzweig & MacArthur
+    1963, Am Nat 97:209).
+    """
+    a, h, e, c = inter.attack_rate, inter.h, inter.efficiency, inter.c
+    inv_K = 1.0 / K if (inter.logistic and K) else 0.0
+    if e - m * h <= 0:
+        return math.nan, math.nan
+    if c == 0.0:
+        n = m / (a * (e - m * h))
+        if inter.logistic and K is not None and n >= K:
+            return math.nan, math.nan
+        p = r * (1.0 - n * inv_K) * (1.0 + a * h * n) / a
+        return n, p
+    # Beddington–DeAngelis: the predator isocline P = (e a N/m - 1 - a h N)/c and the
+    # prey isocline P = e r N (1 - N/K)/m meet where a quadratic in N vanishes.
+    coeffs = [-e * r * inv_K / m, e * r / m - (e * a / m - a * h) / c, 1.0 / c]
+    roots = [z.real for z in np.roots(coeffs) if abs(z.imag) < 1e-12 and z.real > 0]
+    for n in sorted(roots):
+        p = e * r * n * (1.0 - n * inv_K) / m
+        if p > 0:
+            return float(n), float(p)
+    return math.nan, math.nan
+
+
+def jacobian(inter: Interaction, r: float, K: float | None, m: float, N: float, P: float):
+    """Jacobian of the local rates at ``(N, P)`` by central differences, 1/yr."""
+    inv_K = 1.0 / K if (inter.logistic and K) else 0.0
+    J = np.empty((2, 2))
+    for k, (dn, dp) in enumerate(((1, 0), (0, 1))):
+        eps = 1e-6 * max(1.0, abs(N) if k == 0 else abs(P))
+        fp = rates(N + dn * eps, P + dp * eps, r, inv_K, m, inter)
+        fm = rates(N - dn * eps, P - dp * eps, r, inv_K, m, inter)
+        J[0, k] = (fp[0] - fm[0]) / (2 * eps)
+        J[1, k] = (fp[1] - fm[1]) / (2 * eps)
+    return J
+
+
+def local_stability(inter: Interaction, r: float, K: float | None, m: float) -> dict:
+    """Character of the coexistence equilibrium.
+
+    Returns a dict with ``equilibrium``, ``eigenvalues`` (1/yr), ``stable``
+    (bool) and ``period`` (years, ``2 pi / Im(lambda)`` of the linearisation,
+    or None for a node). For Lotka–Volterra the period is ``2 pi / sqrt(r m)``.
+    """
+    n, p = equilibrium(inter, r, K, m)
+    if not math.isfinite(n):
+        return {"equilibrium": (n, p), "eigenvalues": None, "stable": None, "period": None}
+    lam = np.linalg.eigvals(jacobian(inter, r, K, m, n, p))
+    im = float(np.max(np.abs(lam.imag)))
+    return {
+        "equilibrium": (n, p),
+        "eigenvalues": lam,
+        "stable": bool(np.all(lam.real < 0)),
+        "period": 2 * math.pi / im if im > 1e-12 else None,
+    }
+
+
+def lv_period(r: float, m: float) -> float:
+    """Small-amplitude Lotka–Volterra period ``2 pi / sqrt(r m)``, years."""
+    return 2 * math.pi / math.sqrt(r * m)
+
+
+def lv_first_integral(N, P, r: float, a: float, e: float, m: float):
+    """Conserved quantity of Lotka–Volterra ``dN = rN - aNP, dP = e a N P - m P``.
+
+    ``V = e a N - m ln N + a P - r ln P`` (Volterra 1926).
+    """
+    return e * a * N - m * np.log(N) + a * P - r * np.log(P)
+
+
+def hopf_capacity(inter: Interaction, m: float) -> float:
+    """Carrying capacity above which Rosenzweig–MacArthur oscillates, animals/km².
+
+    ``K_H = (e + m h) / (a h (e - m h))`` (Rosenzweig 1971, Science 171:385).
+    Infinite without handling time.
+    """
+    a, h, e = inter.attack_rate, inter.h, inter.efficiency
+    if h <= 0 or e - m * h <= 0:
+        return math.inf
+    return (e + m * h) / (a * h * (e - m * h))
+
+
+def fisher_speed(r: float, D: float) -> float:
+    """Minimal Fisher–KPP front speed ``2 sqrt(r D)``, km/yr (Fisher 1937; KPP 1937)."""
+    return 2.0 * math.sqrt(max(r, 0.0) * D)
+
+
+def predator_speed(inter: Interaction, K: float, m: float, D_P: float) -> float:
+    """Minimal speed of predators invading prey at capacity, km/yr.
+
+    ``2 sqrt(D_P (e a K / (1 + a h K) - m))`` (Dunbar 1983, J Math Biol 17:11;
+    Owen & Lewis 2001, Bull Math Biol 63:655). Zero when predators cannot grow.
+    """
+    a, h, e = inter.attack_rate, inter.h, inter.efficiency
+    growth = e * a * K / (1.0 + a * h * K) - m
+    return 2.0 * math.sqrt(D_P * growth) if growth > 0 else 0.0
+
+
+def critical_patch(r: float, D: float) -> dict[str, float]:
+    """Smallest habitat patch with lethal surroundings that supports growth, km.
+
+    Skellam 1951 (Biometrika 38:196); Kierstead & Slobodkin 1953 (J Mar Res
+    12:141): strip width ``pi sqrt(D/r)``, square side ``pi sqrt(2 D/r)``,
+    disc radius ``j01 sqrt(D/r)``.
+    """
+    if r <= 0:
+        return {"strip_width": math.inf, "square_side": math.inf, "disc_radius": math.inf}
+    return {
+        "strip_width": math.pi * math.sqrt(D / r),
+        "square_side": math.pi * math.sqrt(2.0 * D / r),
+        "disc_radius": J01 * math.sqrt(D / r),
+    }
+
+
+def grid_decay_rate(D: float, h: float, L: float) -> float:
+    """Slowest decay rate of the discrete 1D operator with lethal faces, 1/yr.
+
+    ``(4 D / h^2) sin^2(pi h / (2 L))`` for ``L / h`` cells of width ``h`` (km),
+    density zero on the two end faces (standard eigenvalues of the second
+    difference matrix; e.g. LeVeque 2007, Finite Difference Methods, §2.10).
+    """
+    return 4.0 * D / h**2 * math.sin(math.pi * h / (2.0 * L)) ** 2

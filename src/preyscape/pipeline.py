@@ -1,0 +1,383 @@
+"""From a scenario to a run: the one place that knows every layer.
+
+:func:`prepare` turns a validated :class:`~preyscape.scenario.Scenario` into
+plain values (grid, fields, movement operators, initial densities, step);
+:func:`derived` computes the numbers ``check`` prints; :func:`simulate` runs
+into a run folder, writing to a temporary folder that is renamed only when
+everything is complete.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import shutil
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from preyscape import __version__
+from preyscape.errors import InputError
+from preyscape.landscape.grid import Grid
+from preyscape.model import theory
+from preyscape.model.fields import (
+    Fields,
+    build_fields,
+    multipliers_from_classes,
+    multipliers_from_suitability,
+)
+from preyscape.model.movement import Movement, build_movement
+from preyscape.model.reactions import Interaction
+from preyscape.scenario import Scenario, load_scenario
+from preyscape.solve.stepper import Stepper, auto_step
+
+
+@dataclass(eq=False)
+class Setup:
+    """Everything a run needs, as plain values.
+
+    Attributes
+    ----------
+    scenario : Scenario
+        The validated settings.
+    grid : Grid
+        The run grid (metres).
+    habitat : numpy.ndarray
+        Class codes or suitability on the grid.
+    fields : Fields
+        Per-cell parameters.
+    prey_movement, predator_movement : Movement
+        Movement operators (1/yr).
+    interaction : Interaction
+        Local interaction.
+    N0, P0 : numpy.ndarray
+        Initial densities, animals/km².
+    dt : float
+        Step, years.
+    """
+
+    scenario: Scenario
+    grid: Grid
+    habitat: np.ndarray
+    fields: Fields
+    prey_movement: Movement
+    predator_movement: Movement
+    interaction: Interaction
+    N0: np.ndarray
+    P0: np.ndarray
+    dt: float
+
+    def stepper(self) -> Stepper:
+        """A fresh :class:`Stepper` for this setup."""
+        f = self.fields
+        return Stepper(
+            self.grid.mask, self.prey_movement, self.predator_movement, f.r, f.inv_K, f.m,
+            self.interaction, self.dt, scheme=self.scenario.run.scheme,
+        )
+
+
+def _source(sc: Scenario, key: str) -> str:
+    return f"{sc.path}: {key}"
+
+
+def interaction_of(sc: Scenario) -> Interaction:
+    """The :class:`Interaction` a scenario describes."""
+    i = sc.interaction
+    return Interaction(i.form, i.attack_rate, i.handling_time, i.efficiency, i.interference)
+
+
+def prepare(sc: Scenario) -> Setup:
+    """Load the landscape and build fields, operators and the initial state.
+
+    Raises
+    ------
+    InputError
+        For unreadable rasters, habitat codes without a table row, release
+        points outside the landscape, or invalid initial densities.
+    """
+    from preyscape.landscape.io import read_habitat, read_layer_onto
+
+    ls = sc.landscape
+    path = sc.resolve(ls.habitat)
+    grid, habitat = read_habitat(
+        path, ls.values, ls.cell_size, source=_source(sc, f"landscape.habitat ({ls.habitat})")
+    )
+    if ls.values == "classes":
+        table = {c.code: c.model_dump() for c in ls.classes}
+        try:
+            mult = multipliers_from_classes(habitat, grid.mask, table)
+        except KeyError as exc:
+            code = exc.args[0]
+            n = int((habitat[grid.mask] == code).sum())
+            raise InputError(
+                f"habitat code {code} occurs in {n} cells of '{ls.habitat}' but has no row "
+                f"in the class table; add a [[landscape.classes]] entry with code = {code} "
+                f"(codes in the table: {sorted(table)})",
+                _source(sc, "landscape.classes"),
+            ) from None
+    else:
+        mult = multipliers_from_suitability(habitat, grid.mask)
+    inter = interaction_of(sc)
+    fields = build_fields(
+        mult, grid.mask, sc.prey.growth, sc.prey.capacity, sc.predator.mortality,
+        sc.prey.move_coefficient, sc.predator.move_coefficient, inter.logistic,
+    )
+    mvs = [
+        build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge, ls.nodata)
+        for coef, spec in ((fields.prey_move, sc.prey), (fields.predator_move, sc.predator))
+    ]
+
+    # initial state
+    st = sc.start
+    mask = grid.mask
+    if st.prey == "capacity":
+        N0 = fields.K.copy()
+    elif st.prey == "uniform":
+        N0 = np.where(mask, float(st.prey_density), 0.0)
+    else:
+        layer = read_layer_onto(
+            sc.resolve(st.prey_raster), grid, "average",
+            source=_source(sc, f"start.prey_raster ({st.prey_raster})"),
+        )
+        layer = np.where(mask, np.nan_to_num(layer, nan=0.0), 0.0)
+        if np.any(layer < 0):
+            r, c = np.argwhere(layer < 0)[0]
+            raise InputError(
+                f"negative prey density {layer[r, c]:g} at row {r}, col {c}; densities "
+                "must be ≥ 0 animals/km²", _source(sc, "start.prey_raster"),
+            )
+        N0 = layer
+    P0 = np.where(mask, st.predator_density, 0.0)
+    for k, rel in enumerate(st.releases):
+        if not grid.contains(rel.x, rel.y):
+            left, bottom, right, top = grid.bounds
+            raise InputError(
+                f"release point ({rel.x:g}, {rel.y:g}) m lies outside the landscape or on a "
+                f"no-data cell; the landscape spans x {left:g}–{right:g} m, "
+                f"y {bottom:g}–{top:g} m in its CRS",
+                _source(sc, f"start.releases[{k}]"),
+            )
+        disc = (grid.distance_to(rel.x, rel.y) <= rel.radius) & mask
+        disc[grid.rowcol(rel.x, rel.y)] = True  # at least the cell holding the point
+        target = N0 if rel.species == "prey" else P0
+        target[disc] += rel.density
+    if st.noise > 0:
+        rng = np.random.default_rng(sc.run.seed)
+        N0 *= 1.0 + st.noise * rng.uniform(-1, 1, N0.shape)
+        P0 *= 1.0 + st.noise * rng.uniform(-1, 1, P0.shape)
+    N0 = np.ascontiguousarray(np.where(mask, N0, 0.0))
+    P0 = np.ascontiguousarray(np.where(mask, P0, 0.0))
+
+    dt = float(sc.run.step) if sc.run.step != "auto" else _auto_dt(sc, fields, inter, P0)
+    if sc.run.step != "auto":
+        n = sc.run.save_every / dt
+        if abs(n - round(n)) > 1e-9 * n:
+            raise InputError(
+                f"step {dt:g} yr does not divide save_every {sc.run.save_every:g} yr into whole "
+                "steps; choose a step such as "
+                f"{sc.run.save_every / max(1, math.ceil(n)):g}",
+                _source(sc, "run.step"),
+            )
+    return Setup(sc, grid, habitat, fields, mvs[0], mvs[1], inter, N0, P0, dt)
+
+
+def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
+    """Best-habitat parameter values (maximum capacity over the landscape)."""
+    mask = fields.K > 0
+    K = float(fields.K.max()) if mask.any() else (sc.prey.capacity or math.nan)
+    return {
+        "r": sc.prey.growth,
+        "K": K,
+        "m": sc.predator.mortality,
+        "D_N": sc.prey.move_coefficient,
+        "D_P": sc.predator.move_coefficient,
+    }
+
+
+def _auto_dt(sc: Scenario, fields: Fields, inter: Interaction, P0: np.ndarray) -> float:
+    b = _best(sc, fields)
+    n_eq, p_eq = theory.equilibrium(inter, b["r"], b["K"] if inter.logistic else None, b["m"])
+    p_scale = max(float(P0.max()), p_eq if math.isfinite(p_eq) else 0.0)
+    K = b["K"] if math.isfinite(b["K"]) else 0.0
+    rates = [
+        float(np.abs(fields.r).max()),
+        float(fields.m.max()),
+        inter.attack_rate * p_scale,  # per-capita predation on rare prey
+        inter.efficiency * inter.attack_rate * K / (1 + inter.attack_rate * inter.h * K),
+    ]
+    period = theory.local_stability(inter, b["r"], b["K"] if inter.logistic else None,
+                                    b["m"])["period"]
+    return auto_step(rates, period, sc.run.save_every)
+
+
+def derived(setup: Setup) -> dict:
+    """Numbers that describe a scenario before it runs (printed by ``check``).
+
+    Returns a dict with the grid, the step, per-species movement numbers
+    (cells crossed per step), best-habitat equilibria and stability, the
+    Rosenzweig–MacArthur Hopf capacity, predicted front speeds, critical patch
+    sizes, and estimates of memory and disk use.
+    """
+    sc, g, inter = setup.scenario, setup.grid, setup.interaction
+    b = _best(sc, setup.fields)
+    K_arg = b["K"] if inter.logistic else None
+    stab = theory.local_stability(inter, b["r"], K_arg, b["m"])
+    n_steps = round(sc.run.years / setup.dt)
+    n_snap = round(sc.run.years / sc.run.save_every) + 1
+    h_km2 = (min(g.dx, g.dy) / 1000.0) ** 2
+    cells = g.ny * g.nx
+    growth_P = inter.efficiency * inter.attack_rate * b["K"] / (
+        1 + inter.attack_rate * inter.h * b["K"]
+    ) - b["m"]
+    return {
+        "grid": {
+            "rows": g.ny, "cols": g.nx, "cells_with_data": g.n_cells,
+            "cell_size_m": (g.dx, g.dy), "extent_km": (g.width_m / 1e3, g.height_m / 1e3),
+        },
+        "step_years": setup.dt,
+        "steps": n_steps,
+        "scheme": sc.run.scheme,
+        "movement_per_step": {
+            "prey": b["D_N"] * setup.dt / h_km2,
+            "predator": b["D_P"] * setup.dt / h_km2,
+        },
+        "best_habitat": b,
+        "equilibrium": stab["equilibrium"],
+        "stable": stab["stable"],
+        "period_years": stab["period"],
+        "hopf_capacity": theory.hopf_capacity(inter, b["m"]) if inter.h > 0 else None,
+        "lv_period_years": theory.lv_period(b["r"], b["m"]),
+        "prey_front_speed": theory.fisher_speed(b["r"], b["D_N"]),
+        "predator_front_speed": theory.predator_speed(inter, b["K"], b["m"], b["D_P"]),
+        "critical_patch_prey": theory.critical_patch(b["r"], b["D_N"]),
+        "critical_patch_predator": theory.critical_patch(growth_P, b["D_P"]),
+        "memory_mb": cells * 8 * 40 / 1e6,  # ~40 float64 arrays per cell (fields, factors, state)
+        "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
+        "snapshots": n_snap,
+    }
+
+
+# ---------------------------------------------------------------------------
+# running into a run folder
+# ---------------------------------------------------------------------------
+class _FolderSink:
+    def __init__(self, writer, folder: Path, dt: float) -> None:
+        self.writer = writer
+        self.folder = folder
+        self.dt = dt
+
+    def write(self, t, N, P):
+        self.writer.write(t, N, P)
+
+    def checkpoint(self, step, N, P):
+        from preyscape.store import save_checkpoint
+
+        save_checkpoint(self.folder / "checkpoint.npz", step, N, P, {"dt": self.dt})
+
+
+def simulate(
+    scenario: Scenario | str | Path,
+    out: str | Path,
+    overwrite: bool = False,
+    progress: bool | None = None,
+    maps: bool = True,
+) -> Path:
+    """Run a scenario into a run folder.
+
+    The run is written to a temporary folder beside ``out`` and renamed to
+    ``out`` only when complete, so an interrupted or failed run never leaves
+    a half-written run folder.
+
+    Parameters
+    ----------
+    scenario : Scenario or path
+        The scenario (or its TOML file).
+    out : str or pathlib.Path
+        The run folder to create.
+    overwrite : bool
+        Replace an existing run folder (otherwise it is refused).
+    progress : bool, optional
+        Progress bar; default only on a terminal.
+    maps : bool
+        Draw PNG maps and the totals plot.
+
+    Returns
+    -------
+    pathlib.Path
+        The run folder.
+    """
+    from preyscape import store
+    from preyscape.solve.kernels import warm_up
+    from preyscape.solve.run import integrate
+
+    sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
+    out = Path(out)
+    if out.exists() and not overwrite:
+        raise InputError(
+            "run folder already exists; choose another with --out or pass --overwrite to "
+            "replace it", str(out),
+        )
+    setup = prepare(sc)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = out.parent / f".{out.name}.partial-{os.getpid()}"
+    if tmp.exists():
+        shutil.rmtree(tmp)
+    tmp.mkdir()
+    t0 = time.perf_counter()
+    try:
+        warm_up()
+        compiled = time.perf_counter() - t0
+        names = {"prey": sc.prey.name, "predator": sc.predator.name}
+        digest = sc.digest()
+        writer = store.ResultWriter(
+            tmp / "results.nc", setup.grid, names,
+            {"title": sc.title or sc.path.stem, "source": f"preyscape {__version__}",
+             "scenario_sha256": digest, "history": f"{store.now_iso()} preyscape run"},
+            habitat=setup.habitat,
+        )
+        N, P = setup.N0.copy(), setup.P0.copy()
+        stepper = setup.stepper()
+        try:
+            integrate(stepper, N, P, sc.run.years, sc.run.save_every,
+                      _FolderSink(writer, tmp, setup.dt), progress=progress)
+        finally:
+            writer.close()
+        means = writer.means()
+        finals = {k: np.where(setup.grid.mask, v, np.nan) for k, v in writer.last.items()}
+        store.write_summaries(tmp / "summary", setup.grid, means, finals)
+        if maps:
+            from preyscape import plots
+
+            plots.draw_run(tmp, setup, means, finals)
+        wall = time.perf_counter() - t0
+        record = {
+            "preyscape_version": __version__,
+            "scenario": str(sc.path),
+            "scenario_sha256": digest,
+            "title": sc.title,
+            "seed": sc.run.seed,
+            "step_years": setup.dt,
+            "steps": stepper.stats.steps,
+            "scheme": sc.run.scheme,
+            "years": sc.run.years,
+            "save_every_years": sc.run.save_every,
+            "snapshots": writer.n,
+            "grid": {"rows": setup.grid.ny, "cols": setup.grid.nx,
+                     "cell_size_m": [setup.grid.dx, setup.grid.dy],
+                     "cells_with_data": setup.grid.n_cells},
+            "species": names,
+            "positivity_clip_total": stepper.stats.clipped,
+            "wall_time_s": round(wall, 3),
+            "compile_or_cache_load_s": round(compiled, 3),
+            "finished": store.now_iso(),
+        }
+        store.write_json(tmp / "run.json", record)
+        if out.exists():  # overwrite was asked for
+            shutil.rmtree(out)
+        os.replace(tmp, out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return out

@@ -1,0 +1,97 @@
+"""The run loop: fixed steps, snapshots to a sink, checkpoints, progress.
+
+The loop knows nothing of file formats: it hands snapshots to a *sink* with
+``write(t, N, P)`` and, optionally, ``checkpoint(step, N, P)``. A run resumed
+from a checkpoint with the same stepper reaches bitwise the same state as an
+uninterrupted run, because each step depends only on the state and on the
+step index.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from typing import Protocol
+
+import numpy as np
+
+from preyscape.solve.stepper import Stepper
+
+
+class Sink(Protocol):
+    """Receives snapshots from :func:`integrate`."""
+
+    def write(self, t: float, N: np.ndarray, P: np.ndarray) -> None:
+        """Store the densities (animals/km²) at time ``t`` (years)."""
+
+
+def schedule(years: float, save_every: float, dt: float) -> tuple[int, int]:
+    """Total steps and steps per save for a run, checking they are whole numbers.
+
+    Parameters
+    ----------
+    years, save_every, dt : float
+        Run length, save interval and step, years.
+    """
+    per_save = round(save_every / dt)
+    if per_save < 1 or abs(per_save * dt - save_every) > 1e-9 * save_every:
+        raise ValueError(f"save interval {save_every} yr is not a whole number of steps {dt} yr")
+    n_saves = round(years / save_every)
+    return n_saves * per_save, per_save
+
+
+def integrate(
+    stepper: Stepper,
+    N: np.ndarray,
+    P: np.ndarray,
+    years: float,
+    save_every: float,
+    sink: Sink,
+    start_step: int = 0,
+    progress: bool | None = None,
+) -> None:
+    """Advance the densities to ``years``, saving every ``save_every`` years.
+
+    Parameters
+    ----------
+    stepper : Stepper
+        The time step (its ``dt`` divides ``save_every``).
+    N, P : numpy.ndarray
+        Prey and predator density, animals/km², float64; advanced in place.
+    years : float
+        Run length, years.
+    save_every : float
+        Save interval, years.
+    sink : Sink
+        Receives the snapshot at the start (unless resuming) and after every
+        save interval; ``sink.checkpoint(step, N, P)`` is called after each
+        save when the sink has it.
+    start_step : int
+        Steps already taken (resume from a checkpoint).
+    progress : bool, optional
+        Show a progress bar; default: only when standard error is a terminal.
+    """
+    n_steps, per_save = schedule(years, save_every, stepper.dt)
+    if start_step == 0:
+        sink.write(0.0, N, P)
+    show = sys.stderr.isatty() if progress is None else progress
+    bar = None
+    if show:
+        from tqdm import tqdm
+
+        bar = tqdm(total=n_steps, initial=start_step, unit="step", desc="simulating",
+                   leave=False, file=sys.stderr)
+    checkpoint = getattr(sink, "checkpoint", None)
+    for k in range(start_step, n_steps):
+        stepper.step(N, P, k)
+        if (k + 1) % per_save == 0:
+            t = (k + 1) // per_save * save_every
+            if not (math.isfinite(float(N.max())) and math.isfinite(float(P.max()))):
+                raise FloatingPointError(f"densities are no longer finite at t = {t:g} yr")
+            sink.write(t, N, P)
+            if checkpoint is not None:
+                checkpoint(k + 1, N, P)
+        if bar is not None:
+            bar.update(1)
+    if bar is not None:
+        bar.close()

@@ -1,0 +1,232 @@
+"""Run folders: streaming NetCDF-CF results, GeoTIFF summaries, run record.
+
+A run folder holds::
+
+    results.nc        snapshots of both densities (animals/km²), appended as
+                      the run goes (NetCDF-4, CF-1.8, CRS as grid mapping)
+    summary/*.tif     time-mean and final densities per species (GeoTIFF)
+    maps/*.png        maps and the landscape totals plot
+    checkpoint.npz    the last saved state, float64, for resuming
+    run.json          version, scenario digest, seed, wall time, step size
+
+Memory does not grow with the run length: each snapshot is written to disk
+and only running sums stay in memory.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from preyscape.landscape.grid import Grid
+
+SPECIES = ("prey", "predator")
+
+
+def _cf_grid_mapping(crs_wkt: str) -> dict[str, Any]:
+    if not crs_wkt:
+        return {}
+    from pyproj import CRS
+
+    attrs = {k: v for k, v in CRS.from_wkt(crs_wkt).to_cf().items() if v is not None}
+    attrs["spatial_ref"] = crs_wkt  # read by GDAL
+    return attrs
+
+
+class ResultWriter:
+    """Append snapshots of prey and predator density to a NetCDF-CF file.
+
+    Parameters
+    ----------
+    path : pathlib.Path
+        The ``results.nc`` to create.
+    grid : Grid
+        Grid of the run (metres, CRS).
+    names : dict
+        Common names of the species, ``{"prey": ..., "predator": ...}``.
+    attrs : dict
+        Global attributes (title, scenario digest, ...).
+    habitat : numpy.ndarray, optional
+        The habitat layer (class codes or suitability), stored alongside.
+    """
+
+    def __init__(
+        self,
+        path: Path,
+        grid: Grid,
+        names: dict[str, str],
+        attrs: dict[str, Any],
+        habitat: np.ndarray | None = None,
+    ) -> None:
+        import netCDF4
+
+        self.grid = grid
+        self.path = Path(path)
+        ds = netCDF4.Dataset(self.path, "w", format="NETCDF4")
+        self._ds = ds
+        ds.Conventions = "CF-1.8"
+        for k, v in attrs.items():
+            ds.setncattr(k, v if isinstance(v, (int, float)) else str(v))
+        ds.createDimension("time", None)
+        ds.createDimension("y", grid.ny)
+        ds.createDimension("x", grid.nx)
+        t = ds.createVariable("time", "f8", ("time",))
+        t.units = "year"
+        t.long_name = "simulated time since the start"
+        t.axis = "T"
+        for name, values, axis in (("x", grid.x, "X"), ("y", grid.y, "Y")):
+            v = ds.createVariable(name, "f8", (name,))
+            v[:] = values
+            v.units = "m"
+            v.axis = axis
+            v.standard_name = f"projection_{name}_coordinate"
+            v.long_name = f"{'easting' if name == 'x' else 'northing'} of cell centre"
+        crs = ds.createVariable("spatial_ref", "i4")
+        for k, v in _cf_grid_mapping(grid.crs_wkt).items():
+            crs.setncattr(k, v)
+        crs.GeoTransform = " ".join(repr(float(g)) for g in grid.gdal_transform)
+        mk = ds.createVariable("mask", "u1", ("y", "x"), zlib=True)
+        mk[:] = grid.mask.astype(np.uint8)
+        mk.long_name = "cell has habitat data"
+        mk.flag_values = np.array([0, 1], dtype=np.uint8)
+        mk.flag_meanings = "no_data data"
+        mk.grid_mapping = "spatial_ref"
+        if habitat is not None:
+            hv = ds.createVariable("habitat", "f4", ("y", "x"), zlib=True, fill_value=np.nan)
+            hv[:] = np.where(grid.mask, habitat, np.nan).astype(np.float32)
+            hv.long_name = "habitat layer (class code or suitability 0-1)"
+            hv.grid_mapping = "spatial_ref"
+        self._vars = {}
+        self._totals = {}
+        for sp in SPECIES:
+            v = ds.createVariable(
+                sp, "f4", ("time", "y", "x"), zlib=True, complevel=1, shuffle=True,
+                chunksizes=(1, grid.ny, grid.nx), fill_value=np.nan,
+            )
+            v.units = "km-2"
+            v.long_name = f"{sp} density ({names.get(sp) or sp}), animals per km2"
+            v.grid_mapping = "spatial_ref"
+            v.coordinates = "y x"
+            self._vars[sp] = v
+            tv = ds.createVariable(f"{sp}_total", "f8", ("time",))
+            tv.units = "1"
+            tv.long_name = f"{sp} animals in the whole landscape"
+            self._totals[sp] = tv
+        self._time = t
+        self.n = 0
+        self._sum = {sp: np.zeros(grid.shape) for sp in SPECIES}
+        self._n_mean = 0
+        self.last: dict[str, np.ndarray] = {}
+
+    def write(self, t: float, N: np.ndarray, P: np.ndarray) -> None:
+        """Append one snapshot at time ``t`` (years); densities in animals/km²."""
+        k = self.n
+        self._time[k] = t
+        area = self.grid.cell_area_km2
+        for sp, u in zip(SPECIES, (N, P), strict=True):
+            self._vars[sp][k, :, :] = np.where(self.grid.mask, u, np.nan).astype(np.float32)
+            self._totals[sp][k] = float(u[self.grid.mask].sum() * area)
+            if k > 0:  # time means are over the snapshots after the start
+                self._sum[sp] += u
+        if k > 0:
+            self._n_mean += 1
+        self.last = {"prey": N.copy(), "predator": P.copy()}
+        self.n += 1
+        self._ds.sync()
+
+    def means(self) -> dict[str, np.ndarray]:
+        """Time-mean density per species over snapshots after the start, animals/km²."""
+        n = max(self._n_mean, 1)
+        return {sp: np.where(self.grid.mask, s / n, np.nan) for sp, s in self._sum.items()}
+
+    def close(self) -> None:
+        """Close the file."""
+        if self._ds is not None:
+            self._ds.close()
+            self._ds = None
+
+
+def save_checkpoint(path: Path, step: int, N: np.ndarray, P: np.ndarray, extra: dict) -> None:
+    """Write the state after ``step`` steps, atomically (float64, exact)."""
+    tmp = path.with_name(path.name + ".tmp")
+    with open(tmp, "wb") as fh:
+        np.savez(fh, step=step, prey=N, predator=P, extra=json.dumps(extra))
+    os.replace(tmp, path)
+
+
+def load_checkpoint(path: Path) -> tuple[int, np.ndarray, np.ndarray, dict]:
+    """Read a checkpoint written by :func:`save_checkpoint`."""
+    with np.load(path) as z:
+        return int(z["step"]), z["prey"].copy(), z["predator"].copy(), json.loads(str(z["extra"]))
+
+
+def write_summaries(folder: Path, grid: Grid, means: dict, finals: dict) -> list[Path]:
+    """Write time-mean and final density GeoTIFFs (float32, NaN no-data) into ``folder``."""
+    from preyscape.landscape.io import write_geotiff
+
+    folder.mkdir(parents=True, exist_ok=True)
+    out = []
+    for label, layers in (("mean", means), ("final", finals)):
+        for sp, arr in layers.items():
+            p = folder / f"{sp}_{label}.tif"
+            write_geotiff(p, grid, np.where(grid.mask, arr, np.nan).astype(np.float32))
+            out.append(p)
+    return out
+
+
+def write_json(path: Path, record: dict) -> None:
+    """Write ``record`` as indented JSON, atomically."""
+    tmp = path.with_name(path.name + ".tmp")
+    tmp.write_text(json.dumps(record, indent=2, default=str) + "\n")
+    os.replace(tmp, path)
+
+
+def now_iso() -> str:
+    """Current UTC time, ISO 8601."""
+    return datetime.now(UTC).isoformat(timespec="seconds")
+
+
+@dataclass
+class RunFolder:
+    """An opened run folder.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+        The folder.
+    info : dict
+        Contents of ``run.json``.
+    """
+
+    path: Path
+    info: dict
+
+    @property
+    def results(self):
+        """The snapshots as an :class:`xarray.Dataset` (opened lazily)."""
+        import xarray as xr
+
+        return xr.open_dataset(self.path / "results.nc", decode_times=False)
+
+
+def open_run(path: str | Path) -> RunFolder:
+    """Open a finished run folder.
+
+    Raises
+    ------
+    InputError
+        If ``path`` is not a finished run folder.
+    """
+    from preyscape.errors import InputError
+
+    p = Path(path)
+    rec = p / "run.json"
+    if not rec.is_file() or not (p / "results.nc").is_file():
+        raise InputError("not a finished run folder (no run.json and results.nc)", str(p))
+    return RunFolder(p, json.loads(rec.read_text()))

@@ -1,0 +1,75 @@
+"""The run loop: schedule, snapshots, and bitwise resume from a checkpoint."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from preyscape.model.movement import build_movement
+from preyscape.model.reactions import Interaction
+from preyscape.solve.run import integrate, schedule
+from preyscape.solve.stepper import Stepper
+
+
+class Keep:
+    def __init__(self, stop_after=None):
+        self.times, self.frames, self.checkpoints = [], [], {}
+        self.stop_after = stop_after
+
+    def write(self, t, N, P):
+        self.times.append(t)
+        self.frames.append((N.copy(), P.copy()))
+
+    def checkpoint(self, step, N, P):
+        self.checkpoints[step] = (N.copy(), P.copy())
+        if self.stop_after is not None and len(self.checkpoints) >= self.stop_after:
+            raise KeyboardInterrupt  # simulated interruption
+
+
+def _stepper():
+    shape = (20, 24)
+    rng = np.random.default_rng(0)
+    mask = np.ones(shape, bool)
+    D = rng.uniform(0.5, 2.0, shape)
+    mv = build_movement(D, mask, 100.0, 100.0)
+    mv_p = build_movement(3 * D, mask, 100.0, 100.0, "ecological")
+    inter = Interaction("holling-ii", 1.0, 0.3, 0.6)
+    return Stepper(mask, mv, mv_p, np.full(shape, 1.0), np.full(shape, 0.5),
+                   np.full(shape, 0.3), inter, dt=0.05)
+
+
+def _start():
+    yy, xx = np.mgrid[0:20, 0:24]
+    return 1.5 + 0.0 * xx, np.where((xx - 5) ** 2 + (yy - 5) ** 2 < 9, 0.5, 0.0)
+
+
+def test_schedule_counts_steps_and_refuses_misfits():
+    assert schedule(2.0, 0.5, 0.05) == (40, 10)
+    with pytest.raises(ValueError):
+        schedule(2.0, 0.5, 0.07)
+
+
+def test_snapshots_at_the_start_and_every_interval():
+    N, P = _start()
+    sink = Keep()
+    integrate(_stepper(), N, P, 1.0, 0.25, sink, progress=False)
+    assert sink.times == [0.0, 0.25, 0.5, 0.75, 1.0]
+    assert sorted(sink.checkpoints) == [5, 10, 15, 20]
+
+
+def test_resume_reaches_bitwise_the_same_state():
+    # design requirement: each step depends only on the state and the step index
+    N, P = _start()
+    full = Keep()
+    integrate(_stepper(), N, P, 2.0, 0.25, full, progress=False)
+    N2, P2 = _start()
+    part = Keep(stop_after=3)
+    with pytest.raises(KeyboardInterrupt):
+        integrate(_stepper(), N2, P2, 2.0, 0.25, part, progress=False)
+    step = max(part.checkpoints)
+    assert step == 15
+    Nr, Pr = (a.copy() for a in part.checkpoints[step])
+    rest = Keep()
+    integrate(_stepper(), Nr, Pr, 2.0, 0.25, rest, start_step=step, progress=False)
+    assert np.array_equal(Nr, N) and np.array_equal(Pr, P)
+    assert rest.times == full.times[4:]
