@@ -44,6 +44,7 @@ def _parser() -> argparse.ArgumentParser:
     d.add_argument("--out", type=Path,
                    help="run folder to create (default: preyscape-demo, or the next free "
                    "preyscape-demo-N)")
+    d.add_argument("--overwrite", action="store_true", help="replace an existing --out folder")
     d.add_argument("--quiet", action="store_true", help="no progress bar or summary")
     return p
 
@@ -141,7 +142,8 @@ def main(argv: list[str] | None = None) -> int:
             from preyscape.demo import demo_scenario
 
             out = _demo_out(args.out)
-            folder = simulate(demo_scenario(), out, progress=False if args.quiet else None)
+            folder = simulate(demo_scenario(), out, overwrite=args.overwrite,
+                              progress=False if args.quiet else None)
         if not args.quiet:
             _summary(folder)
         return 0

@@ -32,8 +32,8 @@ def _extent_km(grid: Grid) -> tuple[float, float, float, float]:
     return (left / 1e3, right / 1e3, bottom / 1e3, top / 1e3)
 
 
-def _new(figsize=(6.4, 5.4)) -> Figure:
-    fig = Figure(figsize=figsize, dpi=110)
+def _new(figsize=(6.4, 5.4), layout: str | None = None) -> Figure:
+    fig = Figure(figsize=figsize, dpi=110, layout=layout)
     FigureCanvasAgg(fig)
     return fig
 
@@ -81,9 +81,7 @@ def density_map(
 def _cmap(name: str):
     from matplotlib import colormaps
 
-    cm = colormaps[name].copy()
-    cm.set_bad(NO_DATA)
-    return cm
+    return colormaps[name].with_extremes(bad=NO_DATA)
 
 
 def habitat_map(grid: Grid, habitat: np.ndarray, classes: dict[int, str] | None,
@@ -97,8 +95,7 @@ def habitat_map(grid: Grid, habitat: np.ndarray, classes: dict[int, str] | None,
         pos = np.searchsorted(codes, np.where(grid.mask, habitat, codes[0]))
         idx = np.ma.masked_where(~grid.mask, np.clip(pos, 0, len(codes) - 1))
         colours = [CLASS_COLOURS[k % len(CLASS_COLOURS)] for k in range(len(codes))]
-        cm = ListedColormap(colours)
-        cm.set_bad(NO_DATA)
+        cm = ListedColormap(colours).with_extremes(bad=NO_DATA)
         norm = BoundaryNorm(np.arange(len(codes) + 1) - 0.5, len(codes))
         ax.imshow(idx, extent=_extent_km(grid), cmap=cm, norm=norm, interpolation="nearest")
         handles = [Patch(color=colours[k], label=f"{c} {classes[c]}") for k, c in enumerate(codes)]
@@ -139,7 +136,7 @@ def snapshot_panels(grid: Grid, times: np.ndarray, frames: list[np.ndarray], spe
                     name: str, path: Path) -> Path:
     """A row of density maps at chosen times on one shared colour scale."""
     n = len(frames)
-    fig = _new((2.6 * n + 1.0, 3.2))
+    fig = _new((2.3 * n + 1.2, 2.9), layout="constrained")
     vmax = max(float(np.nanmax(f)) if np.isfinite(f).any() else 0.0 for f in frames) or 1.0
     cm = _cmap(SPECIES_CMAP.get(species, "viridis"))
     im = None
@@ -154,7 +151,7 @@ def snapshot_panels(grid: Grid, times: np.ndarray, frames: list[np.ndarray], spe
         ax.tick_params(labelsize=6)
         ax.ticklabel_format(useOffset=False, style="plain")
     fig.suptitle(f"{species} ({name}) density, animals per km²; axes in km", fontsize=9)
-    fig.colorbar(im, ax=fig.axes, shrink=0.8)
+    fig.colorbar(im, ax=fig.axes, shrink=0.9, pad=0.01)
     return _save(fig, path)
 
 

@@ -20,6 +20,7 @@ from pydantic import (
     BaseModel,
     ConfigDict,
     Field,
+    StrictInt,
     ValidationError,
     field_validator,
     model_validator,
@@ -27,9 +28,11 @@ from pydantic import (
 
 from preyscape.errors import InputError
 
-Positive = Annotated[float, Field(gt=0, allow_inf_nan=False)]
-NonNegative = Annotated[float, Field(ge=0, allow_inf_nan=False)]
-Fraction = Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)]
+# strict: a quoted number or a boolean is a mistake in a scenario file, not a number
+Positive = Annotated[float, Field(gt=0, allow_inf_nan=False, strict=True)]
+NonNegative = Annotated[float, Field(ge=0, allow_inf_nan=False, strict=True)]
+Fraction = Annotated[float, Field(ge=0, le=1, allow_inf_nan=False, strict=True)]
+Coordinate = Annotated[float, Field(allow_inf_nan=False, strict=True)]
 EdgeRule = Literal["closed", "hostile"]
 MovementKind = Literal["fickian", "ecological"]
 
@@ -41,7 +44,7 @@ class _Strict(BaseModel):
 class HabitatClass(_Strict):
     """One row of the class table: a habitat code and its multipliers (all ≥ 0)."""
 
-    code: int
+    code: StrictInt
     name: str = ""
     prey_capacity: NonNegative = 1.0
     prey_growth: NonNegative = 1.0
@@ -139,10 +142,10 @@ class InteractionSpec(_Strict):
 
 
 class Release(_Strict):
-    """One predator release: a disc at map coordinates (metres)."""
+    """One release of animals (predators by default): a disc at map coordinates (metres)."""
 
-    x: float = Field(allow_inf_nan=False)
-    y: float = Field(allow_inf_nan=False)
+    x: Coordinate
+    y: Coordinate
     radius: Positive
     density: Positive
     species: Literal["predator", "prey"] = "predator"
@@ -156,7 +159,7 @@ class StartSpec(_Strict):
     prey_raster: str | None = None
     predator_density: NonNegative = 0.0
     releases: tuple[Release, ...] = ()
-    noise: Annotated[float, Field(ge=0, lt=1)] = 0.0
+    noise: Annotated[float, Field(ge=0, lt=1, strict=True)] = 0.0
 
     @model_validator(mode="after")
     def _prey(self) -> StartSpec:
@@ -173,7 +176,7 @@ class RunSpec(_Strict):
     years: Positive
     save_every: Positive
     step: Positive | Literal["auto"] = "auto"
-    seed: int = 0
+    seed: StrictInt = 0
     scheme: Literal["adi", "implicit-euler", "explicit"] = "adi"
 
     @model_validator(mode="after")
@@ -246,12 +249,13 @@ class Scenario(_Strict):
 # ---------------------------------------------------------------------------
 # loading and error messages
 # ---------------------------------------------------------------------------
-def _loc(loc: tuple) -> str:
+def _loc(loc: tuple, last_is_key: bool = False) -> str:
     out = ""
-    for part in loc:
-        if isinstance(part, int):
+    for k, part in enumerate(loc):
+        key = last_is_key and k == len(loc) - 1
+        if isinstance(part, int) and not key:
             out += f"[{part}]"
-        elif not str(part).isidentifier():
+        elif not key and not str(part).isidentifier():
             continue  # pydantic's tags for union members, e.g. "constrained-float"
         else:
             out += ("." if out else "") + str(part)
@@ -279,8 +283,8 @@ def _model_at(loc: tuple) -> type[BaseModel] | None:
 
 def _message(err: dict) -> str:
     loc = tuple(err["loc"])
-    where = _loc(loc) or "(top level)"
     kind = err["type"]
+    where = _loc(loc, last_is_key=kind == "extra_forbidden") or "(top level)"
     if kind == "extra_forbidden":
         key = str(loc[-1])
         parent = _model_at(loc[:-1])

@@ -4,7 +4,7 @@ A habitat raster holds either class codes, each mapped by a class table to
 multipliers of the species' best-habitat values, or a suitability in 0–1
 that scales the prey carrying capacity. Cells whose prey capacity is zero are
 sinks: with a logistic form, prey there decline at their growth rate
-(per-capita rate ``-r``) instead of growing.
+(per-capita rate ``-r`` times the class's growth multiplier) instead of growing.
 """
 
 from __future__ import annotations
@@ -130,7 +130,7 @@ def build_fields(
         pos = mask & (K > 0)
         inv_K[pos] = 1.0 / K[pos]
         sink = mask & (K <= 0)
-        r[sink] = -growth
+        r[sink] = -growth * mult["prey_growth"][sink]
     return Fields(
         K=K,
         r=r,

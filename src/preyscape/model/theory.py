@@ -114,6 +114,8 @@ def predator_speed(inter: Interaction, K: float, m: float, D_P: float) -> float:
     ``2 sqrt(D_P (e a K / (1 + a h K) - m))`` (Dunbar 1983, J Math Biol 17:11;
     Owen & Lewis 2001, Bull Math Biol 63:655). Zero when predators cannot grow.
     """
+    if not math.isfinite(K):
+        return math.nan
     a, h, e = inter.attack_rate, inter.h, inter.efficiency
     growth = e * a * K / (1.0 + a * h * K) - m
     return 2.0 * math.sqrt(D_P * growth) if growth > 0 else 0.0

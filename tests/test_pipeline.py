@@ -1,0 +1,191 @@
+"""Tests for preyscape.pipeline: the initial state, derived numbers, the step."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from conftest import (
+    CAPACITY,
+    DX,
+    NODATA_CELLS,
+    RELEASE_COL,
+    RELEASE_DENSITY,
+    RELEASE_RADIUS,
+    RELEASE_ROW,
+    RELEASE_X,
+    RELEASE_Y,
+    SHAPE,
+    WOOD_CAPACITY,
+    X0,
+    Y0,
+    habitat_array,
+)
+
+from preyscape.errors import InputError
+from preyscape.pipeline import derived, prepare, simulate
+from preyscape.scenario import load_scenario
+
+
+@pytest.fixture
+def setup(scenario_path):
+    return prepare(load_scenario(scenario_path))
+
+
+def cell_centres() -> tuple[np.ndarray, np.ndarray]:
+    """Cell-centre coordinates (m) of the test grid, computed here from its corner."""
+    x = X0 + (np.arange(SHAPE[1]) + 0.5) * DX
+    y = Y0 - (np.arange(SHAPE[0]) + 0.5) * DX
+    return np.meshgrid(x, y)
+
+
+def test_grid_and_mask_match_raster(setup):
+    hab = habitat_array()
+    assert setup.grid.shape == SHAPE
+    assert (setup.grid.dx, setup.grid.dy) == (DX, DX)
+    assert (setup.grid.x0, setup.grid.y0) == (X0, Y0)
+    np.testing.assert_array_equal(setup.grid.mask, hab != 0)
+    assert setup.grid.n_cells == SHAPE[0] * SHAPE[1] - len(NODATA_CELLS)
+
+
+def test_prey_starts_at_capacity_and_zero_on_nodata(setup):
+    hab = habitat_array()
+    # class table of conftest.BASE: class 1 at capacity, class 2 at WOOD_CAPACITY of it
+    expected = np.select([hab == 1, hab == 2], [CAPACITY, CAPACITY * WOOD_CAPACITY], 0.0)
+    np.testing.assert_allclose(setup.N0, expected, rtol=1e-12, atol=0)
+    for r, c in NODATA_CELLS:
+        assert setup.N0[r, c] == 0.0
+        assert setup.P0[r, c] == 0.0
+    assert setup.N0.dtype == np.float64 and setup.N0.flags.c_contiguous
+
+
+def test_release_adds_density_within_radius(setup):
+    X, Y = cell_centres()
+    # reference computation with numpy: cell centres within the radius of the release
+    inside = np.hypot(X - RELEASE_X, Y - RELEASE_Y) <= RELEASE_RADIUS
+    inside &= habitat_array() != 0
+    assert inside.sum() == 21  # lattice points with i² + j² <= 2.5² (counted by hand)
+    expected = np.where(inside, RELEASE_DENSITY, 0.0)
+    np.testing.assert_array_equal(setup.P0, expected)
+    assert setup.P0[RELEASE_ROW, RELEASE_COL] == RELEASE_DENSITY
+
+
+def test_prey_release_adds_to_capacity(write_scenario):
+    path = write_scenario({"start.releases.0": {
+        "x": RELEASE_X, "y": RELEASE_Y, "radius": 50.0, "density": 7.0, "species": "prey"}})
+    s = prepare(load_scenario(path))
+    # a radius below half a cell still marks the cell holding the point
+    hab = habitat_array()
+    expected = np.select([hab == 1, hab == 2], [CAPACITY, CAPACITY * WOOD_CAPACITY], 0.0)
+    expected[RELEASE_ROW, RELEASE_COL] += 7.0
+    np.testing.assert_array_equal(s.N0, expected)
+    assert not s.P0.any()
+
+
+def test_release_on_nodata_cell_refused(write_scenario):
+    r, c = NODATA_CELLS[-1]
+    path = write_scenario({"start.releases.0.x": X0 + (c + 0.5) * DX,
+                           "start.releases.0.y": Y0 - (r + 0.5) * DX})
+    with pytest.raises(InputError) as info:
+        prepare(load_scenario(path))
+    assert "start.releases[0]" in str(info.value)
+    assert str(path) in str(info.value)
+
+
+def test_derived_front_speeds(setup, scenario_path):
+    sc = load_scenario(scenario_path)
+    d = derived(setup)
+    r, D = sc.prey.growth, sc.prey.diffusivity
+    # Fisher 1937: minimal Fisher-KPP front speed 2 sqrt(r D), km/yr
+    assert d["prey_front_speed"] == pytest.approx(2 * math.sqrt(r * D), rel=1e-12)
+    assert d["prey_front_speed"] == pytest.approx(2.7202941017470885, rel=1e-12)  # 2√(3.7·0.5)
+    a, h, e = sc.interaction.attack_rate, sc.interaction.handling_time, sc.interaction.efficiency
+    m, D_P, K = sc.predator.mortality, sc.predator.diffusivity, CAPACITY
+    # Dunbar 1983 (J Math Biol 17:11): predators invading prey at capacity,
+    # 2 sqrt(D_P (e a K / (1 + a h K) - m)) at best habitat (class 1, multipliers 1)
+    growth_P = e * a * K / (1 + a * h * K) - m
+    assert growth_P == pytest.approx(2.5 / 1.5 - 1.0)  # worked by hand: 0.01·0.25·1000/1.5 - 1
+    assert d["predator_front_speed"] == pytest.approx(2 * math.sqrt(D_P * growth_P), rel=1e-12)
+    assert d["best_habitat"]["K"] == CAPACITY
+
+
+def test_derived_grid_and_equilibrium(setup):
+    d = derived(setup)
+    assert (d["grid"]["rows"], d["grid"]["cols"]) == SHAPE
+    assert d["grid"]["cells_with_data"] == SHAPE[0] * SHAPE[1] - len(NODATA_CELLS)
+    assert d["grid"]["extent_km"] == pytest.approx((3.0, 2.4))
+    # Rosenzweig & MacArthur 1963: N* = m / (a (e - m h)) = 1 / (0.25 · 0.008) = 500
+    assert d["equilibrium"][0] == pytest.approx(500.0)
+    # Rosenzweig 1971: K_H = (e + m h) / (a h (e - m h)) = 0.012 / 0.000004 = 3000
+    assert d["hopf_capacity"] == pytest.approx(3000.0)
+    assert d["stable"] is True  # K = 1000 < K_H
+    assert d["snapshots"] == 3  # t = 0, 0.25, 0.5
+    assert d["steps"] * setup.dt == pytest.approx(0.5)
+
+
+def test_derived_critical_patch(setup):
+    d = derived(setup)
+    # Skellam 1951: strip width pi sqrt(D / r)
+    assert d["critical_patch_prey"]["strip_width"] == pytest.approx(math.pi * math.sqrt(0.5 / 3.7))
+
+
+def test_auto_step_divides_save_every(setup, scenario_path):
+    sc = load_scenario(scenario_path)
+    n = sc.run.save_every / setup.dt
+    assert n == pytest.approx(round(n), abs=1e-9)
+    assert round(n) > 1
+    # accuracy 0.05 of the fastest rate (r = 3.7/yr, stepper.auto_step), rounded down to fit
+    assert setup.dt <= 0.05 / 3.7
+    assert setup.dt == pytest.approx(0.25 / 19)  # ceil(0.25 / (0.05/3.7)) = 19 steps
+
+
+@pytest.mark.parametrize("save_every", [0.1, 0.125, 1 / 3])
+def test_auto_step_divides_other_save_intervals(write_scenario, save_every):
+    path = write_scenario({"run.years": 1.0, "run.save_every": save_every})
+    s = prepare(load_scenario(path))
+    n = save_every / s.dt
+    assert abs(n - round(n)) < 1e-9 * n
+
+
+def test_fixed_step_not_dividing_save_every_refused(write_scenario):
+    path = write_scenario({"run.step": 0.03})
+    with pytest.raises(InputError) as info:
+        prepare(load_scenario(path))
+    assert "run.step" in str(info.value)
+
+
+def test_fixed_step_is_used(write_scenario):
+    s = prepare(load_scenario(write_scenario({"run.step": 0.0125})))
+    assert s.dt == 0.0125
+
+
+def test_failed_run_leaves_no_folder(scenario_path, tmp_path, monkeypatch):
+    from preyscape import store
+
+    def boom(*args, **kwargs):
+        raise RuntimeError("disk full (simulated)")
+
+    monkeypatch.setattr(store, "write_summaries", boom)
+    out = tmp_path / "runs" / "failed"
+    with pytest.raises(RuntimeError):
+        simulate(scenario_path, out, progress=False, maps=False)
+    assert not out.exists()
+    assert list(out.parent.glob(".failed.partial-*")) == []
+
+
+def test_failed_overwrite_keeps_old_folder(scenario_path, tmp_path, monkeypatch):
+    from preyscape import store
+
+    out = tmp_path / "kept"
+    out.mkdir()
+    (out / "run.json").write_text('{"old": true}\n')
+
+    def boom(*args, **kwargs):
+        raise RuntimeError("disk full (simulated)")
+
+    monkeypatch.setattr(store, "write_summaries", boom)
+    with pytest.raises(RuntimeError):
+        simulate(scenario_path, out, overwrite=True, progress=False, maps=False)
+    assert (out / "run.json").read_text() == '{"old": true}\n'
+    assert list(tmp_path.glob(".kept.partial-*")) == []

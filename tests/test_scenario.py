@@ -1,0 +1,194 @@
+"""Tests for preyscape.scenario: loading, validation and error messages."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from conftest import BASE, CAPACITY, DELETE, apply_overrides, habitat_array, write_habitat
+
+from preyscape.errors import InputError
+from preyscape.pipeline import prepare
+from preyscape.scenario import Scenario, load_scenario, parse_scenario
+
+
+def load_error(path: Path) -> str:
+    """The text of the InputError that loading ``path`` raises."""
+    with pytest.raises(InputError) as info:
+        load_scenario(path)
+    return str(info.value)
+
+
+def test_valid_file_loads(scenario_path):
+    sc = load_scenario(scenario_path)
+    assert isinstance(sc, Scenario)
+    assert sc.path == scenario_path
+    # values as written in conftest.BASE
+    assert sc.prey.growth == 3.7
+    assert sc.prey.capacity == CAPACITY
+    assert sc.interaction.form == "holling-ii"
+    assert [c.code for c in sc.landscape.classes] == [1, 2]
+    assert sc.landscape.classes[1].prey_capacity == 0.5
+    assert sc.landscape.classes[0].prey_capacity == 1.0  # documented default multiplier
+    assert len(sc.start.releases) == 1 and sc.start.releases[0].species == "predator"
+    assert sc.run.years == 0.5 and sc.run.save_every == 0.25 and sc.run.step == "auto"
+
+
+def test_parse_scenario_accepts_a_dict(tmp_path):
+    write_habitat(tmp_path / "habitat.tif")
+    sc = parse_scenario(apply_overrides(BASE, {}), tmp_path / "in_memory.toml")
+    assert sc.resolve(sc.landscape.habitat) == tmp_path / "habitat.tif"
+
+
+def test_misspelt_key_names_file_key_path_and_suggestion(write_scenario):
+    path = write_scenario({"prey.growth": DELETE, "prey.grwoth": 3.7}, name="typo.toml")
+    text = load_error(path)
+    assert str(path) in text
+    assert "prey.grwoth" in text
+    assert "did you mean 'growth'" in text
+
+
+def test_misspelt_key_in_class_table_row(write_scenario):
+    path = write_scenario({"landscape.classes.1": {"code": 2, "prey_capacty": 0.5}})
+    text = load_error(path)
+    assert "landscape.classes[1].prey_capacty" in text
+    assert "did you mean 'prey_capacity'" in text
+
+
+def test_negative_rate_refused(write_scenario):
+    path = write_scenario({"prey.growth": -1.0})
+    text = load_error(path)
+    assert str(path) in text
+    assert "prey.growth" in text
+    assert "-1" in text  # the offending value is quoted back
+
+
+def test_negative_class_multiplier_refused(write_scenario):
+    path = write_scenario({"landscape.classes.1": {"code": 2, "prey_capacity": -0.5}})
+    assert "landscape.classes[1].prey_capacity" in load_error(path)
+
+
+@pytest.mark.parametrize("value", ["half a year", "long"])
+def test_string_for_years_refused(write_scenario, value):
+    path = write_scenario({"run.years": value})
+    text = load_error(path)
+    assert "run.years" in text
+    assert value in text
+
+
+def test_missing_required_section_refused(write_scenario):
+    path = write_scenario({"predator": DELETE})
+    text = load_error(path)
+    assert str(path) in text
+    assert "predator" in text
+    assert "missing" in text
+
+
+def test_missing_required_key_refused(write_scenario):
+    path = write_scenario({"interaction.attack_rate": DELETE})
+    assert "interaction.attack_rate: missing" in load_error(path)
+
+
+def test_missing_raster_refused(write_scenario):
+    path = write_scenario({"landscape.habitat": "no_such_habitat.tif"})
+    text = load_error(path)
+    assert str(path) in text
+    assert "landscape.habitat" in text
+    assert "no_such_habitat.tif" in text
+
+
+def test_missing_scenario_file_refused(tmp_path):
+    path = tmp_path / "absent.toml"
+    text = load_error(path)
+    assert str(path) in text
+
+
+def test_invalid_toml_refused_with_line(write_scenario):
+    text = "title = 'x'\n\n[run]\nyears = = 1\n"
+    path = write_scenario(text=text, name="broken.toml")
+    msg = load_error(path)
+    assert str(path) in msg
+    assert "TOML" in msg
+    assert "line 4" in msg  # the bad line, counted from 1 as tomllib reports it
+
+
+def test_relative_paths_resolve_against_scenario_folder(scenario_path, tmp_path, monkeypatch):
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)
+    assert not Path("habitat.tif").exists()  # a cwd-relative lookup would fail
+    sc = load_scenario(scenario_path)
+    assert sc.resolve(sc.landscape.habitat) == tmp_path / "habitat.tif"
+    # also when the scenario itself is given by a relative path
+    sc2 = load_scenario(Path("..") / scenario_path.name)
+    assert sc2.resolve(sc2.landscape.habitat).resolve() == (tmp_path / "habitat.tif").resolve()
+    setup = prepare(sc2)  # the raster really is read from the scenario folder
+    assert setup.grid.shape == habitat_array().shape
+
+
+def test_years_not_multiple_of_save_every_refused(write_scenario):
+    path = write_scenario({"run.years": 0.5, "run.save_every": 0.3})
+    text = load_error(path)
+    assert "run" in text
+    assert "whole number" in text
+
+
+def test_save_every_longer_than_years_refused(write_scenario):
+    path = write_scenario({"run.years": 0.5, "run.save_every": 1.0})
+    assert "exceeds years" in load_error(path)
+
+
+def test_diffusivity_with_ecological_movement_refused(write_scenario):
+    path = write_scenario({"prey.movement": "ecological", "prey.motility": 0.5})
+    text = load_error(path)  # prey.diffusivity is still given by the base scenario
+    assert "prey" in text
+    assert "'diffusivity' does not apply" in text
+    assert "ecological" in text
+
+
+def test_ecological_movement_without_motility_refused(write_scenario):
+    path = write_scenario({"predator.movement": "ecological", "predator.diffusivity": DELETE})
+    assert "needs 'motility'" in load_error(path)
+
+
+def test_digest_changes_with_raster_bytes(scenario_path, tmp_path):
+    d1 = load_scenario(scenario_path).digest()
+    assert load_scenario(scenario_path).digest() == d1  # deterministic
+    changed = habitat_array()
+    changed[5, 5] = 2 if changed[5, 5] == 1 else 1
+    write_habitat(tmp_path / "habitat.tif", changed)
+    d2 = load_scenario(scenario_path).digest()
+    assert d2 != d1
+    assert len(d2) == 64 and all(c in "0123456789abcdef" for c in d2)  # SHA-256 hex
+
+
+def test_digest_changes_with_settings(write_scenario):
+    d1 = load_scenario(write_scenario(name="a.toml")).digest()
+    d2 = load_scenario(write_scenario({"prey.growth": 3.8}, name="b.toml")).digest()
+    assert d1 != d2
+
+
+def test_several_errors_reported_together(write_scenario):
+    path = write_scenario({"prey.growth": -1.0, "predator.mortality": -2.0})
+    text = load_error(path)
+    assert "prey.growth" in text and "predator.mortality" in text
+
+
+def test_habitat_array_has_nodata_cells():
+    # guard for the fixtures the other tests rely on
+    assert (habitat_array() == 0).sum() == 5
+    assert set(np.unique(habitat_array())) == {0, 1, 2}
+
+
+@pytest.mark.parametrize("value", ["0.5", True])
+def test_quoted_number_or_boolean_for_years_refused(write_scenario, value):
+    path = write_scenario({"run.years": value})
+    assert "run.years" in load_error(path)
+
+
+def test_hyphenated_misspelt_key_keeps_key_path(write_scenario):
+    path = write_scenario({"run.save_every": DELETE, "run.save-every": 0.25})
+    text = load_error(path)
+    assert "run.save-every" in text
+    assert "did you mean 'save_every'" in text

@@ -1,0 +1,184 @@
+"""Tests for preyscape.store: the run folder written by a tiny simulate() run."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+import rasterio
+import xarray as xr
+from conftest import EPSG, SHAPE, make_landscape, utm_grid
+
+import preyscape
+from preyscape.errors import InputError
+from preyscape.pipeline import prepare, simulate
+from preyscape.scenario import load_scenario
+from preyscape.store import ResultWriter, open_run
+
+SNAPSHOT_TIMES = [0.0, 0.25, 0.5]  # years = 0.5, save_every = 0.25 in conftest.BASE
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    """One tiny run (no maps) shared by the tests of this module."""
+    folder = tmp_path_factory.mktemp("store")
+    scenario = make_landscape(folder)
+    out = simulate(scenario, folder / "run", progress=False, maps=False)
+    return {"scenario": scenario, "out": out, "habitat": folder / "habitat.tif"}
+
+
+@pytest.fixture(scope="module")
+def results(run):
+    with xr.open_dataset(run["out"] / "results.nc", decode_times=False) as ds:
+        yield ds.load()
+
+
+def attr(var: xr.DataArray, name: str):
+    """A netCDF attribute, whether xarray left it in attrs or moved it to encoding."""
+    return var.attrs.get(name, var.encoding.get(name))
+
+
+def test_run_folder_contents(run):
+    out = run["out"]
+    assert (out / "results.nc").is_file()
+    assert (out / "run.json").is_file()
+    assert (out / "checkpoint.npz").is_file()
+    for sp in ("prey", "predator"):
+        for label in ("mean", "final"):
+            assert (out / "summary" / f"{sp}_{label}.tif").is_file()
+    assert not (out / "maps").exists()  # maps=False
+    assert list(out.parent.glob(".run.partial-*")) == []
+
+
+@pytest.mark.parametrize("sp", ["prey", "predator"])
+def test_density_variables_are_cf(results, sp):
+    v = results[sp]
+    assert v.dims == ("time", "y", "x")
+    assert v.shape == (len(SNAPSHOT_TIMES), *SHAPE)
+    assert v.attrs["units"] == "km-2"
+    assert sp in v.attrs["long_name"]
+    assert attr(v, "grid_mapping") == "spatial_ref"
+
+
+def test_spatial_ref_and_coordinates(results):
+    sr = results["spatial_ref"].attrs
+    assert "crs_wkt" in sr
+    assert rasterio.crs.CRS.from_wkt(sr["crs_wkt"]).to_epsg() == EPSG
+    assert sr["grid_mapping_name"] == "transverse_mercator"  # UTM is transverse Mercator
+    assert results["x"].attrs["units"] == "m"
+    assert results["y"].attrs["units"] == "m"
+    g = utm_grid()
+    np.testing.assert_allclose(results["x"].values, g.x)
+    np.testing.assert_allclose(results["y"].values, g.y)
+    assert results.attrs["Conventions"] == "CF-1.8"
+
+
+def test_snapshot_times(results):
+    np.testing.assert_allclose(results["time"].values, SNAPSHOT_TIMES, rtol=0, atol=1e-12)
+    assert results["time"].attrs["units"] == "year"
+
+
+def test_first_snapshot_is_initial_state(results, run):
+    s = prepare(load_scenario(run["scenario"]))
+    first = results["prey"].isel(time=0).values
+    np.testing.assert_allclose(first[s.grid.mask], s.N0[s.grid.mask], rtol=1e-6)
+    assert np.isnan(first[~s.grid.mask]).all()
+
+
+def test_summary_geotiffs_match_input_raster(run):
+    with rasterio.open(run["habitat"]) as src:
+        crs, transform = src.crs, src.transform
+    for name in ("prey_mean", "prey_final", "predator_mean", "predator_final"):
+        with rasterio.open(run["out"] / "summary" / f"{name}.tif") as ds:
+            assert ds.crs.to_epsg() == crs.to_epsg() == EPSG
+            assert ds.transform.almost_equals(transform)
+            assert (ds.height, ds.width) == SHAPE
+            assert ds.dtypes[0] == "float32"
+
+
+def test_summary_mean_is_mean_of_snapshots_after_the_first(run, results):
+    # reference computation with numpy from the stored (float32) snapshots
+    ref = results["prey"].values[1:].astype(np.float64).mean(axis=0)
+    with rasterio.open(run["out"] / "summary" / "prey_mean.tif") as ds:
+        got = ds.read(1).astype(np.float64)
+    ok = np.isfinite(ref)
+    np.testing.assert_array_equal(np.isfinite(got), ok)
+    np.testing.assert_allclose(got[ok], ref[ok], rtol=1e-6)
+
+
+def test_run_json_record(run):
+    info = json.loads((run["out"] / "run.json").read_text())
+    sc = load_scenario(run["scenario"])
+    assert info["preyscape_version"] == preyscape.__version__
+    assert info["scenario_sha256"] == sc.digest()
+    assert info["seed"] == 3
+    assert isinstance(info["wall_time_s"], float) and info["wall_time_s"] >= 0
+    assert info["step_years"] == pytest.approx(prepare(sc).dt, rel=1e-12)
+    assert info["snapshots"] == len(SNAPSHOT_TIMES)
+    assert info["steps"] == round(0.5 / info["step_years"])
+
+
+def test_results_digest_matches_run_json(run, results):
+    info = json.loads((run["out"] / "run.json").read_text())
+    assert results.attrs["scenario_sha256"] == info["scenario_sha256"]
+
+
+def test_open_run(run):
+    rf = open_run(run["out"])
+    assert rf.info["seed"] == 3
+    with rf.results as ds:
+        assert set(ds.data_vars) >= {"prey", "predator", "prey_total", "predator_total"}
+
+
+def test_open_run_refuses_non_run_folder(tmp_path):
+    (tmp_path / "results.nc").write_bytes(b"")  # no run.json
+    with pytest.raises(InputError) as info:
+        open_run(tmp_path)
+    assert str(tmp_path) in str(info.value)
+    with pytest.raises(InputError):
+        open_run(tmp_path / "does_not_exist")
+
+
+def test_result_writer_time_mean(tmp_path):
+    mask = np.ones(SHAPE, dtype=bool)
+    mask[0, :3] = False
+    g = utm_grid().with_mask(mask)
+    rng = np.random.default_rng(0)
+    snaps = [(rng.uniform(0, 100, SHAPE), rng.uniform(0, 5, SHAPE)) for _ in range(4)]
+    w = ResultWriter(tmp_path / "r.nc", g, {"prey": "vole", "predator": ""}, {"title": "t"})
+    try:
+        for k, (N, P) in enumerate(snaps):
+            w.write(0.25 * k, N, P)
+    finally:
+        w.close()
+    assert w.n == 4
+    means = w.means()
+    # reference computation with numpy: mean over the snapshots after the first
+    for sp, idx in (("prey", 0), ("predator", 1)):
+        ref = np.mean([s[idx] for s in snaps[1:]], axis=0)
+        np.testing.assert_allclose(means[sp][mask], ref[mask], rtol=1e-12)
+        assert np.isnan(means[sp][~mask]).all()
+    # the file holds the same snapshots (float32), NaN off the mask, and the totals
+    with xr.open_dataset(tmp_path / "r.nc", decode_times=False) as ds:
+        np.testing.assert_allclose(ds["time"].values, [0.0, 0.25, 0.5, 0.75])
+        np.testing.assert_allclose(ds["prey"].values[2][mask], snaps[2][0][mask], rtol=1e-6)
+        assert np.isnan(ds["prey"].values[2][~mask]).all()
+        total = snaps[3][1][mask].sum() * g.cell_area_km2  # animals = density x area
+        assert float(ds["predator_total"].values[3]) == pytest.approx(total, rel=1e-12)
+        assert "predator" in ds["predator"].attrs["long_name"]
+
+
+def test_final_geotiff_and_checkpoint_hold_last_state(run, results):
+    from preyscape.store import load_checkpoint
+
+    last = results["predator"].values[-1]
+    with rasterio.open(run["out"] / "summary" / "predator_final.tif") as ds:
+        final = ds.read(1)
+    np.testing.assert_array_equal(final, last)  # both float32 casts of the same state
+    info = json.loads((run["out"] / "run.json").read_text())
+    step, N, P = load_checkpoint(run["out"] / "checkpoint.npz")[:3]
+    assert step == info["steps"]
+    ok = np.isfinite(last)
+    np.testing.assert_array_equal(P[ok].astype(np.float32), last[ok])
+    assert N.dtype == np.float64
