@@ -381,7 +381,8 @@ def test_positivity_at_large_steps():
         st_move.step(N.copy(), Q, k)
         assert Q.min() >= 0.0
     assert st_move.stats.clipped > 0  # without the clip this release would undershoot
-    assert Q.sum() == pytest.approx(M0, rel=1e-11)
+    # conserved to rounding; the explicit half at D dt/h^2 = 500 cancels terms of size 1e3 u
+    assert Q.sum() == pytest.approx(M0, rel=1e-10)
     for k in range(10):
         st.step(N, P, k)
         assert N.min() >= 0.0 and P.min() >= 0.0

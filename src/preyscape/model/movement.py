@@ -15,8 +15,8 @@ Faces on the grid edge and faces to no-data cells are *closed* (no flux) or
 *hostile* (density zero on the face: a lethal boundary half a cell from the
 cell centre). Closed faces conserve mass exactly.
 
-The result is the per-direction triple ``(lo, up, dg)`` used by
-:mod:`preyscape.solve.kernels`, in 1/yr.
+The result holds face conductances (float32, 1/yr) as used by
+:mod:`preyscape.solve.kernels`.
 """
 
 from __future__ import annotations
@@ -31,9 +31,10 @@ EDGE_RULES = ("closed", "hostile")
 
 @dataclass(frozen=True, eq=False)
 class Operator1D:
-    """One direction of a movement operator, coefficients in 1/yr.
+    """One direction of a movement operator as per-cell coefficients, 1/yr.
 
-    ``(L u)[i] = lo[i] u[i-1] + up[i] u[i+1] - dg[i] u[i]`` along the axis.
+    ``(L u)[i] = lo[i] u[i-1] + up[i] u[i+1] - dg[i] u[i]`` along the axis
+    (a float64 view for checks; the solver works on the face conductances).
     """
 
     lo: np.ndarray
@@ -43,28 +44,80 @@ class Operator1D:
 
 @dataclass(frozen=True, eq=False)
 class Movement:
-    """A species' movement operator, split by direction.
+    """A species' movement operator as face conductances.
 
     Attributes
     ----------
-    x, y : Operator1D
-        Along rows (east–west) and along columns (north–south).
+    cx : numpy.ndarray of float32
+        Conductance of the faces between columns divided by dx², shape
+        ``(rows, cols+1)``, 1/yr (Fickian: face diffusivity; ecological:
+        permeability, multiplied by the motility of the cell the animals
+        leave). Face ``k`` separates columns ``k-1`` and ``k``.
+    cy : numpy.ndarray of float32
+        The same for the faces between rows, shape ``(rows+1, cols)``.
+    w : numpy.ndarray of float32 or None
+        Motility per cell, km²/yr (ecological), None for Fickian.
+    mask : numpy.ndarray of bool
+        Cells with data.
+
+    Notes
+    -----
+    A face to a no-data cell or beyond the grid edge has conductance zero
+    (closed) or ``2 x`` the cell's own value (hostile: density zero on the
+    face, half a cell from the centre); the density beyond it is zero.
+    Coefficients are float32: each face value is used by both of its cells,
+    so the operator conserves mass exactly, and 7 significant digits are far
+    beyond the accuracy of any habitat parameter.
     """
 
-    x: Operator1D
-    y: Operator1D
+    cx: np.ndarray
+    cy: np.ndarray
+    w: np.ndarray | None
+    mask: np.ndarray
 
     @property
-    def max_rate(self) -> float:
-        """Largest diagonal coefficient ``max(dg_x + dg_y)``, 1/yr.
+    def ecological(self) -> bool:
+        """Whether this is ecological (motility) movement."""
+        return self.w is not None
 
-        ``dt * max_rate <= 1`` is the forward-Euler stability limit.
-        """
-        return float(np.max(self.x.dg + self.y.dg)) if self.x.dg.size else 0.0
+    def _weights(self) -> np.ndarray:
+        return np.ones(self.mask.shape) if self.w is None else self.w.astype(float)
+
+    @staticmethod
+    def _along(c: np.ndarray, w: np.ndarray, m: np.ndarray) -> Operator1D:
+        c = c.astype(float)
+        n = w.shape[1]
+        lo = np.zeros_like(w)
+        up = np.zeros_like(w)
+        lo[:, 1:] = c[:, 1:n] * w[:, :-1] * m[:, :-1]  # no coupling to no-data neighbours
+        up[:, :-1] = c[:, 1:n] * w[:, 1:] * m[:, 1:]
+        dg = (c[:, :-1] + c[:, 1:]) * w
+        return Operator1D(lo * m, up * m, dg * m)
+
+    @property
+    def x(self) -> Operator1D:
+        """Per-cell coefficients along rows (east–west), 1/yr."""
+        return self._along(self.cx, self._weights(), self.mask)
+
+    @property
+    def y(self) -> Operator1D:
+        """Per-cell coefficients along columns (north–south), 1/yr."""
+        t = self._along(self.cy.T, self._weights().T, self.mask.T)
+        return Operator1D(t.lo.T, t.up.T, t.dg.T)
 
     def max_rate_along(self) -> tuple[float, float]:
         """Largest diagonal coefficient per direction ``(x, y)``, 1/yr."""
-        return float(np.max(self.x.dg)), float(np.max(self.y.dg))
+        w = self._weights()
+        dx = (self.cx[:, :-1].astype(float) + self.cx[:, 1:]) * w
+        dy = (self.cy[:-1, :].astype(float) + self.cy[1:, :]) * w
+        return float(dx[self.mask].max(initial=0.0)), float(dy[self.mask].max(initial=0.0))
+
+    @property
+    def max_rate(self) -> float:
+        """Largest ``dg_x + dg_y``, 1/yr: ``dt * max_rate <= 1`` is the forward-Euler limit."""
+        w = self._weights()
+        d = (self.cx[:, :-1].astype(float) + self.cx[:, 1:] + self.cy[:-1, :] + self.cy[1:, :])
+        return float((d * w)[self.mask].max(initial=0.0))
 
 
 def _harmonic(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -73,7 +126,7 @@ def _harmonic(a: np.ndarray, b: np.ndarray) -> np.ndarray:
         return np.where(s > 0, 2.0 * a * b / np.where(s > 0, s, 1.0), 0.0)
 
 
-def _axis(
+def _faces(
     coef: np.ndarray,
     mask: np.ndarray,
     perm: np.ndarray,
@@ -81,62 +134,30 @@ def _axis(
     edge: str,
     nodata: str,
     h_km: float,
-) -> Operator1D:
-    """Build one direction along the last axis of ``coef`` (shape (m, n)).
-
-    ``perm`` has shape (m, n + 1): face k lies between cells k-1 and k.
-    """
+) -> np.ndarray:
+    """Conductances of the faces along the last axis, shape (m, n + 1), 1/yr."""
     m, n = coef.shape
     c = np.where(mask, coef, 0.0)
     inside = np.zeros((m, n + 2), dtype=bool)
     inside[:, 1:-1] = mask
-    left_in = inside[:, :-2]  # neighbour at k-1 has data
-    right_in = inside[:, 2:]
-    lo = np.zeros((m, n))
-    up = np.zeros((m, n))
-    dg = np.zeros((m, n))
-    # interior faces between two data cells
-    p_int = perm[:, 1:-1]  # faces between k-1 and k for k = 1..n-1
-    both = mask[:, :-1] & mask[:, 1:]
+    left, right = inside[:, :-1], inside[:, 1:]  # cells on either side of each face
+    both = left & right
+    own = np.zeros((m, n + 2))  # the coefficient of the data cell on a one-sided face
+    own[:, 1:-1] = c if kind == "fickian" else np.where(mask, 1.0, 0.0)
+    one_sided = left ^ right
+    own_face = np.where(left, own[:, :-1], own[:, 1:])
+    edge_face = np.zeros((m, n + 1), dtype=bool)
+    edge_face[:, [0, -1]] = True
+    lethal = one_sided & np.where(edge_face, edge == "hostile", nodata == "hostile")
     if kind == "fickian":
-        face = _harmonic(c[:, :-1], c[:, 1:]) * p_int * both
-        up[:, :-1] = face
-        lo[:, 1:] = face
-        dg[:, :-1] += face
-        dg[:, 1:] += face
-        own = c  # coefficient on a hostile face: the cell's own D
+        inner = np.zeros((m, n + 1))
+        inner[:, 1:-1] = _harmonic(c[:, :-1], c[:, 1:])
     elif kind == "ecological":
-        face = p_int * both
-        up[:, :-1] = face * c[:, 1:]
-        lo[:, 1:] = face * c[:, :-1]
-        dg[:, :-1] += face * c[:, :-1]
-        dg[:, 1:] += face * c[:, 1:]
-        own = c
+        inner = np.ones((m, n + 1))
     else:
         raise ValueError(f"movement must be one of {MOVEMENT_KINDS}, not {kind!r}")
-    # hostile faces: density zero on the face, half a cell away -> factor 2
-    for side, neighbour_in, face_perm in (
-        ("left", left_in, perm[:, :-1]),
-        ("right", right_in, perm[:, 1:]),
-    ):
-        on_edge = np.zeros((m, n), dtype=bool)
-        if side == "left":
-            on_edge[:, 0] = True
-        else:
-            on_edge[:, -1] = True
-        lethal = np.zeros((m, n), dtype=bool)
-        if edge == "hostile":
-            lethal |= on_edge
-        if nodata == "hostile":
-            lethal |= ~on_edge & ~neighbour_in
-        lethal &= mask
-        dg += np.where(lethal, 2.0 * own * face_perm, 0.0)
-    scale = 1.0 / (h_km * h_km)
-    return Operator1D(
-        np.ascontiguousarray(lo * scale),
-        np.ascontiguousarray(up * scale),
-        np.ascontiguousarray(dg * scale),
-    )
+    face = np.where(both, inner, 0.0) + np.where(lethal, 2.0 * own_face, 0.0)
+    return face * perm / (h_km * h_km)
 
 
 def build_movement(
@@ -174,13 +195,15 @@ def build_movement(
     Returns
     -------
     Movement
-        Coefficients in 1/yr.
+        Face conductances in 1/yr.
     """
     for name, rule in (("edge", edge), ("nodata", nodata)):
         if rule not in EDGE_RULES:
             raise ValueError(f"{name} must be one of {EDGE_RULES}, not {rule!r}")
+    if kind not in MOVEMENT_KINDS:
+        raise ValueError(f"movement must be one of {MOVEMENT_KINDS}, not {kind!r}")
     coef = np.asarray(coef, dtype=float)
-    mask = np.asarray(mask, dtype=bool)
+    mask = np.ascontiguousarray(mask, dtype=bool)
     ny, nx = coef.shape
     if np.any(coef[mask] < 0):
         raise ValueError("diffusivity/motility must be non-negative")
@@ -188,22 +211,23 @@ def build_movement(
     py = np.ones((ny + 1, nx)) if perm_y is None else np.asarray(perm_y, dtype=float)
     if px.shape != (ny, nx + 1) or py.shape != (ny + 1, nx):
         raise ValueError("perm_x must have shape (rows, cols+1) and perm_y (rows+1, cols)")
-    ox = _axis(coef, mask, px, kind, edge, nodata, dx_m / 1000.0)
-    # y: transpose so the same code runs along the last axis
-    oy_t = _axis(coef.T, mask.T, py.T, kind, edge, nodata, dy_m / 1000.0)
-    oy = Operator1D(
-        np.ascontiguousarray(oy_t.lo.T),
-        np.ascontiguousarray(oy_t.up.T),
-        np.ascontiguousarray(oy_t.dg.T),
+    cx = _faces(coef, mask, px, kind, edge, nodata, dx_m / 1000.0)
+    cy = _faces(coef.T, mask.T, py.T, kind, edge, nodata, dy_m / 1000.0).T
+    w = np.ascontiguousarray(np.where(mask, coef, 0.0), dtype=np.float32)
+    return Movement(
+        np.ascontiguousarray(cx, dtype=np.float32),
+        np.ascontiguousarray(cy, dtype=np.float32),
+        w if kind == "ecological" else None,
+        mask,
     )
-    return Movement(ox, oy)
 
 
 def apply(mv: Movement, u: np.ndarray) -> np.ndarray:
     """``(Lx + Ly) u`` with numpy (reference for tests and checks), 1/yr · density."""
-    out = -(mv.x.dg + mv.y.dg) * u
-    out[:, 1:] += mv.x.lo[:, 1:] * u[:, :-1]
-    out[:, :-1] += mv.x.up[:, :-1] * u[:, 1:]
-    out[1:, :] += mv.y.lo[1:, :] * u[:-1, :]
-    out[:-1, :] += mv.y.up[:-1, :] * u[1:, :]
+    ox, oy = mv.x, mv.y
+    out = -(ox.dg + oy.dg) * u
+    out[:, 1:] += ox.lo[:, 1:] * u[:, :-1]
+    out[:, :-1] += ox.up[:, :-1] * u[:, 1:]
+    out[1:, :] += oy.lo[1:, :] * u[:-1, :]
+    out[:-1, :] += oy.up[:-1, :] * u[1:, :]
     return out

@@ -43,24 +43,6 @@ SCHEMES = ("adi", "implicit-euler", "explicit")
 
 
 @dataclass
-class _Factors:
-    ax: np.ndarray
-    cx: np.ndarray
-    ix: np.ndarray
-    ay: np.ndarray
-    cy: np.ndarray
-    iy: np.ndarray
-
-
-def _factor(mv: Movement, tau: float) -> _Factors:
-    shape = mv.x.lo.shape
-    f = _Factors(*(np.empty(shape) for _ in range(6)))
-    kernels.factor_x(mv.x.lo, mv.x.up, mv.x.dg, tau, f.ax, f.cx, f.ix)
-    kernels.factor_y(mv.y.lo, mv.y.up, mv.y.dg, tau, f.ay, f.cy, f.iy)
-    return f
-
-
-@dataclass
 class StepStats:
     """Diagnostics accumulated over steps.
 
@@ -86,7 +68,7 @@ class Stepper:
     mask : numpy.ndarray of bool
         Cells with data, shape ``(rows, cols)``.
     prey_movement, predator_movement : Movement
-        Movement operators (1/yr coefficients).
+        Movement operators (face conductances, 1/yr).
     r : numpy.ndarray
         Prey growth rate per cell, 1/yr (negative in sink cells).
     inv_K : numpy.ndarray
@@ -104,7 +86,8 @@ class Stepper:
     damping_steps : int
         Steps at the start done with backward-Euler sweeps (``"adi"`` only).
     reaction_substeps : int
-        RK4 substeps per half reaction step.
+        Reaction substeps per reaction step (1: plain RK4 where safe; more:
+        RK4 on log densities with that many substeps).
     """
 
     mask: np.ndarray
@@ -128,24 +111,52 @@ class Stepper:
             raise ValueError("dt must be a positive number of years")
         shape = self.mask.shape
         self.mask = np.ascontiguousarray(self.mask, dtype=np.bool_)
-        self.r = np.ascontiguousarray(np.broadcast_to(self.r, shape), dtype=float)
-        self.inv_K = np.ascontiguousarray(np.broadcast_to(self.inv_K, shape), dtype=float)
-        self.m = np.ascontiguousarray(np.broadcast_to(self.m, shape), dtype=float)
-        ref = 0.0 if self.refuge is None else self.refuge
-        self.refuge = np.ascontiguousarray(np.broadcast_to(ref, shape), dtype=float)
-        self._work = np.empty(shape)
-        self._rows = np.empty(shape[0])
-        self._neg = np.empty(shape[0])
+
+        def full(v):
+            return np.ascontiguousarray(np.broadcast_to(v, shape), dtype=float)
+
+        self.r, self.inv_K, self.m = full(self.r), full(self.inv_K), full(self.m)
+        if self.refuge is None or np.ndim(self.refuge) == 0:
+            self._refuge = np.full((1, 1), 0.0 if self.refuge is None else float(self.refuge))
+        else:
+            self._refuge = full(self.refuge)
         tau = 0.5 * self.dt
         self._mv = (self.prey_movement, self.predator_movement)
+        ones = None
+        ws = []
+        for mv in self._mv:  # Fickian movement: unit weights, one shared array
+            if mv.w is None and ones is None:
+                ones = np.ones(shape, dtype=np.float32)
+            ws.append(ones if mv.w is None else mv.w)
+        self._w = tuple(ws)
         if self.scheme == "explicit":
-            self._factors = None
             rate = max(mv.max_rate for mv in self._mv)
             # forward Euler is positive and stable for dt_sub * rate <= 1
             self._substeps = max(1, math.ceil(self.dt * rate / 0.9))
+            self._work = np.empty(shape)
         else:
-            self._factors = tuple(_factor(mv, tau) for mv in self._mv)
-            self._substeps = 1
+            # pass 1 sweeps rows of the grid; pass 2 sweeps rows of the transposed
+            # grid, so both run along contiguous memory (coefficients stored twice)
+            mask_t = np.ascontiguousarray(self.mask.T)
+            self._rows, self._cols = [], []
+            wt_cache: dict[int, np.ndarray] = {}
+            for mv, w in zip(self._mv, self._w, strict=True):
+                inv = np.empty(shape)
+                kernels.factor_x(mv.cx, w, self.mask, tau, inv)
+                self._rows.append((mv.cx, mv.cy, w, inv))
+                if id(w) not in wt_cache:
+                    wt_cache[id(w)] = np.ascontiguousarray(w.T)
+                wt = wt_cache[id(w)]
+                al, ac = np.ascontiguousarray(mv.cy.T), np.ascontiguousarray(mv.cx.T)
+                invt = np.empty(shape[::-1])
+                kernels.factor_x(al, wt, mask_t, tau, invt)
+                self._cols.append((al, ac, wt, invt))
+            self._T = (np.empty(shape[::-1]), np.empty(shape[::-1]))
+        self._neg = (np.zeros(shape[1]), np.zeros(shape[1]))
+        self._neg_rows = (np.zeros(shape[0]), np.zeros(shape[0]))
+        self._tot = np.zeros(shape[0])
+        self._bands = kernels.n_bands(shape[0])
+        self._bands_t = kernels.n_bands(shape[1])
         # the explicit half of Peaceman-Rachford is positive while tau*dg <= 1
         self._may_undershoot = self.scheme == "adi" and any(
             tau * max(mv.max_rate_along()) > 1.0 for mv in self._mv
@@ -154,56 +165,90 @@ class Stepper:
     # ------------------------------------------------------------------
     def _react(self, N: np.ndarray, P: np.ndarray, dt: float) -> None:
         it = self.interaction
-        kernels.react(
-            N, P, dt, self.reaction_substeps, self.r, self.inv_K, self.m,
-            it.attack_rate, it.h, it.c, it.efficiency, self.refuge, self.mask,
+        kernels.react(N, P, dt, self.reaction_substeps, self.r, self.inv_K, self.m,
+                      it.attack_rate, it.h, it.c, it.efficiency, self._refuge)
+
+    def _pass1(self, N, P, dt_r: float, tau_e: float) -> None:
+        """Reaction and x sweeps, result (transposed) in ``self._T``."""
+        it = self.interaction
+        (cxn, cyn, wn, ivn), (cxp, cyp, wp, ivp) = self._rows
+        kernels.half_step(
+            N, P, self._T[0], self._T[1], dt_r, self.reaction_substeps, self.r, self.inv_K,
+            self.m, it.attack_rate, it.h, it.c, it.efficiency, self._refuge,
+            0.5 * self.dt, tau_e,
+            cxn, cyn, wn, ivn, cxp, cyp, wp, ivp,
+            self._neg_rows[0], self._neg_rows[1], self._bands,
         )
 
-    def _move(self, u: np.ndarray, k: int, damped: bool) -> None:
+    def _pass2(self, N, P, tau_e: float, fix: bool) -> None:
+        """y sweeps of ``self._T`` back into ``N, P``; positivity fix if asked."""
+        it = self.interaction
+        (aln, acn, wn, ivn), (alp, acp, wp, ivp) = self._cols
+        kernels.half_step(
+            self._T[0], self._T[1], N, P, 0.0, 1, self.r, self.inv_K, self.m,
+            it.attack_rate, it.h, it.c, it.efficiency, self._refuge,
+            0.5 * self.dt, tau_e,
+            aln, acn, wn, ivn, alp, acp, wp, ivp,
+            self._neg[0], self._neg[1], self._bands_t,
+        )
+        if fix:
+            for u, neg in zip((N, P), self._neg, strict=True):
+                self.stats.clipped += kernels.fix_negative(u, neg, self._tot)
+
+    def _explicit_move(self, u: np.ndarray, k: int) -> None:
         mv = self._mv[k]
         w = self._work
-        if self.scheme == "explicit":
-            sub = self.dt / self._substeps
-            for _ in range(self._substeps):
-                kernels.explicit_step(
-                    u, w, sub, mv.x.lo, mv.x.up, mv.x.dg, mv.y.lo, mv.y.up, mv.y.dg
-                )
-                u[...] = w
-            return
-        f = self._factors[k]
-        tau = 0.5 * self.dt
-        if damped:
-            # two backward-Euler half steps, L-stable
-            for _ in range(2):
-                kernels.sweep_x(u, w, 0.0, mv.y.lo, mv.y.up, mv.y.dg, f.ax, f.cx, f.ix)
-                kernels.sweep_y(w, u, 0.0, mv.x.lo, mv.x.up, mv.x.dg, f.ay, f.cy, f.iy)
-            return
-        kernels.sweep_x(u, w, tau, mv.y.lo, mv.y.up, mv.y.dg, f.ax, f.cx, f.ix)
-        kernels.sweep_y(w, u, tau, mv.x.lo, mv.x.up, mv.x.dg, f.ay, f.cy, f.iy)
-        if self._may_undershoot:
-            self.stats.clipped += kernels.make_positive(u, self._rows, self._neg)
+        sub = self.dt / self._substeps
+        for _ in range(self._substeps):
+            kernels.explicit_step(u, w, sub, mv.cx, mv.cy, self._w[k], self.mask)
+            u[...] = w
 
-    def step(self, N: np.ndarray, P: np.ndarray, index: int) -> None:
-        """Advance ``N`` and ``P`` (animals/km², float64, C-contiguous) by one step, in place.
+    def advance(self, N: np.ndarray, P: np.ndarray, index: int, n: int = 1) -> None:
+        """Take ``n`` Strang steps from step ``index`` on, in place.
+
+        The trailing half reaction step of one step and the leading half of
+        the next are taken together (one reaction step of ``dt``), fused into
+        the first sweep; the densities are synchronised (a whole number of
+        Strang steps) on return. The result depends only on the state,
+        ``index`` and ``n``, so a resumed run repeats an uninterrupted one
+        bitwise when both advance between the same save points.
 
         Parameters
         ----------
         N, P : numpy.ndarray
-            Prey and predator densities; modified in place.
+            Prey and predator densities, animals/km², float64, C-contiguous.
         index : int
-            Number of steps taken before this one (0 for the first); decides
-            whether this is a damped start step. Passing the same index on
-            resume gives bitwise the same result.
+            Steps taken before (0 at the start): decides the damped start steps.
+        n : int
+            Number of steps.
         """
         half = 0.5 * self.dt
-        damped = self.scheme == "implicit-euler" or (
-            self.scheme == "adi" and index < self.damping_steps
-        )
+        if self.scheme == "explicit":
+            for _ in range(n):
+                self._react(N, P, half)
+                self._explicit_move(N, 0)
+                self._explicit_move(P, 1)
+                self._react(N, P, half)
+                self.stats.steps += 1
+            return
+        for s in range(n):
+            dt_r = half if s == 0 else self.dt
+            k = index + s
+            if self.scheme == "implicit-euler" or k < self.damping_steps:
+                # two backward-Euler half steps (L-stable), the same factors
+                self._pass1(N, P, dt_r, 0.0)
+                self._pass2(N, P, 0.0, False)
+                self._pass1(N, P, 0.0, 0.0)
+                self._pass2(N, P, 0.0, False)
+            else:
+                self._pass1(N, P, dt_r, half)
+                self._pass2(N, P, half, self._may_undershoot)
+            self.stats.steps += 1
         self._react(N, P, half)
-        self._move(N, 0, damped)
-        self._move(P, 1, damped)
-        self._react(N, P, half)
-        self.stats.steps += 1
+
+    def step(self, N: np.ndarray, P: np.ndarray, index: int) -> None:
+        """Advance ``N`` and ``P`` by one Strang step, in place (see :meth:`advance`)."""
+        self.advance(N, P, index, 1)
 
 
 def auto_step(
