@@ -57,10 +57,12 @@ def test_uniform_landscape_without_dispersal_matches_solve_ivp(form, K, h, c):
     st = make_stepper(shape, 0.0, 0.0, inter, dt=0.01, r=1.0, K=K, m=0.5,
                       reaction_substeps=8)
     run(st, N, P, 6.0)
-    inv_K = 0.0 if K is None else 1.0 / K
+    # the ODE with the parameters as the stepper stores them (float32 per-cell fields)
+    r, inv_K, m = float(st.r[0, 0]), float(st.inv_K[0, 0]), float(st.m[0, 0])
+    assert inv_K == pytest.approx(0.0 if K is None else 1.0 / K, rel=1e-7)
 
     def rhs(t, y):
-        dn, dp = rates(y[0], y[1], 1.0, inv_K, 0.5, inter)
+        dn, dp = rates(y[0], y[1], r, inv_K, m, inter)
         return [dn, dp]
 
     for i in range(shape[0]):
@@ -80,6 +82,7 @@ def test_lotka_volterra_first_integral_and_small_amplitude_period():
     N = np.full((1, 1), 2.0 * n_eq)
     P = np.full((1, 1), 0.5 * p_eq)
     st = make_stepper((1, 1), 0.0, 0.0, inter, dt=0.005, r=r, m=m, reaction_substeps=2)
+    r, m = float(st.r[0, 0]), float(st.m[0, 0])  # as stored (float32 per-cell fields)
     V0 = theory.lv_first_integral(N[0, 0], P[0, 0], r, a, e, m)
     Vs = []
     for k in range(4000):
@@ -91,6 +94,7 @@ def test_lotka_volterra_first_integral_and_small_amplitude_period():
     P = np.full((1, 1), p_eq)
     dt = 0.002
     st = make_stepper((1, 1), 0.0, 0.0, inter, dt=dt, r=r, m=m)
+    n_eq = float(st.m[0, 0]) / (e * a)
     xs = [N[0, 0] - n_eq]
     for k in range(int(20 / dt)):
         st.step(N, P, k)
@@ -99,7 +103,7 @@ def test_lotka_volterra_first_integral_and_small_amplitude_period():
     up = np.where((xs[:-1] < 0) & (xs[1:] >= 0))[0]
     t_up = (up + xs[up] / (xs[up] - xs[up + 1])) * dt
     period = np.mean(np.diff(t_up))
-    assert period == pytest.approx(theory.lv_period(r, m), rel=1e-4)
+    assert period == pytest.approx(theory.lv_period(r, float(st.m[0, 0])), rel=1e-4)
 
 
 # ---------------------------------------------------------------------------

@@ -69,6 +69,17 @@ class Setup:
     P0: np.ndarray
     dt: float
 
+    def release_build_arrays(self) -> None:
+        """Drop the arrays only needed to build a run (capacity and movement fields, start).
+
+        The stepper keeps what it uses (growth, inverse capacity, mortality and
+        the movement operators); :func:`derived` needs a fresh :func:`prepare`.
+        """
+        f = self.fields
+        empty = np.zeros((0, 0), dtype=np.float32)
+        self.fields = Fields(empty, f.r, f.inv_K, f.m, empty, empty)
+        self.N0 = self.P0 = np.zeros((0, 0))
+
     def stepper(self) -> Stepper:
         """A fresh :class:`Stepper` for this setup."""
         f = self.fields
@@ -119,6 +130,7 @@ def prepare(sc: Scenario) -> Setup:
             ) from None
     else:
         mult = multipliers_from_suitability(habitat, grid.mask)
+        habitat = habitat.astype(np.float32)  # kept for output only
     inter = interaction_of(sc)
     fields = build_fields(
         mult, grid.mask, sc.prey.growth, sc.prey.capacity, sc.predator.mortality,
@@ -133,7 +145,7 @@ def prepare(sc: Scenario) -> Setup:
     st = sc.start
     mask = grid.mask
     if st.prey == "capacity":
-        N0 = fields.K.copy()
+        N0 = fields.K.astype(float)
     elif st.prey == "uniform":
         N0 = np.where(mask, float(st.prey_density), 0.0)
     else:
@@ -253,7 +265,10 @@ def derived(setup: Setup) -> dict:
         "predator_front_speed": theory.predator_speed(inter, b["K"], b["m"], b["D_P"]),
         "critical_patch_prey": theory.critical_patch(b["r"], b["D_N"]),
         "critical_patch_predator": theory.critical_patch(growth_P, b["D_P"]),
-        "memory_mb": cells * 8 * 40 / 1e6,  # ~40 float64 arrays per cell (fields, factors, state)
+        # per cell during the run: state and transposed work (32 B), reaction fields (24),
+        # per species faces and weights in two orientations (24) and pivots (16), unit
+        # weights (8), running means (16), habitat (8): ~180 B
+        "memory_mb": cells * 180 / 1e6,
         "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
         "snapshots": n_snap,
     }
@@ -262,6 +277,21 @@ def derived(setup: Setup) -> dict:
 # ---------------------------------------------------------------------------
 # running into a run folder
 # ---------------------------------------------------------------------------
+def _return_freed_memory() -> None:
+    """Have glibc give large freed blocks back to the system at once (Linux; else no-op).
+
+    glibc raises its mmap threshold after the first large free, so later grid
+    arrays (a few tens of MB) come from the heap and stay resident after they
+    are freed; a fixed threshold keeps peak memory near what is in use.
+    """
+    try:
+        import ctypes
+
+        ctypes.CDLL("libc.so.6").mallopt(-3, 1 << 20)  # M_MMAP_THRESHOLD = 1 MiB
+    except (OSError, AttributeError):
+        pass
+
+
 class _FolderSink:
     def __init__(self, writer, folder: Path, dt: float) -> None:
         self.writer = writer
@@ -312,6 +342,7 @@ def simulate(
     from preyscape.solve.kernels import warm_up
     from preyscape.solve.run import integrate
 
+    _return_freed_memory()
     sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
     out = Path(out)
     if out.exists() and not overwrite:
@@ -337,20 +368,24 @@ def simulate(
              "scenario_sha256": digest, "history": f"{store.now_iso()} preyscape run"},
             habitat=setup.habitat,
         )
-        N, P = setup.N0.copy(), setup.P0.copy()
+        N, P = setup.N0, setup.P0  # this setup is private to the run: no copies
+        setup.release_build_arrays()  # memory: one copy of each field during the run
         stepper = setup.stepper()
+        grid, habitat = setup.grid, setup.habitat
         try:
             integrate(stepper, N, P, sc.run.years, sc.run.save_every,
                       _FolderSink(writer, tmp, setup.dt), progress=progress)
         finally:
             writer.close()
-        means = writer.means()
-        finals = {k: np.where(setup.grid.mask, v, np.nan) for k, v in writer.last.items()}
-        store.write_summaries(tmp / "summary", setup.grid, means, finals)
+        finals = {k: np.where(grid.mask, v, np.nan) for k, v in (("prey", N), ("predator", P))}
+        stats, dt, n_snapshots = stepper.stats, setup.dt, writer.n
+        del N, P, stepper, setup, writer  # free the run's arrays before the summaries
+        means = store.time_means(tmp / "results.nc", grid.mask)
+        store.write_summaries(tmp / "summary", grid, means, finals)
         if maps:
             from preyscape import plots
 
-            plots.draw_run(tmp, setup, means, finals)
+            plots.draw_run(tmp, sc, grid, habitat, means, finals)
         wall = time.perf_counter() - t0
         record = {
             "preyscape_version": __version__,
@@ -358,17 +393,17 @@ def simulate(
             "scenario_sha256": digest,
             "title": sc.title,
             "seed": sc.run.seed,
-            "step_years": setup.dt,
-            "steps": stepper.stats.steps,
+            "step_years": dt,
+            "steps": stats.steps,
             "scheme": sc.run.scheme,
             "years": sc.run.years,
             "save_every_years": sc.run.save_every,
-            "snapshots": writer.n,
-            "grid": {"rows": setup.grid.ny, "cols": setup.grid.nx,
-                     "cell_size_m": [setup.grid.dx, setup.grid.dy],
-                     "cells_with_data": setup.grid.n_cells},
+            "snapshots": n_snapshots,
+            "grid": {"rows": grid.ny, "cols": grid.nx,
+                     "cell_size_m": [grid.dx, grid.dy],
+                     "cells_with_data": grid.n_cells},
             "species": names,
-            "positivity_clip_total": stepper.stats.clipped,
+            "positivity_clip_total": stats.clipped,
             "wall_time_s": round(wall, 3),
             "compile_or_cache_load_s": round(compiled, 3),
             "finished": store.now_iso(),

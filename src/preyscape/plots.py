@@ -27,6 +27,22 @@ CLASS_COLOURS = [
 ]
 
 
+MAX_PIXELS = 1200  # a map never needs more cells per side than the figure has pixels
+
+
+def thin(grid: Grid) -> int:
+    """Stride that brings the grid to at most :data:`MAX_PIXELS` cells per side."""
+    return max(1, -(-max(grid.ny, grid.nx) // MAX_PIXELS))
+
+
+def _shown(grid: Grid, values: np.ndarray) -> np.ma.MaskedArray:
+    # every k-th cell on large grids: the figure could not show more, and the
+    # full-resolution RGBA images matplotlib would build take several bytes per cell
+    k = thin(grid)
+    v = np.asarray(values)[::k, ::k]
+    return np.ma.masked_where(~grid.mask[::k, ::k] | ~np.isfinite(v), v)
+
+
 def _extent_km(grid: Grid) -> tuple[float, float, float, float]:
     left, bottom, right, top = grid.bounds
     return (left / 1e3, right / 1e3, bottom / 1e3, top / 1e3)
@@ -65,7 +81,7 @@ def density_map(
     """Draw one density map (animals/km²) with no-data masked; returns the PNG path."""
     fig = _new()
     ax = fig.add_subplot()
-    data = np.ma.masked_where(~grid.mask | ~np.isfinite(values), values)
+    data = _shown(grid, values)
     cm = _cmap(cmap)
     vmax = vmax if vmax is not None else (float(data.max()) if data.count() else 1.0)
     im = ax.imshow(data, extent=_extent_km(grid), cmap=cm, vmin=0.0, vmax=max(vmax, 1e-12),
@@ -89,11 +105,14 @@ def habitat_map(grid: Grid, habitat: np.ndarray, classes: dict[int, str] | None,
     """Draw the habitat layer: class codes with a legend, or suitability 0–1."""
     fig = _new()
     ax = fig.add_subplot()
-    data = np.ma.masked_where(~grid.mask, habitat)
+    k = thin(grid)
+    mask = grid.mask[::k, ::k]
+    hab = np.asarray(habitat)[::k, ::k]
+    data = np.ma.masked_where(~mask, hab)
     if classes:
         codes = sorted(classes)
-        pos = np.searchsorted(codes, np.where(grid.mask, habitat, codes[0]))
-        idx = np.ma.masked_where(~grid.mask, np.clip(pos, 0, len(codes) - 1))
+        pos = np.searchsorted(codes, np.where(mask, hab, codes[0]))
+        idx = np.ma.masked_where(~mask, np.clip(pos, 0, len(codes) - 1))
         colours = [CLASS_COLOURS[k % len(CLASS_COLOURS)] for k in range(len(codes))]
         cm = ListedColormap(colours).with_extremes(bad=NO_DATA)
         norm = BoundaryNorm(np.arange(len(codes) + 1) - 0.5, len(codes))
@@ -137,12 +156,12 @@ def snapshot_panels(grid: Grid, times: np.ndarray, frames: list[np.ndarray], spe
     """A row of density maps at chosen times on one shared colour scale."""
     n = len(frames)
     fig = _new((2.3 * n + 1.2, 2.9), layout="constrained")
-    vmax = max(float(np.nanmax(f)) if np.isfinite(f).any() else 0.0 for f in frames) or 1.0
+    vmax = max(float(np.nanmax(f, initial=0.0)) for f in frames) or 1.0
     cm = _cmap(SPECIES_CMAP.get(species, "viridis"))
     im = None
     for k, (t, f) in enumerate(zip(times, frames, strict=True)):
         ax = fig.add_subplot(1, n, k + 1)
-        data = np.ma.masked_where(~grid.mask | ~np.isfinite(f), f)
+        data = _shown(grid, f)
         im = ax.imshow(data, extent=_extent_km(grid), cmap=cm, vmin=0, vmax=vmax,
                        interpolation="nearest")
         ax.set_facecolor(NO_DATA)
@@ -155,16 +174,30 @@ def snapshot_panels(grid: Grid, times: np.ndarray, frames: list[np.ndarray], spe
     return _save(fig, path)
 
 
-def draw_run(folder: Path, setup, means: dict, finals: dict) -> list[Path]:
-    """Draw the standard maps of a finished run into ``folder/maps``."""
+def draw_run(folder: Path, sc, grid: Grid, habitat: np.ndarray, means: dict,
+             finals: dict) -> list[Path]:
+    """Draw the standard maps of a finished run into ``folder/maps``.
+
+    Parameters
+    ----------
+    folder : pathlib.Path
+        The (temporary) run folder holding ``results.nc``.
+    sc : Scenario
+        The scenario (names, class table, run length).
+    grid : Grid
+        The run grid.
+    habitat : numpy.ndarray
+        Habitat classes or suitability on the grid.
+    means, finals : dict
+        Time-mean and final densities per species, animals/km².
+    """
     import xarray as xr
 
-    sc, grid = setup.scenario, setup.grid
     maps = folder / "maps"
     names = {"prey": sc.prey.name, "predator": sc.predator.name}
     classes = ({c.code: c.name or str(c.code) for c in sc.landscape.classes}
                if sc.landscape.values == "classes" else None)
-    out = [habitat_map(grid, setup.habitat, classes, f"Habitat: {sc.title or sc.path.stem}",
+    out = [habitat_map(grid, habitat, classes, f"Habitat: {sc.title or sc.path.stem}",
                        maps / "habitat.png")]
     for sp in ("prey", "predator"):
         nm = names[sp] or sp
@@ -178,7 +211,7 @@ def draw_run(folder: Path, setup, means: dict, finals: dict) -> list[Path]:
                                maps / "totals.png"))
         pick = np.unique(np.linspace(0, len(t) - 1, 5).round().astype(int))
         for sp in ("prey", "predator"):
-            frames = [ds[sp].isel(time=int(k)).values.astype(float) for k in pick]
+            frames = [ds[sp].isel(time=int(k)).values for k in pick]
             out.append(snapshot_panels(grid, t[pick], frames, sp, names[sp] or sp,
                                        maps / f"{sp}_snapshots.png"))
     return out

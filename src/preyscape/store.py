@@ -113,6 +113,7 @@ class ResultWriter:
             v.long_name = f"{sp} density ({names.get(sp) or sp}), animals per km2"
             v.grid_mapping = "spatial_ref"
             v.coordinates = "y x"
+            v.set_var_chunk_cache(size=0)  # one snapshot per chunk, written once: no cache
             self._vars[sp] = v
             tv = ds.createVariable(f"{sp}_total", "f8", ("time",))
             tv.units = "1"
@@ -120,9 +121,6 @@ class ResultWriter:
             self._totals[sp] = tv
         self._time = t
         self.n = 0
-        self._sum = {sp: np.zeros(grid.shape) for sp in SPECIES}
-        self._n_mean = 0
-        self.last: dict[str, np.ndarray] = {}
 
     def write(self, t: float, N: np.ndarray, P: np.ndarray) -> None:
         """Append one snapshot at time ``t`` (years); densities in animals/km²."""
@@ -130,26 +128,50 @@ class ResultWriter:
         self._time[k] = t
         area = self.grid.cell_area_km2
         for sp, u in zip(SPECIES, (N, P), strict=True):
-            self._vars[sp][k, :, :] = np.where(self.grid.mask, u, np.nan).astype(np.float32)
-            self._totals[sp][k] = float(u[self.grid.mask].sum() * area)
-            if k > 0:  # time means are over the snapshots after the start
-                self._sum[sp] += u
-        if k > 0:
-            self._n_mean += 1
-        self.last = {"prey": N.copy(), "predator": P.copy()}
+            frame = u.astype(np.float32)
+            frame[~self.grid.mask] = np.nan
+            self._vars[sp][k, :, :] = frame
+            self._totals[sp][k] = float(np.sum(u, where=self.grid.mask) * area)
         self.n += 1
         self._ds.sync()
 
     def means(self) -> dict[str, np.ndarray]:
-        """Time-mean density per species over snapshots after the start, animals/km²."""
-        n = max(self._n_mean, 1)
-        return {sp: np.where(self.grid.mask, s / n, np.nan) for sp, s in self._sum.items()}
+        """Time-mean density per species over the snapshots after the start, animals/km².
+
+        Read back from the file one snapshot at a time (the file must be
+        closed or synced), so no running sums take memory during the run.
+        """
+        if self._ds is not None:
+            self._ds.sync()
+        return time_means(self.path, self.grid.mask)
 
     def close(self) -> None:
         """Close the file."""
         if self._ds is not None:
             self._ds.close()
             self._ds = None
+
+
+def time_means(path: Path, mask: np.ndarray) -> dict[str, np.ndarray]:
+    """Time-mean density per species in a ``results.nc``, animals/km².
+
+    The mean is over the snapshots after the start (all of them if there is
+    only one), accumulated in float64 one snapshot at a time; NaN off ``mask``.
+    """
+    import netCDF4
+
+    out = {}
+    with netCDF4.Dataset(path, "r") as ds:
+        for sp in SPECIES:
+            v = ds[sp]
+            v.set_auto_mask(False)
+            n = v.shape[0]
+            first = 1 if n > 1 else 0
+            acc = np.zeros(mask.shape)
+            for k in range(first, n):
+                acc += np.where(mask, v[k], 0.0)
+            out[sp] = np.where(mask, acc / (n - first), np.nan)
+    return out
 
 
 def save_checkpoint(path: Path, step: int, N: np.ndarray, P: np.ndarray, extra: dict) -> None:

@@ -26,7 +26,7 @@ MULTIPLIERS = (
 
 @dataclass(frozen=True, eq=False)
 class Fields:
-    """Parameter fields on the grid, shape ``(rows, cols)``, zero on no-data cells.
+    """Parameter fields on the grid, shape ``(rows, cols)``, float32, zero on no-data cells.
 
     Attributes
     ----------
@@ -131,11 +131,12 @@ def build_fields(
         inv_K[pos] = 1.0 / K[pos]
         sink = mask & (K <= 0)
         r[sink] = -growth * mult["prey_growth"][sink]
+    f4 = np.float32  # stored as float32: 7 significant digits, half the memory
     return Fields(
-        K=K,
-        r=r,
-        inv_K=inv_K,
-        m=z * mortality * mult["predator_mortality"],
-        prey_move=z * prey_move * mult["prey_movement"],
-        predator_move=z * predator_move * mult["predator_movement"],
+        K=K.astype(f4),
+        r=r.astype(f4),
+        inv_K=inv_K.astype(f4),
+        m=(z * mortality * mult["predator_mortality"]).astype(f4),
+        prey_move=(z * prey_move * mult["prey_movement"]).astype(f4),
+        predator_move=(z * predator_move * mult["predator_movement"]).astype(f4),
     )

@@ -138,26 +138,24 @@ def _faces(
     """Conductances of the faces along the last axis, shape (m, n + 1), 1/yr."""
     m, n = coef.shape
     c = np.where(mask, coef, 0.0)
-    inside = np.zeros((m, n + 2), dtype=bool)
-    inside[:, 1:-1] = mask
-    left, right = inside[:, :-1], inside[:, 1:]  # cells on either side of each face
-    both = left & right
-    own = np.zeros((m, n + 2))  # the coefficient of the data cell on a one-sided face
-    own[:, 1:-1] = c if kind == "fickian" else np.where(mask, 1.0, 0.0)
-    one_sided = left ^ right
-    own_face = np.where(left, own[:, :-1], own[:, 1:])
-    edge_face = np.zeros((m, n + 1), dtype=bool)
-    edge_face[:, [0, -1]] = True
-    lethal = one_sided & np.where(edge_face, edge == "hostile", nodata == "hostile")
-    if kind == "fickian":
-        inner = np.zeros((m, n + 1))
-        inner[:, 1:-1] = _harmonic(c[:, :-1], c[:, 1:])
-    elif kind == "ecological":
-        inner = np.ones((m, n + 1))
+    fickian = kind == "fickian"
+    face = np.zeros((m, n + 1))
+    both = mask[:, :-1] & mask[:, 1:]
+    if fickian:
+        face[:, 1:-1] = np.where(both, _harmonic(c[:, :-1], c[:, 1:]), 0.0)
     else:
-        raise ValueError(f"movement must be one of {MOVEMENT_KINDS}, not {kind!r}")
-    face = np.where(both, inner, 0.0) + np.where(lethal, 2.0 * own_face, 0.0)
-    return face * perm / (h_km * h_km)
+        face[:, 1:-1] = both
+    # one-sided faces: density zero on the face, half a cell from the data cell,
+    # so twice the cell's own coefficient (Fickian) or twice its weight (ecological)
+    own = c if fickian else mask.astype(float)
+    if nodata == "hostile":
+        face[:, 1:-1] += 2.0 * (own[:, :-1] * ~mask[:, 1:] + own[:, 1:] * ~mask[:, :-1])
+    if edge == "hostile":
+        face[:, 0] = 2.0 * own[:, 0]
+        face[:, -1] = 2.0 * own[:, -1]
+    face *= perm
+    face /= h_km * h_km
+    return face
 
 
 def build_movement(

@@ -98,19 +98,19 @@ def _react_row(N, P, i, dt, nsub, r, ik, m, a, h, c, e, refuge, outN, outP, zb):
     # then RK4 on logs for the rare cells where plain RK4 was not safe.
     nx = N.shape[1]
     uniform = refuge.size == 1
-    sh0 = 1.0 - refuge[0, 0]
+    sh0 = 1.0 - f8(refuge[0, 0])
     if nsub == 1:
         if uniform:
             for j in range(nx):
-                n4, p4, z = _rk4(N[i, j], P[i, j], dt, r[i, j], ik[i, j], m[i, j],
-                                 a, h, c, e, sh0)
+                n4, p4, z = _rk4(N[i, j], P[i, j], dt, f8(r[i, j]), f8(ik[i, j]),
+                                 f8(m[i, j]), a, h, c, e, sh0)
                 outN[j] = n4
                 outP[j] = p4
                 zb[j] = z
         else:
             for j in range(nx):
-                n4, p4, z = _rk4(N[i, j], P[i, j], dt, r[i, j], ik[i, j], m[i, j],
-                                 a, h, c, e, 1.0 - refuge[i, j])
+                n4, p4, z = _rk4(N[i, j], P[i, j], dt, f8(r[i, j]), f8(ik[i, j]),
+                                 f8(m[i, j]), a, h, c, e, 1.0 - f8(refuge[i, j]))
                 outN[j] = n4
                 outP[j] = p4
                 zb[j] = z
@@ -119,9 +119,9 @@ def _react_row(N, P, i, dt, nsub, r, ik, m, a, h, c, e, refuge, outN, outP, zb):
             zb[j] = np.inf
     for j in range(nx):
         if zb[j] > SAFE or outN[j] < 0.0 or outP[j] < 0.0:
-            sh = sh0 if uniform else 1.0 - refuge[i, j]
-            n, p = _rk4_log(N[i, j], P[i, j], dt / nsub, nsub, r[i, j], ik[i, j], m[i, j],
-                            a, h, c, e, sh)
+            sh = sh0 if uniform else 1.0 - f8(refuge[i, j])
+            n, p = _rk4_log(N[i, j], P[i, j], dt / nsub, nsub, f8(r[i, j]), f8(ik[i, j]),
+                            f8(m[i, j]), a, h, c, e, sh)
             outN[j] = n
             outP[j] = p
 
@@ -374,17 +374,22 @@ def warm_up() -> None:
     sh = (3, 4)
     z = np.zeros(sh)
     o = np.ones(sh)
+    z4 = np.zeros(sh, dtype=np.float32)
+    o4 = np.ones(sh, dtype=np.float32)
     mk = np.ones(sh, dtype=np.bool_)
     cx = np.zeros((3, 5), dtype=np.float32)
     cy = np.zeros((4, 4), dtype=np.float32)
     w = np.ones(sh, dtype=np.float32)
-    ref = np.zeros((1, 1))
-    react(o.copy(), o.copy(), 0.1, 1, o, z, o, 1.0, 0.0, 0.0, 0.5, ref)
+    ref = np.zeros((1, 1), dtype=np.float32)
+    react(o.copy(), o.copy(), 0.1, 1, o4, z4, o4, 1.0, 0.0, 0.0, 0.5, ref)
+    react(o.copy(), o.copy(), 0.1, 1, o4, z4, o4, 1.0, 0.0, 0.0, 0.5, z4)
     inv = z.copy()
     factor_x(cx, w, mk, 0.5, inv)
     TN, TP = np.zeros((4, 3)), np.zeros((4, 3))
     neg = np.zeros(3)
-    half_step(o, o, TN, TP, 0.1, 1, o, z, o, 1.0, 0.0, 0.0, 0.5, ref, 0.5, 0.5,
+    half_step(o, o, TN, TP, 0.1, 1, o4, z4, o4, 1.0, 0.0, 0.0, 0.5, ref, 0.5, 0.5,
+              cx, cy, w, inv, cx, cy, w, inv, neg, neg.copy(), 2)
+    half_step(o, o, TN, TP, 0.1, 1, o4, z4, o4, 1.0, 0.0, 0.0, 0.5, z4, 0.5, 0.5,
               cx, cy, w, inv, cx, cy, w, inv, neg, neg.copy(), 2)
     explicit_step(o, z.copy(), 0.1, cx, cy, w, mk)
     fix_negative(o.copy(), neg, np.zeros(3))

@@ -70,11 +70,11 @@ class Stepper:
     prey_movement, predator_movement : Movement
         Movement operators (face conductances, 1/yr).
     r : numpy.ndarray
-        Prey growth rate per cell, 1/yr (negative in sink cells).
+        Prey growth rate per cell, 1/yr (negative in sink cells); stored as float32.
     inv_K : numpy.ndarray
-        Inverse carrying capacity per cell, km² (0: no density limit).
+        Inverse carrying capacity per cell, km² (0: no density limit); float32.
     m : numpy.ndarray
-        Predator mortality per cell, 1/yr.
+        Predator mortality per cell, 1/yr; float32.
     interaction : Interaction
         Interaction form and constants.
     dt : float
@@ -113,11 +113,14 @@ class Stepper:
         self.mask = np.ascontiguousarray(self.mask, dtype=np.bool_)
 
         def full(v):
-            return np.ascontiguousarray(np.broadcast_to(v, shape), dtype=float)
+            # per-cell parameters are stored as float32 (7 significant digits, far
+            # beyond any habitat parameter); all arithmetic is float64
+            return np.ascontiguousarray(np.broadcast_to(v, shape), dtype=np.float32)
 
         self.r, self.inv_K, self.m = full(self.r), full(self.inv_K), full(self.m)
         if self.refuge is None or np.ndim(self.refuge) == 0:
-            self._refuge = np.full((1, 1), 0.0 if self.refuge is None else float(self.refuge))
+            ref = 0.0 if self.refuge is None else float(self.refuge)
+            self._refuge = np.full((1, 1), ref, dtype=np.float32)
         else:
             self._refuge = full(self.refuge)
         tau = 0.5 * self.dt

@@ -1,0 +1,487 @@
+"""preyscape benchmark suite: prints a table and writes JSON.
+
+    python benchmarks/run.py                 # everything (about 15 minutes on 2 cores)
+    python benchmarks/run.py --only step,scaling
+    python benchmarks/run.py --json benchmarks/results.json
+
+Every speed is measured in this process next to its baseline, on this machine;
+targets are in docs/performance.md. Not part of the test suite.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import platform
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numba
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+
+from baselines import NumbaExplicit, NumpyExplicit, stable_step  # noqa: E402
+
+from preyscape.landscape.generate import gaussian_field  # noqa: E402
+from preyscape.model.movement import apply, build_movement  # noqa: E402
+from preyscape.model.reactions import Interaction, rates  # noqa: E402
+from preyscape.solve import kernels  # noqa: E402
+from preyscape.solve.run import integrate  # noqa: E402
+from preyscape.solve.stepper import Stepper  # noqa: E402
+
+# bytes moved per cell-step by the two passes of a step, counted like STREAM counts
+# (each array read or written once; write-allocate not counted):
+#   pass 1: N, P read (16); r, 1/K, m read (24); per species faces cx, cy and weights
+#           w as float32 (12) and inverse pivots (8) -> 40; W^T written for both (16)
+#   pass 2: W^T read (16); per species transposed faces, weights, pivots (20) -> 40;
+#           N, P written (16)
+BYTES_PER_CELL_STEP = 96 + 72
+
+
+# ---------------------------------------------------------------------------
+# the reference landscape
+# ---------------------------------------------------------------------------
+INTER = Interaction("holling-ii", attack_rate=0.004, handling_time=0.2, efficiency=0.5)
+
+
+def reference_landscape(n: int, h_m: float = 100.0, seed: int = 1, fence: bool = True):
+    """Heterogeneous habitat, one predator-proof fence with a gap, Holling type II.
+
+    Prey: r = 1/yr, K = 1000 (0.2 + 0.8 s) per km², Fickian D = 5 (0.5 + s) km²/yr.
+    Predator: m = 0.3/yr, ecological motility 50 (0.5 + s) km²/yr. ``s`` is a
+    correlated suitability field (0-1). The fence runs north-south at 60 % of
+    the width over the northern 70 % of the rows (predators blocked, prey pass).
+    """
+    s = gaussian_field((n, n), max(2.0, n / 40), seed=seed)
+    mask = np.ones((n, n), bool)
+    K = 1000.0 * (0.2 + 0.8 * s)
+    perm_p = np.ones((n, n + 1))
+    if fence:
+        perm_p[: int(0.7 * n), int(0.6 * n)] = 0.0
+    mv_n = build_movement(5.0 * (0.5 + s), mask, h_m, h_m, "fickian")
+    mv_p = build_movement(50.0 * (0.5 + s), mask, h_m, h_m, "ecological", perm_x=perm_p)
+    N0 = K.copy()
+    P0 = np.zeros((n, n))
+    c = n // 2
+    P0[c - n // 20 : c + n // 20, : max(2, n // 50)] = 10.0
+    return {
+        "n": n, "h_m": h_m, "mask": mask, "mv_n": mv_n, "mv_p": mv_p,
+        "r": np.full((n, n), 1.0), "inv_K": 1.0 / K, "m": np.full((n, n), 0.3),
+        "N0": N0, "P0": P0,
+    }
+
+
+def stepper_for(land, dt, scheme="adi"):
+    return Stepper(land["mask"], land["mv_n"], land["mv_p"], land["r"], land["inv_K"],
+                   land["m"], INTER, dt, scheme=scheme)
+
+
+def median_step(st, land, steps=40, chunk=10):
+    N, P = land["N0"].copy(), land["P0"].copy()
+    st.advance(N, P, 0, chunk)  # warm-up (compilation, page faults)
+    times = []
+    for k in range(steps // chunk):
+        t = time.perf_counter()
+        st.advance(N, P, chunk * (k + 1), chunk)
+        times.append((time.perf_counter() - t) / chunk)
+    return float(np.median(times))
+
+
+# ---------------------------------------------------------------------------
+# roofline
+# ---------------------------------------------------------------------------
+@numba.njit(parallel=True, cache=True)
+def _triad(a, b, c, s):
+    for i in numba.prange(a.size):
+        a[i] = b[i] + s * c[i]
+
+
+def triad_bandwidth(n=16_000_000, repeats=10):
+    """STREAM-style triad a = b + s c on float64 arrays far larger than the caches, GB/s."""
+    a, b, c = np.empty(n), np.ones(n), np.ones(n)
+    _triad(a, b, c, 3.0)
+    best = math.inf
+    for _ in range(repeats):
+        t = time.perf_counter()
+        _triad(a, b, c, 3.0)
+        best = min(best, time.perf_counter() - t)
+    return 24 * n / best / 1e9
+
+
+# ---------------------------------------------------------------------------
+# benchmarks
+# ---------------------------------------------------------------------------
+def bench_step(quick):
+    n = 1000
+    land = reference_landscape(n)
+    st = stepper_for(land, 0.01)
+    t = median_step(st, land, steps=20 if quick else 50)
+    bw = triad_bandwidth()
+    floor = BYTES_PER_CELL_STEP * n * n / (bw * 1e9)
+    return {
+        "cells": n * n, "median_step_s": t, "cell_steps_per_s": n * n / t,
+        "triad_GBps": bw, "bytes_per_cell_step": BYTES_PER_CELL_STEP,
+        "roofline_step_s": floor, "fraction_of_roofline": floor / t,
+        "threads": numba.get_num_threads(), "target_s": 0.015,
+    }
+
+
+class _Transect:
+    """Keeps the predator row through the release at every save."""
+
+    def __init__(self, row):
+        self.row = row
+        self.t, self.p = [], []
+
+    def write(self, t, N, P):
+        self.t.append(t)
+        self.p.append(P[self.row].copy())
+
+
+def _front(p_row, h_km, level=0.1):
+    """Easternmost crossing of ``level`` along the row, km, interpolated in log density."""
+    above = np.nonzero(p_row >= level)[0]
+    if not above.size:
+        return 0.0
+    k = above.max()
+    if k + 1 >= p_row.size or p_row[k + 1] <= 0:
+        return (k + 0.5) * h_km
+    frac = np.log(p_row[k] / level) / np.log(p_row[k] / p_row[k + 1])
+    return (k + 0.5 + frac) * h_km
+
+
+def _run_fronts(land, dt, years):
+    st = stepper_for(land, dt)
+    N, P = land["N0"].copy(), land["P0"].copy()
+    sink = _Transect(land["n"] // 2)
+    t0 = time.perf_counter()
+    integrate(st, N, P, years, 1.0, sink, progress=False)
+    wall = time.perf_counter() - t0
+    h_km = land["h_m"] / 1000
+    return np.array([_front(p, h_km) for p in sink.p]), wall
+
+
+COLD_COMPILE = ("import time; t = time.perf_counter(); from preyscape.solve.kernels import warm_up; "
+                "warm_up(); print(time.perf_counter() - t)")
+
+
+def cold_compile_s():
+    """Seconds to compile every kernel in a fresh process with an empty cache."""
+    with tempfile.TemporaryDirectory() as d:
+        env = dict(os.environ, NUMBA_CACHE_DIR=d)
+        return float(subprocess.run([sys.executable, "-c", COLD_COMPILE], env=env,
+                                    capture_output=True, text=True, check=True).stdout)
+
+
+def bench_scenario(quick):
+    """20 years on the 1000 x 1000 reference landscape at a front-position accuracy target."""
+    from preyscape.model import theory
+    from preyscape.solve.stepper import auto_step
+
+    years, n = 20.0, 1000
+    t0 = time.perf_counter()
+    land = reference_landscape(n)
+    setup_s = time.perf_counter() - t0
+    kernels.warm_up()
+    n_eq, p_eq = theory.equilibrium(INTER, 1.0, 1000.0, 0.5)
+    g_max = INTER.efficiency * INTER.attack_rate * 1000 / (1 + INTER.attack_rate * INTER.h * 1000)
+    # the automatic step, as pipeline.prepare derives it for a scenario
+    dt_auto = auto_step([1.0, 0.5, INTER.attack_rate * p_eq, g_max], None, 1.0)
+    dt_ref = 0.0025
+    ref, wall_ref = _run_fronts(land, dt_ref, years)
+    width = n * land["h_m"] / 1000
+    sel = (ref > 5.0) & (ref < 0.9 * width)
+    dt = dt_auto
+    while True:  # the largest step, halving from the automatic one, within 1 %
+        fronts, wall = _run_fronts(land, dt, years)
+        err = float(np.max(np.abs(fronts[sel] - ref[sel]) / ref[sel]))
+        if err <= 0.01 or dt <= 4 * dt_ref:
+            break
+        dt /= 2
+    compile_s = cold_compile_s()
+    total_ours = setup_s + compile_s + wall
+    dt_x = stable_step(land["mv_n"], land["mv_p"])
+    steps_x = math.ceil(years / dt_x)
+    out = {"years": years, "cells": n * n, "dt_auto": dt_auto, "dt": dt,
+           "steps": round(years / dt), "setup_s": setup_s, "cold_compile_s": compile_s,
+           "wall_s_loop": wall, "wall_s_incl_setup_and_compile": total_ours,
+           "front_error_vs_fine": err, "fine_dt": dt_ref, "fine_step_wall_s": wall_ref,
+           "fronts_km": fronts.tolist(), "fronts_fine_km": ref.tolist(),
+           "predicted_front_speed_km_per_yr": theory.predator_speed(INTER, 1000.0, 0.5, 75.0),
+           "explicit_dt": dt_x, "explicit_steps": steps_x}
+    for name, cls, k in (("numba_explicit", NumbaExplicit, 20 if quick else 100),
+                         ("numpy_explicit", NumpyExplicit, 5 if quick else 20)):
+        solver = cls(land["mv_n"], land["mv_p"], land["r"], land["inv_K"], land["m"], INTER, dt_x)
+        N, P = land["N0"].copy(), land["P0"].copy()
+        N, P = solver.step(N, P)  # compile / warm up
+        t = time.perf_counter()
+        for _ in range(k):
+            N, P = solver.step(N, P)
+        per = (time.perf_counter() - t) / k
+        out[name] = {"timed_steps": k, "s_per_step": per, "extrapolated_s": per * steps_x,
+                     "speedup": per * steps_x / total_ours}
+    return out
+
+
+def _sparse_operator(mv):
+    import scipy.sparse as sp
+
+    ox, oy = mv.x, mv.y
+    ny, nx = mv.mask.shape
+    idx = np.arange(ny * nx).reshape(ny, nx)
+    rows, cols, vals = [idx.ravel()], [idx.ravel()], [-(ox.dg + oy.dg).ravel()]
+    for lo, up, axis in ((ox.lo, ox.up, 1), (oy.lo, oy.up, 0)):
+        if axis == 1:
+            rows += [idx[:, 1:].ravel(), idx[:, :-1].ravel()]
+            cols += [idx[:, :-1].ravel(), idx[:, 1:].ravel()]
+            vals += [lo[:, 1:].ravel(), up[:, :-1].ravel()]
+        else:
+            rows += [idx[1:, :].ravel(), idx[:-1, :].ravel()]
+            cols += [idx[:-1, :].ravel(), idx[1:, :].ravel()]
+            vals += [lo[1:, :].ravel(), up[:-1, :].ravel()]
+    n = ny * nx
+    return sp.csr_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
+                         shape=(n, n))
+
+
+def bench_reference(quick):
+    """200 x 200 against scipy solve_ivp (BDF, sparse Jacobian pattern) at equal accuracy."""
+    import scipy.sparse as sp
+    from scipy.integrate import solve_ivp
+
+    n, years = 200, 1.0 if quick else 2.0
+    land = reference_landscape(n, h_m=500.0)
+    Ln, Lp = _sparse_operator(land["mv_n"]), _sparse_operator(land["mv_p"])
+    assert np.allclose(Ln @ land["N0"].ravel(), apply(land["mv_n"], land["N0"]).ravel())
+    r, iK, m = land["r"].ravel(), land["inv_K"].ravel(), land["m"].ravel()
+    cells = n * n
+
+    def rhs(t, y):
+        N, P = y[:cells], y[cells:]
+        dn, dp = rates(N, P, r, iK, m, INTER)
+        return np.concatenate([dn + Ln @ N, dp + Lp @ P])
+
+    eye = sp.identity(cells, format="csr")
+    pattern = sp.bmat([[Ln + eye, eye], [eye, Lp + eye]]).astype(bool)
+    y0 = np.concatenate([land["N0"].ravel(), land["P0"].ravel()])
+    # reference: our scheme at a tiny step (second order: error ~ (dt/64)^2)
+    st = stepper_for(land, 1.0 / 1280)
+    Nr, Pr = land["N0"].copy(), land["P0"].copy()
+    st.advance(Nr, Pr, 0, round(years * 1280))
+    ref = np.concatenate([Nr.ravel(), Pr.ravel()])
+
+    def err(y):
+        return float(np.linalg.norm(y - ref) / np.linalg.norm(ref))
+
+    t = time.perf_counter()
+    sol = solve_ivp(rhs, (0, years), y0, method="BDF", jac_sparsity=pattern, rtol=1e-4,
+                    atol=1e-6)
+    t_ivp = time.perf_counter() - t
+    e_ivp = err(sol.y[:, -1])
+    # ours: the largest step (halving from 0.05 yr) that is at least as accurate
+    dt = 0.05
+    while True:
+        st = stepper_for(land, dt)
+        N, P = land["N0"].copy(), land["P0"].copy()
+        t = time.perf_counter()
+        st.advance(N, P, 0, round(years / dt))
+        t_ours = time.perf_counter() - t
+        e_ours = err(np.concatenate([N.ravel(), P.ravel()]))
+        if e_ours <= e_ivp or dt < 1e-4:
+            break
+        dt /= 2
+    return {"cells": cells, "years": years, "solve_ivp_s": t_ivp, "solve_ivp_error": e_ivp,
+            "solve_ivp_rhs_evals": int(sol.nfev), "ours_s": t_ours, "ours_dt": dt,
+            "ours_error": e_ours, "speedup": t_ivp / t_ours}
+
+
+MEMORY_SCENARIO = """
+[landscape]
+habitat = "hab.tif"
+values = "suitability"
+[prey]
+growth = 1.0
+capacity = 1000.0
+diffusivity = 5.0
+[predator]
+mortality = 0.3
+movement = "ecological"
+motility = 50.0
+[interaction]
+form = "holling-ii"
+attack_rate = 0.004
+handling_time = 0.2
+efficiency = 0.5
+[[start.releases]]
+x = 500000.0
+y = 6900000.0
+radius = 2000.0
+density = 10.0
+[run]
+years = 1.0
+save_every = {save_every}
+step = 0.01
+"""
+
+RUN_AND_MEASURE = ("import resource, sys; from preyscape.cli import main; "
+                   "code = main(sys.argv[1:]); "
+                   "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024); "
+                   "sys.exit(code)")
+
+
+def bench_memory(quick):
+    """Peak resident memory of `preyscape run` on 2000 x 2000 cells, 10 and 100 snapshots."""
+    import rasterio
+    from rasterio.transform import from_origin
+
+    out = {}
+    n = 2000
+    with tempfile.TemporaryDirectory() as d:
+        s = gaussian_field((n, n), 50.0, seed=3).astype("float32")
+        with rasterio.open(f"{d}/hab.tif", "w", driver="GTiff", width=n, height=n, count=1,
+                           dtype="float32", crs="EPSG:32633",
+                           transform=from_origin(400000, 7000000, 100, 100)) as dst:
+            dst.write(s, 1)
+        del s
+        for saves in (10, 100):
+            Path(f"{d}/s{saves}.toml").write_text(
+                MEMORY_SCENARIO.format(save_every=1.0 / saves))
+            res = subprocess.run([sys.executable, "-c", RUN_AND_MEASURE, "run",
+                                  f"{d}/s{saves}.toml", "--out", f"{d}/run{saves}", "--quiet"],
+                                 capture_output=True, text=True, check=True)
+            out[f"peak_MB_{saves}_snapshots"] = float(res.stdout.strip().splitlines()[-1])
+            size = sum(f.stat().st_size for f in Path(f"{d}/run{saves}").rglob("*"))
+            out[f"run_folder_MB_{saves}_snapshots"] = size / 1e6
+            shutil.rmtree(f"{d}/run{saves}")
+    out["cells"] = n * n
+    out["target_MB"] = 1000
+    return out
+
+
+def bench_scaling(quick):
+    rows = []
+    for n in (250, 500, 1000, 2000):
+        land = reference_landscape(n)
+        st = stepper_for(land, 0.01)
+        t = median_step(st, land, steps=20 if n >= 2000 or quick else 40)
+        rows.append({"n": n, "cells": n * n, "s_per_step": t, "ns_per_cell_step": t / n / n * 1e9})
+        del land, st
+    land = reference_landscape(1000)
+    st = stepper_for(land, 0.01)
+    threads = {}
+    full = numba.get_num_threads()
+    for k in sorted({1, full}):
+        numba.set_num_threads(k)
+        threads[k] = median_step(st, land, steps=20)
+    numba.set_num_threads(full)
+    return {"sizes": rows, "threads_s_per_step": threads,
+            "speedup_2_threads": threads[1] / threads[full] if full > 1 else 1.0}
+
+
+def bench_startup(quick):
+    env = dict(os.environ)
+    t = time.perf_counter()
+    subprocess.run([sys.executable, "-m", "preyscape", "--help"], capture_output=True, check=True)
+    help_s = time.perf_counter() - t
+    exe = Path(sys.executable).parent / "preyscape"
+    help_exe = None
+    if exe.exists():
+        t = time.perf_counter()
+        subprocess.run([str(exe), "--help"], capture_output=True, check=True)
+        help_exe = time.perf_counter() - t
+    with tempfile.TemporaryDirectory() as d:
+        env["NUMBA_CACHE_DIR"] = d
+        first = float(subprocess.run([sys.executable, "-c", COLD_COMPILE], env=env,
+                                     capture_output=True, text=True, check=True).stdout)
+        cached = float(subprocess.run([sys.executable, "-c", COLD_COMPILE], env=env,
+                                      capture_output=True, text=True, check=True).stdout)
+    return {"help_s_python_m": help_s, "help_s_entry_point": help_exe,
+            "first_compile_s": first, "cached_load_s": cached}
+
+
+BENCHES = {"step": bench_step, "scenario": bench_scenario, "reference": bench_reference,
+           "memory": bench_memory, "scaling": bench_scaling, "startup": bench_startup}
+
+
+def _table(res):
+    lines = ["| benchmark | measured | target | met |", "|---|---|---|---|"]
+
+    def row(name, value, target, ok):
+        lines.append(f"| {name} | {value} | {target} | {'yes' if ok else 'NO'} |")
+
+    if "step" in res:
+        s = res["step"]
+        row("coupled step, 1000x1000, 2 species, Holling II, fence",
+            f"{s['median_step_s'] * 1e3:.1f} ms ({s['cell_steps_per_s'] / 1e6:.0f} M cell-steps/s; "
+            f"{s['fraction_of_roofline']:.0%} of a {s['triad_GBps']:.1f} GB/s triad roofline at "
+            f"{s['bytes_per_cell_step']} B/cell-step)", "≤ 15 ms", s["median_step_s"] <= 0.015)
+    if "scenario" in res:
+        s = res["scenario"]
+        row("20-year scenario, 1000x1000 (incl. setup and compilation)",
+            f"{s['wall_s_incl_setup_and_compile']:.1f} s (compile {s['cold_compile_s']:.0f} s), "
+            f"dt {s['dt']:.4g} yr, front error {s['front_error_vs_fine']:.2%} vs dt "
+            f"{s['fine_dt']:g}", "≤ 60 s, error ≤ 1 %",
+            s["wall_s_incl_setup_and_compile"] <= 60 and s["front_error_vs_fine"] <= 0.01)
+        for name, target in (("numba_explicit", 10), ("numpy_explicit", 200)):
+            b = s[name]
+            row(f"  vs {name.replace('_', ' ')} (timed {b['timed_steps']} steps x "
+                f"{s['explicit_steps']} needed)",
+                f"{b['speedup']:.0f}x ({b['extrapolated_s']:.0f} s extrapolated)",
+                f"≥ {target}x", b["speedup"] >= target)
+    if "reference" in res:
+        s = res["reference"]
+        row(f"200x200, {s['years']:g} yr vs solve_ivp BDF (sparse Jacobian)",
+            f"{s['speedup']:.0f}x ({s['solve_ivp_s']:.1f} s, err {s['solve_ivp_error']:.1e} vs "
+            f"{s['ours_s']:.2f} s, err {s['ours_error']:.1e}, dt {s['ours_dt']:g})",
+            "≥ 20x", s["speedup"] >= 20)
+    if "memory" in res:
+        s = res["memory"]
+        row("peak memory, 2000x2000 run, 10 / 100 snapshots",
+            f"{s['peak_MB_10_snapshots']:.0f} / {s['peak_MB_100_snapshots']:.0f} MB",
+            "≤ 1000 MB, flat", max(s["peak_MB_10_snapshots"], s["peak_MB_100_snapshots"]) <= 1000
+            and s["peak_MB_100_snapshots"] <= 1.05 * s["peak_MB_10_snapshots"])
+    if "scaling" in res:
+        s = res["scaling"]
+        per = ", ".join(f"{r['n']}²: {r['ns_per_cell_step']:.1f}" for r in s["sizes"])
+        row("time per cell-step by grid size (ns)", per, "about constant", True)
+        row("1 vs 2 threads, 1000x1000", f"{s['speedup_2_threads']:.2f}x", "(reported)", True)
+    if "startup" in res:
+        s = res["startup"]
+        row("preyscape --help", f"{s['help_s_python_m']:.2f} s", "≤ 0.5 s",
+            s["help_s_python_m"] <= 0.5)
+        row("kernel compile, first run / cached", f"{s['first_compile_s']:.1f} s / "
+            f"{s['cached_load_s']:.2f} s", "cached", s["cached_load_s"] < s["first_compile_s"])
+    return "\n".join(lines)
+
+
+def main(argv=None):
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--only", help="comma-separated subset of: " + ", ".join(BENCHES))
+    p.add_argument("--json", type=Path, default=HERE / "results.json")
+    p.add_argument("--quick", action="store_true", help="fewer repeats (a rough look)")
+    a = p.parse_args(argv)
+    names = a.only.split(",") if a.only else list(BENCHES)
+    res = {"machine": {"python": platform.python_version(), "cpus": os.cpu_count(),
+                       "numba_threads": numba.get_num_threads(), "numpy": np.__version__,
+                       "numba": numba.__version__, "processor": platform.processor()}}
+    for name in names:
+        t = time.perf_counter()
+        res[name] = BENCHES[name](a.quick)
+        print(f"[{name}: {time.perf_counter() - t:.0f} s]", file=sys.stderr, flush=True)
+    res["max_rss_MB_this_process"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    print(_table(res))
+    a.json.write_text(json.dumps(res, indent=2, default=float) + "\n")
+    print(f"\nwritten {a.json}")
+
+
+if __name__ == "__main__":
+    main()
