@@ -170,7 +170,8 @@ def _run_fronts(land, dt, years):
     return np.array([_front(p, h_km) for p in sink.p]), wall
 
 
-COLD_COMPILE = ("import time; t = time.perf_counter(); from preyscape.solve.kernels import warm_up; "
+COLD_COMPILE = ("import time; t = time.perf_counter(); "
+                "from preyscape.solve.kernels import warm_up; "
                 "warm_up(); print(time.perf_counter() - t)")
 
 
