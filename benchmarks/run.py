@@ -40,11 +40,11 @@ from preyscape.solve.stepper import Stepper  # noqa: E402
 
 # bytes moved per cell-step by the two passes of a step, counted like STREAM counts
 # (each array read or written once; write-allocate not counted):
-#   pass 1: N, P read (16); r, 1/K, m read (24); per species faces cx, cy and weights
-#           w as float32 (12) and inverse pivots (8) -> 40; W^T written for both (16)
+#   pass 1: N, P read (16); r, 1/K, m read as float32 (12); per species faces cx, cy
+#           and weights w as float32 (12) and inverse pivots (8) -> 40; W^T written (16)
 #   pass 2: W^T read (16); per species transposed faces, weights, pivots (20) -> 40;
 #           N, P written (16)
-BYTES_PER_CELL_STEP = 96 + 72
+BYTES_PER_CELL_STEP = 84 + 72
 
 
 # ---------------------------------------------------------------------------

@@ -399,3 +399,41 @@ def test_auto_step_divides_the_save_interval():
     n = 0.125 / dt
     assert abs(n - round(n)) < 1e-9
     assert dt <= 0.05 / 7.3
+
+
+def test_merged_half_steps_match_single_steps():
+    # advance() takes the two half reaction steps between steps together: R(dt) in place
+    # of R(dt/2) R(dt/2). Both are RK4 approximations of the same flow, so the two runs
+    # differ only by the reaction integrator's error, far below the splitting error
+    shape = (24, 28)
+    yy, xx = np.mgrid[0:shape[0], 0:shape[1]]
+    inter = Interaction("holling-ii", attack_rate=1.0, handling_time=0.3, efficiency=0.7)
+    diffs = []
+    for dt in (0.02, 0.01):
+        a = make_stepper(shape, 0.05, 0.02, inter, dt=dt, r=1.0, K=2.0, m=0.4)
+        b = make_stepper(shape, 0.05, 0.02, inter, dt=dt, r=1.0, K=2.0, m=0.4)
+        N1 = 1.0 + 0.5 * np.cos(np.pi * xx / shape[1]) * np.cos(np.pi * yy / shape[0])
+        P1 = 0.4 + 0.2 * np.sin(np.pi * xx / shape[1])
+        N2, P2 = N1.copy(), P1.copy()
+        n = round(1.0 / dt)
+        a.advance(N1, P1, 0, n)
+        run(b, N2, P2, 1.0)
+        diffs.append(np.abs(N1 - N2).max())
+    assert diffs[0] < 1e-8
+    assert diffs[0] / diffs[1] > 3.0  # and the difference shrinks with the step
+
+
+def test_full_refuge_gives_logistic_growth():
+    # With every prey shielded (refuge fraction 1 in each cell) predators cannot eat and
+    # prey follow the logistic law N(t) = K / (1 + (K/N0 - 1) exp(-r t)) (Verhulst 1838),
+    # while predators decline at their mortality, P0 exp(-m t).
+    shape = (5, 6)
+    inter = Interaction("holling-ii", attack_rate=2.0, handling_time=0.1, efficiency=0.5)
+    st = make_stepper(shape, 0.0, 0.0, inter, dt=0.01, r=1.2, K=50.0, m=0.4,
+                      refuge=np.ones(shape))
+    N = np.full(shape, 2.0)
+    P = np.full(shape, 10.0)
+    run(st, N, P, 5.0)
+    r, K, m = float(st.r[0, 0]), 1.0 / float(st.inv_K[0, 0]), float(st.m[0, 0])
+    np.testing.assert_allclose(N, K / (1 + (K / 2.0 - 1) * np.exp(-r * 5.0)), rtol=1e-8)
+    np.testing.assert_allclose(P, 10.0 * np.exp(-m * 5.0), rtol=1e-8)

@@ -265,10 +265,11 @@ def derived(setup: Setup) -> dict:
         "predator_front_speed": theory.predator_speed(inter, b["K"], b["m"], b["D_P"]),
         "critical_patch_prey": theory.critical_patch(b["r"], b["D_N"]),
         "critical_patch_predator": theory.critical_patch(growth_P, b["D_P"]),
-        # per cell during the run: state and transposed work (32 B), reaction fields (24),
-        # per species faces and weights in two orientations (24) and pivots (16), unit
-        # weights (8), running means (16), habitat (8): ~180 B
-        "memory_mb": cells * 180 / 1e6,
+        # per cell during the run: state and transposed work (32 B), reaction fields (12),
+        # per species faces and weights in two orientations (24) and pivots (32), unit
+        # weights (8), habitat (4), start and output buffers: ~180 B; plus ~250 MB for
+        # Python and the libraries (measured: benchmarks/run.py --only memory)
+        "memory_mb": 250 + cells * 180 / 1e6,
         "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
         "snapshots": n_snap,
     }

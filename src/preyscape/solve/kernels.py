@@ -179,19 +179,17 @@ def factor_x(cx, w, mask, tau, inv):
 # one half step: (reaction +) row sweeps of both species, written transposed
 # ---------------------------------------------------------------------------
 @njit(inline="always")
-def _rhs_row(i, R, tau, tau_e, c_al, c_ac, w, inv, beta, alpha, gamma):
-    # beta = inv * (I + tau_e L_across) R at row i, alpha = inv * tau * c * w_left,
-    # so the forward elimination is the one-FMA recurrence d_j = beta_j + alpha_j d_j-1;
-    # gamma = -cp (see factor_x) for the back substitution x_j = d_j + gamma_j x_j+1
+def _rhs_row(i, up, rc, dn, tau, tau_e, c_al, c_ac, w, inv, beta, alpha, gamma):
+    # beta = inv * (I + tau_e L_across) u at row i (rows up, rc, dn: i-1, i, i+1),
+    # alpha = inv * tau * c * w_left, so the forward elimination is the one-FMA
+    # recurrence d_j = beta_j + alpha_j d_j-1; gamma = -cp (see factor_x) for the
+    # back substitution x_j = d_j + gamma_j x_j+1
     ny = w.shape[0]
     nx = w.shape[1]
-    rc = R[i % 3]
     fu = 1.0 if i > 0 else 0.0
     fd = 1.0 if i < ny - 1 else 0.0
     iu = i - 1 if i > 0 else 0
     idn = i + 1 if i < ny - 1 else ny - 1
-    up = R[iu % 3]
-    dn = R[idn % 3]
     for j in range(nx):
         cu = f8(c_ac[i, j])
         cd = f8(c_ac[i + 1, j])
@@ -200,10 +198,12 @@ def _rhs_row(i, R, tau, tau_e, c_al, c_ac, w, inv, beta, alpha, gamma):
              - (cu * wj + cd * wj) * rc[j])
         beta[j] = (rc[j] + tau_e * s) * inv[i, j]
     alpha[0] = 0.0
+    gamma[nx - 1] = 0.0
     for j in range(1, nx):
-        alpha[j] = tau * f8(c_al[i, j]) * f8(w[i, j - 1]) * inv[i, j]
-    for j in range(nx - 1):
-        gamma[j] = tau * f8(c_al[i, j + 1]) * f8(w[i, j + 1]) * inv[i, j]
+        # face j lies between cells j-1 and j: it couples both ways
+        cj = tau * f8(c_al[i, j])
+        alpha[j] = cj * f8(w[i, j - 1]) * inv[i, j]
+        gamma[j - 1] = cj * f8(w[i, j]) * inv[i, j - 1]
 
 
 TILE = 8  # rows solved before they are written out as columns (one cache line)
@@ -242,25 +242,26 @@ def half_step(N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
         gP = np.empty(nx)
         tN = np.empty((TILE, nx))
         tP = np.empty((TILE, nx))
-        for k in range(max(i0 - 1, 0), min(i0 + 1, ny)):
-            if dt_r != 0.0:
+        if dt_r != 0.0:
+            for k in range(max(i0 - 1, 0), min(i0 + 1, ny)):
                 _react_row(N, P, k, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
                            RN[k % 3], RP[k % 3], zb)
-            else:
-                RN[k % 3, :] = N[k]
-                RP[k % 3, :] = P[k]
         for t0 in range(i0, i1, TILE):
             t1 = min(t0 + TILE, i1)
             for i in range(t0, t1):
-                if i + 1 < ny:
-                    if dt_r != 0.0:
-                        _react_row(N, P, i + 1, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
-                                   RN[(i + 1) % 3], RP[(i + 1) % 3], zb)
-                    else:
-                        RN[(i + 1) % 3, :] = N[i + 1]
-                        RP[(i + 1) % 3, :] = P[i + 1]
-                _rhs_row(i, RN, tau, tau_e, alN, acN, wN, invN, bN, aN, gN)
-                _rhs_row(i, RP, tau, tau_e, alP, acP, wP, invP, bP, aP, gP)
+                if i + 1 < ny and dt_r != 0.0:
+                    _react_row(N, P, i + 1, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
+                               RN[(i + 1) % 3], RP[(i + 1) % 3], zb)
+                iu = i - 1 if i > 0 else 0
+                idn = i + 1 if i < ny - 1 else ny - 1
+                if dt_r != 0.0:
+                    _rhs_row(i, RN[iu % 3], RN[i % 3], RN[idn % 3], tau, tau_e, alN, acN, wN,
+                             invN, bN, aN, gN)
+                    _rhs_row(i, RP[iu % 3], RP[i % 3], RP[idn % 3], tau, tau_e, alP, acP, wP,
+                             invP, bP, aP, gP)
+                else:  # no reaction: read the input rows directly
+                    _rhs_row(i, N[iu], N[i], N[idn], tau, tau_e, alN, acN, wN, invN, bN, aN, gN)
+                    _rhs_row(i, P[iu], P[i], P[idn], tau, tau_e, alP, acP, wP, invP, bP, aP, gP)
                 k = i - t0
                 dn = 0.0
                 dp = 0.0
