@@ -195,8 +195,17 @@ def _front_position(u, level, h_km):
     return (k + (u[k] - level) / (u[k] - u[k + 1])) * h_km + 0.5 * h_km
 
 
-def _speed(times, positions):
-    return np.polyfit(times, positions, 1)[0]
+def _front_speed(st, N, P, species, level, t0=40.0, t1=80.0):
+    # regression of the front position on time, sampled every 2 years in [t0, t1] (km/yr)
+    ts, xs = [], []
+    k = 0
+    for t_out in np.arange(t0, t1 + 0.01, 2.0):
+        while k * st.dt < t_out - 1e-9:
+            st.step(N, P, k)
+            k += 1
+        ts.append(t_out)
+        xs.append(_front_position((N, P)[species][0], level, H_M / 1000))
+    return np.polyfit(ts, xs, 1)[0]
 
 
 def test_fisher_kpp_front_speed():
@@ -210,15 +219,7 @@ def test_fisher_kpp_front_speed():
     N = np.zeros((1, ncol))
     N[0, :20] = 1.0
     P = np.zeros((1, ncol))
-    ts, xs = [], []
-    k = 0
-    for t_out in np.arange(40.0, 80.01, 2.0):
-        while k * st.dt < t_out - 1e-9:
-            st.step(N, P, k)
-            k += 1
-        ts.append(t_out)
-        xs.append(_front_position(N[0], 0.5, H_M / 1000))
-    c = _speed(np.array(ts), np.array(xs))
+    c = _front_speed(st, N, P, 0, 0.5)
     c_star = theory.fisher_speed(r, D)
     assert c == pytest.approx(c_star, rel=0.02)
     assert c < c_star
@@ -239,15 +240,7 @@ def test_predator_invasion_speed_into_prey_at_capacity():
     N = np.full((1, ncol), K)
     P = np.zeros((1, ncol))
     P[0, :20] = 0.1
-    ts, xs = [], []
-    k = 0
-    for t_out in np.arange(40.0, 80.01, 2.0):
-        while k * st.dt < t_out - 1e-9:
-            st.step(N, P, k)
-            k += 1
-        ts.append(t_out)
-        xs.append(_front_position(P[0], 0.05, H_M / 1000))
-    c = _speed(np.array(ts), np.array(xs))
+    c = _front_speed(st, N, P, 1, 0.05)
     assert c == pytest.approx(c_star, rel=0.03)
     assert c < c_star * 1.001
 
