@@ -15,7 +15,7 @@ factors are positive while ``dt/2 * dg <= 1``. For the high-frequency content
 of sharp starts, the first ``damping_steps`` steps replace Peaceman–Rachford
 by two backward-Euler half steps (L-stable; Rannacher 1984, Numer Math
 43:309), which use the same prefactored matrices. Any remaining undershoot is
-removed by a mass-conserving clip (:func:`~preyscape.solve.kernels.make_positive`).
+removed by a mass-conserving clip (:func:`~preyscape.solve.kernels.fix_negative`).
 
 Schemes (``scheme``):
 
