@@ -236,6 +236,37 @@ class RunFolder:
 
         return xr.open_dataset(self.path / "results.nc", decode_times=False)
 
+    @property
+    def grid(self) -> Grid:
+        """The run grid (metres, CRS, data mask), read from ``results.nc``."""
+        with self.results as ds:
+            return grid_of(ds)
+
+
+def grid_of(ds) -> Grid:
+    """The :class:`Grid` of a results dataset (as written by :class:`ResultWriter`).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        An opened ``results.nc``: coordinates ``x``, ``y`` (cell centres,
+        metres), variables ``mask`` and ``spatial_ref``.
+    """
+    x = np.asarray(ds["x"].values, dtype=float)
+    y = np.asarray(ds["y"].values, dtype=float)
+    ref = ds["spatial_ref"].attrs if "spatial_ref" in ds else {}
+    gt = ref.get("GeoTransform")
+    if gt:
+        x0, dx, _, y0, _, ndy = (float(v) for v in str(gt).split())
+        dy = -ndy
+    else:  # from the centres (needs two cells per axis)
+        dx = float(x[1] - x[0]) if x.size > 1 else 1.0
+        dy = float(y[0] - y[1]) if y.size > 1 else 1.0
+        x0, y0 = float(x[0] - dx / 2), float(y[0] + dy / 2)
+    wkt = str(ref.get("crs_wkt") or ref.get("spatial_ref") or "")
+    mask = np.asarray(ds["mask"].values).astype(bool) if "mask" in ds else None
+    return Grid((y.size, x.size), x0, y0, dx, dy, wkt, mask)
+
 
 def open_run(path: str | Path) -> RunFolder:
     """Open a finished run folder.
