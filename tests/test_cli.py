@@ -203,7 +203,7 @@ def test_interrupted_run_leaves_no_folder(scenario_path, tmp_path, capsys, monke
     def interrupted(*args, **kwargs):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(solve_run, "integrate", interrupted)
+    monkeypatch.setattr(solve_run, "integrate_epochs", interrupted)
     out = tmp_path / "runs" / "stopped"
     status = main(["run", str(scenario_path), "--out", str(out), "--quiet"])
     err = capsys.readouterr().err

@@ -192,3 +192,93 @@ def test_hyphenated_misspelt_key_keeps_key_path(write_scenario):
     text = load_error(path)
     assert "run.save-every" in text
     assert "did you mean 'save_every'" in text
+
+
+# ---------------------------------------------------------------------------
+# measures, variants and analysis settings
+# ---------------------------------------------------------------------------
+FENCE = {"name": "north fence", "kind": "fence", "geometry": "habitat.tif",
+         "permeability": {"prey": 1.0, "predator": 0.0}}
+
+
+def test_fence_needs_permeability(write_scenario):
+    bad = {k: v for k, v in FENCE.items() if k != "permeability"}
+    text = load_error(write_scenario({"measures": [bad]}))
+    assert "measures[0]" in text and "permeability" in text
+
+
+def test_key_of_another_kind_is_refused(write_scenario):
+    text = load_error(write_scenario({"measures": [{**FENCE, "protected_fraction": 0.5}]}))
+    assert "'protected_fraction' does not apply to kind = 'fence'" in text
+
+
+def test_measure_needs_exactly_one_source(write_scenario):
+    text = load_error(write_scenario({"measures": [{**FENCE, "raster": "habitat.tif"}]}))
+    assert "exactly one of 'geometry'" in text
+
+
+def test_measure_file_must_exist(write_scenario):
+    text = load_error(write_scenario({"measures": [{**FENCE, "geometry": "nowhere.geojson"}]}))
+    assert "measures[0].geometry" in text and "not found" in text
+
+
+def test_switch_times_fall_on_save_points(write_scenario):
+    text = load_error(write_scenario({"measures": [{**FENCE, "start_year": 0.1}]}))
+    assert "measures[0].start_year" in text and "save_every" in text
+    text = load_error(write_scenario({"measures": [{**FENCE, "start_year": 0.25,
+                                                    "end_year": 0.25}]}))
+    assert "end_year" in text
+
+
+def test_variant_names_unknown_measure_with_suggestion(write_scenario):
+    path = write_scenario({"measures": [{**FENCE, "baseline": False}],
+                           "variants": [{"name": "v", "add": ["north fance"]}]})
+    text = load_error(path)
+    assert "variants[0].add" in text and "did you mean 'north fence'" in text
+
+
+def test_variant_may_not_change_the_grid(write_scenario):
+    path = write_scenario({"variants": [{"name": "v", "set": {"landscape.cell_size": 200.0}}]})
+    assert "cannot change in a variant" in load_error(path)
+
+
+def test_variant_override_is_validated_with_its_key(write_scenario):
+    sc = load_scenario(write_scenario({"variants": [{"name": "v",
+                                                     "set": {"predator.mortality": -1.0}}]}))
+    with pytest.raises(InputError) as info:
+        sc.for_variant("v")
+    text = str(info.value)
+    assert "variant 'v'" in text and "predator.mortality" in text
+    sc = load_scenario(write_scenario({"variants": [{"name": "w", "set": {"predator.mortalty":
+                                                                           1.0}}]}))
+    with pytest.raises(InputError) as info:
+        sc.for_variant("w")
+    assert "mortalty" in str(info.value)
+
+
+def test_variant_measures_and_unknown_variant(write_scenario):
+    path = write_scenario({"measures": [FENCE, {**FENCE, "name": "b", "baseline": False}],
+                           "variants": [{"name": "swap", "add": ["b"],
+                                         "remove": ["north fence"]}]})
+    sc = load_scenario(path)
+    assert [m.name for m in sc.active_measures()] == ["north fence"]
+    assert [m.name for m in sc.for_variant("swap").active_measures()] == ["b"]
+    assert sc.variant_names() == ["baseline", "swap"]
+    with pytest.raises(InputError) as info:
+        sc.for_variant("swop")
+    assert "did you mean 'swap'" in str(info.value)
+
+
+def test_baseline_is_a_reserved_variant_name(write_scenario):
+    text = load_error(write_scenario({"variants": [{"name": "baseline"}]}))
+    assert "'baseline' is the name of the run without variants" in text
+
+
+def test_analysis_settings(write_scenario):
+    sc = load_scenario(write_scenario({"analysis": {
+        "hotspot_distance": 300.0,
+        "transects": [{"name": "t", "points": [[1.0, 2.0], [3.0, 4.0]]}]}}))
+    assert sc.analysis.hotspot_distance == 300.0 and sc.analysis.presence == 1.0
+    text = load_error(write_scenario({"analysis": {"transects": [{"name": "t",
+                                                                  "points": [[1.0, 2.0]]}]}}))
+    assert "analysis.transects[0].points" in text

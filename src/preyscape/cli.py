@@ -30,9 +30,14 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"preyscape {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    r = sub.add_parser("run", help="run a scenario into a run folder")
+    r = sub.add_parser("run", help="run a scenario (baseline and variants) into run folders")
     r.add_argument("scenario", type=Path, help="scenario file (TOML)")
-    r.add_argument("--out", type=Path, help="run folder to create (default: runs/<scenario name>)")
+    r.add_argument("--out", type=Path,
+                   help="run folder to create (default: runs/<scenario name>); with variants, "
+                   "the folder that holds one run folder per variant")
+    r.add_argument("--variant", action="append", metavar="NAME",
+                   help="run only this variant ('baseline' for the scenario without variants); "
+                   "repeat for several")
     r.add_argument("--overwrite", action="store_true", help="replace an existing run folder")
     r.add_argument("--quiet", action="store_true", help="no progress bar or summary")
 
@@ -93,6 +98,16 @@ def _print_check(path: Path, d: dict) -> None:
         f"results on disk     {d['snapshots']} snapshots, at most "
         f"{_fmt(d['disk_mb'], 'MB', 3)} before compression",
     ]
+    for m in d.get("measures", []):
+        size = (f"{m['cells']} cells, {m['area_km2']:.3g} km²" if "cells" in m else "")
+        if "faces" in m:
+            size += (", " if size else "") + f"{m['faces']} cell faces"
+        when = f"years {m['start_year']:g}–{'end' if m['end_year'] is None else m['end_year']}"
+        lines.append(f"measure             {m['kind']} '{m['name']}': {size}; {when}")
+    for v in d.get("variants", []):
+        parts = [f"+{a}" for a in v["add"]] + [f"-{r}" for r in v["remove"]]
+        parts += [f"{k} = {x}" for k, x in v["set"].items()]
+        lines.append(f"variant             {v['name']}: {', '.join(parts) or 'as baseline'}")
     print("\n".join(lines))
 
 
@@ -100,8 +115,10 @@ def _summary(folder: Path) -> None:
     info = json.loads((folder / "run.json").read_text())
     print(f"run folder: {folder}")
     print(f"  {info['steps']} steps of {info['step_years']:.4g} yr in {info['wall_time_s']:.1f} s")
+    if info.get("variant", "baseline") != "baseline" or info.get("measures"):
+        ms = ", ".join(m["name"] for m in info.get("measures", [])) or "none"
+        print(f"  variant {info.get('variant', 'baseline')}; measures: {ms}")
     print("  results.nc, summary/*.tif, maps/*.png, run.json")
-    print(f"  {CAUTION}")
 
 
 def _demo_out(out: Path | None) -> Path:
@@ -135,9 +152,17 @@ def main(argv: list[str] | None = None) -> int:
         from preyscape.pipeline import simulate
 
         if args.command == "run":
+            from preyscape.pipeline import simulate_variants
+
             out = args.out or Path("runs") / args.scenario.stem
             progress = False if args.quiet else None
-            folder = simulate(args.scenario, out, overwrite=args.overwrite, progress=progress)
+            folders = simulate_variants(args.scenario, out, args.variant,
+                                        overwrite=args.overwrite, progress=progress)
+            if not args.quiet:
+                for folder in folders.values():
+                    _summary(folder)
+                print(f"  {CAUTION}")
+            return 0
         else:  # demo
             from preyscape.demo import demo_scenario
 
@@ -146,6 +171,7 @@ def main(argv: list[str] | None = None) -> int:
                               progress=False if args.quiet else None)
         if not args.quiet:
             _summary(folder)
+            print(f"  {CAUTION}")
         return 0
     except InputError as exc:
         print(f"preyscape: error: {exc}", file=sys.stderr)

@@ -13,7 +13,7 @@ import math
 import os
 import shutil
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -30,8 +30,51 @@ from preyscape.model.fields import (
 )
 from preyscape.model.movement import Movement, build_movement
 from preyscape.model.reactions import Interaction
-from preyscape.scenario import Scenario, load_scenario
-from preyscape.solve.stepper import Stepper, auto_step
+from preyscape.scenario import MeasureSpec, Scenario, load_scenario
+from preyscape.solve.stepper import StepStats, Stepper, auto_step
+
+
+@dataclass(eq=False)
+class MeasureLayer:
+    """A measure placed on the grid.
+
+    Attributes
+    ----------
+    spec : MeasureSpec
+        The measure's settings.
+    cells : numpy.ndarray of bool or None
+        Cells a corridor or refuge covers.
+    faces : tuple of numpy.ndarray or None
+        Faces a fence acts on, ``(between columns (rows, cols+1), between rows
+        (rows+1, cols))``; for a refuge closed to predators, its outline.
+    shapes : list
+        The geometries in the grid's CRS (empty for a raster measure).
+    """
+
+    spec: MeasureSpec
+    cells: np.ndarray | None
+    faces: tuple[np.ndarray, np.ndarray] | None
+    shapes: list
+
+    def summary(self, grid: Grid) -> dict:
+        """Name, kind, timing and size on the grid (cells, km², faces) for ``run.json``."""
+        m = self.spec
+        out = {"name": m.name, "kind": m.kind, "start_year": m.start_year,
+               "end_year": m.end_year, "source": m.geometry or m.raster}
+        if self.cells is not None:
+            n = int(self.cells.sum())
+            out.update(cells=n, area_km2=round(n * grid.cell_area_km2, 6))
+        if self.faces is not None:
+            out["faces"] = int(self.faces[0].sum() + self.faces[1].sum())
+        if m.kind == "fence":
+            out["permeability"] = m.permeability.model_dump()
+            out["gaps"] = [g.model_dump() for g in m.gaps]
+        elif m.kind == "refuge":
+            out.update(protected_fraction=m.protected_fraction,
+                       closed_to_predators=m.closed_to_predators)
+        else:
+            out["sets"] = m.sets()
+        return out
 
 
 @dataclass(eq=False)
@@ -56,6 +99,14 @@ class Setup:
         Initial densities, animals/km².
     dt : float
         Step, years.
+    refuge : numpy.ndarray or None
+        Share of prey shielded from predation per cell (0–1) at the start.
+    layers : list of MeasureLayer
+        The measures of this variant, placed on the grid.
+    epochs : list of (float, float, tuple of str)
+        ``(t0, t1, names of the measures acting)`` in years.
+    mult : dict
+        Habitat multipliers before measures (kept to rebuild later epochs).
     """
 
     scenario: Scenario
@@ -68,6 +119,10 @@ class Setup:
     N0: np.ndarray
     P0: np.ndarray
     dt: float
+    refuge: np.ndarray | None = None
+    layers: list[MeasureLayer] = field(default_factory=list)
+    epochs: list[tuple[float, float, tuple[str, ...]]] = field(default_factory=list)
+    mult: dict | None = None
 
     def release_build_arrays(self) -> None:
         """Drop the arrays only needed to build a run (capacity and movement fields, start).
@@ -79,13 +134,26 @@ class Setup:
         empty = np.zeros((0, 0), dtype=np.float32)
         self.fields = Fields(empty, f.r, f.inv_K, f.m, empty, empty)
         self.N0 = self.P0 = np.zeros((0, 0))
+        if len(self.epochs) <= 1:
+            self.mult = None
 
-    def stepper(self) -> Stepper:
-        """A fresh :class:`Stepper` for this setup."""
+    def stepper(self, stats: StepStats | None = None) -> Stepper:
+        """A fresh :class:`Stepper` for the start of the run (epoch 0)."""
         f = self.fields
         return Stepper(
             self.grid.mask, self.prey_movement, self.predator_movement, f.r, f.inv_K, f.m,
-            self.interaction, self.dt, scheme=self.scenario.run.scheme,
+            self.interaction, self.dt, refuge=self.refuge, scheme=self.scenario.run.scheme,
+            stats=stats if stats is not None else StepStats(),
+        )
+
+    def epoch_stepper(self, k: int, stats: StepStats) -> Stepper:
+        """The :class:`Stepper` of epoch ``k`` (measures switched on or off at its start)."""
+        if k == 0:
+            return self.stepper(stats)
+        fields, mv_n, mv_p, refuge = assemble(self, self.epochs[k][2])
+        return Stepper(
+            self.grid.mask, mv_n, mv_p, fields.r, fields.inv_K, fields.m, self.interaction,
+            self.dt, refuge=refuge, scheme=self.scenario.run.scheme, stats=stats,
         )
 
 
@@ -132,14 +200,14 @@ def prepare(sc: Scenario) -> Setup:
         mult = multipliers_from_suitability(habitat, grid.mask)
         habitat = habitat.astype(np.float32)  # kept for output only
     inter = interaction_of(sc)
-    fields = build_fields(
-        mult, grid.mask, sc.prey.growth, sc.prey.capacity, sc.predator.mortality,
-        sc.prey.move_coefficient, sc.predator.move_coefficient, inter.logistic,
-    )
-    mvs = [
-        build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge, ls.nodata)
-        for coef, spec in ((fields.prey_move, sc.prey), (fields.predator_move, sc.predator))
-    ]
+    mult = {k: np.asarray(v, dtype=np.float32) for k, v in mult.items()}
+    layers = place_measures(sc, grid)
+    epochs = measure_epochs(sc, layers)
+    setup = Setup(sc, grid, habitat, None, None, None, inter, np.zeros((0, 0)),
+                  np.zeros((0, 0)), 0.0, None, layers, epochs, mult)
+    fields, mv_n, mv_p, refuge = assemble(setup, epochs[0][2])
+    setup.fields, setup.prey_movement, setup.predator_movement = fields, mv_n, mv_p
+    setup.refuge = refuge
 
     # initial state
     st = sc.start
@@ -182,7 +250,12 @@ def prepare(sc: Scenario) -> Setup:
     N0 = np.ascontiguousarray(np.where(mask, N0, 0.0))
     P0 = np.ascontiguousarray(np.where(mask, P0, 0.0))
 
-    dt = float(sc.run.step) if sc.run.step != "auto" else _auto_dt(sc, fields, inter, P0)
+    if sc.run.step != "auto":
+        dt = float(sc.run.step)
+    else:  # the shortest step any epoch needs (a corridor may raise growth or capacity)
+        dt = _auto_dt(sc, fields, inter, P0)
+        for _, _, names in epochs[1:]:
+            dt = min(dt, _auto_dt(sc, assemble(setup, names)[0], inter, P0))
     if sc.run.step != "auto":
         n = sc.run.save_every / dt
         if abs(n - round(n)) > 1e-9 * n:
@@ -192,7 +265,130 @@ def prepare(sc: Scenario) -> Setup:
                 f"{sc.run.save_every / max(1, math.ceil(n)):g}",
                 _source(sc, "run.step"),
             )
-    return Setup(sc, grid, habitat, fields, mvs[0], mvs[1], inter, N0, P0, dt)
+    setup.N0, setup.P0, setup.dt = N0, P0, dt
+    return setup
+
+
+def place_measures(sc: Scenario, grid: Grid) -> list[MeasureLayer]:
+    """Read the geometry or raster of each measure of the scenario's variant onto ``grid``.
+
+    Raises
+    ------
+    InputError
+        For unreadable files, geometries outside the landscape, or a measure
+        that covers no cell with data (or crosses no face).
+    """
+    out: list[MeasureLayer] = []
+    if not sc.active_measures():
+        return out
+    from preyscape.landscape import measures as lm
+
+    for m in sc.active_measures():
+        k = sc.measures.index(m)
+        key = f"measures[{k}].{'geometry' if m.geometry else 'raster'}"
+        src = _source(sc, f"{key} ({m.geometry or m.raster})")
+        shapes: list = []
+        cells = faces = None
+        if m.geometry:
+            shapes = lm.read_geometry(sc.resolve(m.geometry), grid, crs=m.crs, source=src)
+        if m.kind == "fence":
+            if m.geometry:
+                gaps = [(g.x, g.y, g.width) for g in m.gaps]
+                faces = lm.fence_faces(shapes, grid, gaps=gaps)
+            else:
+                faces = lm.outline_faces(lm.cells_from_raster(sc.resolve(m.raster), grid, src)
+                                         & grid.mask)
+            if not (faces[0].any() or faces[1].any()):
+                raise InputError("the fence crosses no cell face inside the landscape; check "
+                                 "its coordinates and CRS", src)
+        else:
+            if m.geometry:
+                cells = lm.cells_covered(shapes, grid, buffer_m=m.buffer)
+            else:
+                cells = lm.cells_from_raster(sc.resolve(m.raster), grid, src)
+            cells = cells & grid.mask
+            if not cells.any():
+                raise InputError(f"the {m.kind} covers no cell with habitat data; check its "
+                                 "coordinates and CRS", src)
+            if m.kind == "refuge" and m.closed_to_predators:
+                faces = lm.outline_faces(cells)
+        out.append(MeasureLayer(m, cells, faces, shapes))
+    return out
+
+
+def measure_epochs(sc: Scenario, layers: list[MeasureLayer]) -> list[
+        tuple[float, float, tuple[str, ...]]]:
+    """Split the run at the times measures switch on or off.
+
+    Returns ``(t0, t1, names of the measures acting in [t0, t1))`` in years,
+    consecutive from 0 to ``run.years``.
+    """
+    years = sc.run.years
+    cuts = {0.0, years}
+    for layer in layers:
+        m = layer.spec
+        for t in (m.start_year, m.end_year):
+            if t is not None and 0.0 < t < years:
+                cuts.add(float(t))
+    times = sorted(cuts)
+    out = []
+    for t0, t1 in zip(times[:-1], times[1:], strict=True):
+        names = tuple(x.spec.name for x in layers if x.spec.active(t0, t1))
+        if out and out[-1][2] == names:
+            out[-1] = (out[-1][0], t1, names)
+        else:
+            out.append((t0, t1, names))
+    return out
+
+
+def assemble(setup: Setup, names: tuple[str, ...]) -> tuple[
+        Fields, Movement, Movement, np.ndarray | None]:
+    """Fields, movement operators and refuge share with the named measures acting.
+
+    Corridors replace the habitat multipliers (or suitability) on their cells,
+    fences multiply the permeability of the faces they cross (two fences on one
+    face act in series), and refuges shield ``protected_fraction`` of prey;
+    overlapping refuges combine as ``1 - (1 - f1)(1 - f2)``.
+    """
+    sc, grid = setup.scenario, setup.grid
+    on = [x for x in setup.layers if x.spec.name in names]
+    mult = {k: np.array(v, dtype=float) for k, v in setup.mult.items()}
+    for x in on:
+        if x.spec.kind != "corridor":
+            continue
+        for key, value in x.spec.sets().items():
+            target = "prey_capacity" if key == "suitability" else key
+            mult[target][x.cells] = value
+    fields = build_fields(
+        mult, grid.mask, sc.prey.growth, sc.prey.capacity, sc.predator.mortality,
+        sc.prey.move_coefficient, sc.predator.move_coefficient, setup.interaction.logistic,
+    )
+    del mult
+    ny, nx = grid.shape
+    perm = {sp: [np.ones((ny, nx + 1)), np.ones((ny + 1, nx))] for sp in ("prey", "predator")}
+    refuge = None
+    for x in on:
+        m = x.spec
+        if m.kind == "fence":
+            for sp in ("prey", "predator"):
+                p = getattr(m.permeability, sp)
+                perm[sp][0][x.faces[0]] *= p
+                perm[sp][1][x.faces[1]] *= p
+        elif m.kind == "refuge":
+            if refuge is None:
+                refuge = np.zeros(grid.shape)
+            refuge[x.cells] = 1.0 - (1.0 - refuge[x.cells]) * (1.0 - m.protected_fraction)
+            if x.faces is not None:
+                perm["predator"][0][x.faces[0]] = 0.0
+                perm["predator"][1][x.faces[1]] = 0.0
+    ls = sc.landscape
+    mvs = [
+        build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge, ls.nodata,
+                       perm_x=perm[sp][0], perm_y=perm[sp][1])
+        for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
+                               ("predator", fields.predator_move, sc.predator))
+    ]
+    return fields, mvs[0], mvs[1], refuge
 
 
 def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
@@ -222,6 +418,19 @@ def _auto_dt(sc: Scenario, fields: Fields, inter: Interaction, P0: np.ndarray) -
     period = theory.local_stability(inter, b["r"], b["K"] if inter.logistic else None,
                                     b["m"])["period"]
     return auto_step(rates, period, sc.run.save_every)
+
+
+def _predictions(setup: Setup) -> dict:
+    """The published predictions a report sets results against (from :func:`derived`)."""
+    d = derived(setup)
+    keys = ("equilibrium", "stable", "period_years", "hopf_capacity", "lv_period_years",
+            "prey_front_speed", "predator_front_speed", "best_habitat")
+    out = {k: d[k] for k in keys}
+    out["equilibrium"] = [None if not math.isfinite(v) else v for v in out["equilibrium"]]
+    out["growth"] = setup.scenario.prey.growth
+    out["prey_movement"] = setup.scenario.prey.move_coefficient
+    out["predator_movement"] = setup.scenario.predator.move_coefficient
+    return out
 
 
 def derived(setup: Setup) -> dict:
@@ -272,6 +481,11 @@ def derived(setup: Setup) -> dict:
         "memory_mb": 250 + cells * 180 / 1e6,
         "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
         "snapshots": n_snap,
+        "measures": [x.summary(g) for x in setup.layers],
+        "variants": [
+            {"name": v.name, "add": list(v.add), "remove": list(v.remove), "set": dict(v.set)}
+            for v in sc.variants
+        ],
     }
 
 
@@ -341,7 +555,7 @@ def simulate(
     """
     from preyscape import store
     from preyscape.solve.kernels import warm_up
-    from preyscape.solve.run import integrate
+    from preyscape.solve.run import integrate_epochs
 
     _return_freed_memory()
     sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
@@ -369,28 +583,39 @@ def simulate(
              "scenario_sha256": digest, "history": f"{store.now_iso()} preyscape run"},
             habitat=setup.habitat,
         )
+        predictions = _predictions(setup)
+        layers = store.write_measures(tmp / "measures", setup.grid, setup.layers)
         N, P = setup.N0, setup.P0  # this setup is private to the run: no copies
         setup.release_build_arrays()  # memory: one copy of each field during the run
-        stepper = setup.stepper()
         grid, habitat = setup.grid, setup.habitat
+        stats = StepStats()
+        epochs = setup.epochs
+
+        def make_stepper(k: int) -> Stepper:
+            st = setup.epoch_stepper(k, stats)
+            store.save_operators(tmp / "operators" / f"epoch_{k}.npz", epochs[k][:2],
+                                 st.prey_movement, st.predator_movement)
+            return st
+
         try:
-            integrate(stepper, N, P, sc.run.years, sc.run.save_every,
-                      _FolderSink(writer, tmp, setup.dt), progress=progress)
+            integrate_epochs(make_stepper, [e[:2] for e in epochs], N, P, sc.run.save_every,
+                             setup.dt, _FolderSink(writer, tmp, setup.dt), progress=progress)
         finally:
             writer.close()
         finals = {k: np.where(grid.mask, v, np.nan) for k, v in (("prey", N), ("predator", P))}
-        stats, dt, n_snapshots = stepper.stats, setup.dt, writer.n
-        del N, P, stepper, setup, writer  # free the run's arrays before the summaries
+        dt, n_snapshots = setup.dt, writer.n
+        del N, P, setup, writer  # free the run's arrays before the summaries
         means = store.time_means(tmp / "results.nc", grid.mask)
         store.write_summaries(tmp / "summary", grid, means, finals)
         if maps:
             from preyscape import plots
 
-            plots.draw_run(tmp, sc, grid, habitat, means, finals)
+            plots.draw_run(tmp, sc, grid, habitat, means, finals, layers)
         wall = time.perf_counter() - t0
         record = {
             "preyscape_version": __version__,
             "scenario": str(sc.path),
+            "variant": sc.variant,
             "scenario_sha256": digest,
             "title": sc.title,
             "seed": sc.run.seed,
@@ -404,6 +629,13 @@ def simulate(
                      "cell_size_m": [grid.dx, grid.dy],
                      "cells_with_data": grid.n_cells},
             "species": names,
+            "measures": layers,
+            "epochs": [{"start_year": a, "end_year": b, "measures": list(n)}
+                       for a, b, n in epochs],
+            "predictions": predictions,
+            "analysis": sc.analysis.model_dump(mode="json"),
+            "classes": ({str(c.code): c.name for c in sc.landscape.classes}
+                        if sc.landscape.values == "classes" else None),
             "positivity_clip_total": stats.clipped,
             "wall_time_s": round(wall, 3),
             "compile_or_cache_load_s": round(compiled, 3),
@@ -417,3 +649,69 @@ def simulate(
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     return out
+
+
+def plan_variants(
+    scenario: Scenario | str | Path,
+    out: str | Path,
+    variants: list[str] | None = None,
+    overwrite: bool = False,
+) -> dict[str, tuple[Scenario, Path]]:
+    """The scenario and run folder of each variant to run, checked before any run starts.
+
+    A scenario without ``[[variants]]`` (and no ``variants`` asked for) has
+    one run folder, ``out`` itself. Otherwise ``out`` holds one run folder per
+    variant, named after it (``out/baseline``, ``out/<variant>``).
+
+    Raises
+    ------
+    InputError
+        For an unknown variant name, an invalid override, or an existing run
+        folder when ``overwrite`` is False.
+    """
+    sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
+    out = Path(out)
+    if not sc.variants and not variants:
+        plan = {sc.variant: (sc, out)}
+    else:
+        names = variants or sc.variant_names()
+        plan = {n: (sc.for_variant(n), out / n) for n in dict.fromkeys(names)}
+    if not overwrite:
+        for _, folder in plan.values():
+            if folder.exists():
+                raise InputError(
+                    "run folder already exists; choose another with --out or pass --overwrite "
+                    "to replace it", str(folder),
+                )
+    return plan
+
+
+def simulate_variants(
+    scenario: Scenario | str | Path,
+    out: str | Path,
+    variants: list[str] | None = None,
+    overwrite: bool = False,
+    progress: bool | None = None,
+    maps: bool = True,
+) -> dict[str, Path]:
+    """Run the baseline and the variants of a scenario, each into its own run folder.
+
+    Parameters
+    ----------
+    scenario : Scenario or path
+        The scenario (or its TOML file).
+    out : str or pathlib.Path
+        The run folder (no variants) or the folder of run folders.
+    variants : list of str, optional
+        Names to run (``"baseline"`` included); default all.
+    overwrite, progress, maps
+        As for :func:`simulate`.
+
+    Returns
+    -------
+    dict
+        Variant name to run folder, in the order run.
+    """
+    plan = plan_variants(scenario, out, variants, overwrite)
+    return {name: simulate(sc, folder, overwrite=overwrite, progress=progress, maps=maps)
+            for name, (sc, folder) in plan.items()}

@@ -199,6 +199,187 @@ class RunSpec(_Strict):
         return v
 
 
+MeasureKind = Literal["corridor", "fence", "refuge"]
+Name = Annotated[str, Field(min_length=1, max_length=80, pattern=r"^[A-Za-z0-9][A-Za-z0-9 _.-]*$")]
+SpeciesName = Literal["prey", "predator"]
+
+_KIND_KEYS = {
+    "fence": {"permeability", "gaps"},
+    "corridor": {"buffer", "prey_capacity", "prey_growth", "prey_movement",
+                 "predator_mortality", "predator_movement", "suitability"},
+    "refuge": {"protected_fraction", "closed_to_predators", "buffer"},
+}
+
+
+class Gap(_Strict):
+    """An opening in a fence: centre (map metres) and width (metres)."""
+
+    x: Coordinate
+    y: Coordinate
+    width: Positive
+
+
+class Permeability(_Strict):
+    """Per-species fence permeability, 0 (impassable) to 1 (no effect)."""
+
+    prey: Fraction = 1.0
+    predator: Fraction = 1.0
+
+
+class MeasureSpec(_Strict):
+    """One ``[[measures]]`` entry: a corridor, fence or refuge (see docs/measures.md)."""
+
+    name: Name
+    kind: MeasureKind
+    geometry: str | None = None
+    raster: str | None = None
+    crs: str | None = None
+    start_year: NonNegative = 0.0
+    end_year: Positive | None = None
+    baseline: bool = True
+    # fence
+    permeability: Permeability | None = None
+    gaps: tuple[Gap, ...] = ()
+    # corridor (and buffered lines of refuges)
+    buffer: NonNegative = 0.0
+    prey_capacity: NonNegative | None = None
+    prey_growth: NonNegative | None = None
+    prey_movement: NonNegative | None = None
+    predator_mortality: NonNegative | None = None
+    predator_movement: NonNegative | None = None
+    suitability: Fraction | None = None
+    # refuge
+    protected_fraction: Fraction | None = None
+    closed_to_predators: bool = False
+
+    @model_validator(mode="before")
+    @classmethod
+    def _keys_of_kind(cls, data: Any) -> Any:
+        if isinstance(data, dict) and data.get("kind") in _KIND_KEYS:
+            kind = data["kind"]
+            own = _KIND_KEYS[kind]
+            for other, keys in _KIND_KEYS.items():
+                for k in sorted(keys - own):
+                    if k in data and other != kind:
+                        raise ValueError(f"'{k}' does not apply to kind = '{kind}' (it belongs "
+                                         f"to kind = '{other}')")
+        return data
+
+    @model_validator(mode="after")
+    def _complete(self) -> MeasureSpec:
+        if (self.geometry is None) == (self.raster is None):
+            raise ValueError("give exactly one of 'geometry' (a GeoJSON file) and 'raster' "
+                             "(a raster marking the cells)")
+        if self.crs is not None and self.geometry is None:
+            raise ValueError("'crs' applies to a GeoJSON 'geometry' only; a raster carries its "
+                             "own CRS")
+        if self.end_year is not None and self.end_year <= self.start_year:
+            raise ValueError(f"end_year ({self.end_year}) must be after start_year "
+                             f"({self.start_year})")
+        if self.kind == "fence" and self.permeability is None:
+            raise ValueError("a fence needs 'permeability', e.g. permeability = { prey = 1.0, "
+                             "predator = 0.0 } for a predator-proof fence")
+        if self.kind == "refuge" and self.protected_fraction is None:
+            raise ValueError("a refuge needs 'protected_fraction' (0-1): the share of prey "
+                             "shielded from predation on its cells")
+        if self.kind == "corridor" and not self.sets():
+            raise ValueError("a corridor needs at least one habitat value to set: "
+                             + ", ".join(CORRIDOR_KEYS))
+        return self
+
+    def sets(self) -> dict[str, float]:
+        """Habitat values a corridor sets on its cells (multipliers, or suitability)."""
+        return {k: getattr(self, k) for k in CORRIDOR_KEYS if getattr(self, k) is not None}
+
+    def active(self, t0: float, t1: float) -> bool:
+        """Whether the measure acts during ``[t0, t1)`` (years since the start)."""
+        end = math.inf if self.end_year is None else self.end_year
+        return self.start_year <= t0 and t1 <= end
+
+
+CORRIDOR_KEYS = ("prey_capacity", "prey_growth", "prey_movement", "predator_mortality",
+                 "predator_movement", "suitability")
+
+# keys a variant may not change: they decide the grid or the variant machinery itself
+_FIXED_FOR_VARIANTS = ("landscape.habitat", "landscape.values", "landscape.cell_size",
+                       "measures", "variants", "title")
+
+
+class VariantSpec(_Strict):
+    """One ``[[variants]]`` entry: measures added or removed, parameters overridden."""
+
+    name: Name
+    notes: str = ""
+    add: tuple[str, ...] = ()
+    remove: tuple[str, ...] = ()
+    set: dict[str, Any] = Field(default_factory=dict)
+
+    @field_validator("set", mode="before")
+    @classmethod
+    def _flatten(cls, v: Any) -> Any:
+        # TOML reads unquoted dotted keys (predator.mortality = 1.2) as nested tables
+        if not isinstance(v, dict):
+            return v
+        out: dict[str, Any] = {}
+
+        def walk(prefix: str, node: dict) -> None:
+            for k, x in node.items():
+                key = f"{prefix}.{k}" if prefix else str(k)
+                if isinstance(x, dict):
+                    walk(key, x)
+                else:
+                    out[key] = x
+
+        walk("", v)
+        return out
+
+    @field_validator("name")
+    @classmethod
+    def _not_baseline(cls, v: str) -> str:
+        if v == BASELINE:
+            raise ValueError("'baseline' is the name of the run without variants; choose "
+                             "another name")
+        return v
+
+
+BASELINE = "baseline"
+
+
+class Transect(_Strict):
+    """A line for front speeds and fluxes: two or more points in map metres."""
+
+    name: Name
+    points: tuple[tuple[Coordinate, Coordinate], ...] = Field(min_length=2)
+
+
+class Target(_Strict):
+    """A patch to be colonised (polygon GeoJSON or marking raster)."""
+
+    name: Name
+    geometry: str | None = None
+    raster: str | None = None
+    crs: str | None = None
+
+    @model_validator(mode="after")
+    def _one(self) -> Target:
+        if (self.geometry is None) == (self.raster is None):
+            raise ValueError("give exactly one of 'geometry' and 'raster'")
+        return self
+
+
+class AnalysisSpec(_Strict):
+    """``[analysis]``: settings for hotspots, fronts and effects (all optional)."""
+
+    presence: Positive = 1.0
+    hotspot_distance: Positive | None = None
+    significance: Annotated[float, Field(gt=0, lt=1, strict=True)] = 0.05
+    prey_threshold: Positive | None = None
+    predator_threshold: Positive | None = None
+    change_threshold: Annotated[float, Field(gt=0, strict=True)] = 0.10
+    transects: tuple[Transect, ...] = ()
+    targets: tuple[Target, ...] = ()
+
+
 class Scenario(_Strict):
     """A whole scenario file.
 
@@ -216,7 +397,12 @@ class Scenario(_Strict):
     interaction: InteractionSpec
     start: StartSpec = StartSpec()
     run: RunSpec
+    measures: tuple[MeasureSpec, ...] = ()
+    variants: tuple[VariantSpec, ...] = ()
+    analysis: AnalysisSpec = AnalysisSpec()
+    variant: str = BASELINE
     path: Path = Field(default=Path("scenario.toml"), exclude=True)
+    raw: dict = Field(default_factory=dict, exclude=True, repr=False)
 
     @model_validator(mode="after")
     def _capacity(self) -> Scenario:
@@ -225,6 +411,122 @@ class Scenario(_Strict):
             why = f"form '{self.interaction.form}'" if logistic else "start.prey = 'capacity'"
             raise ValueError(f"prey.capacity (animals/km² at best habitat) is needed by {why}")
         return self
+
+    @model_validator(mode="after")
+    def _measures(self) -> Scenario:
+        names = [m.name for m in self.measures]
+        dup = sorted({n for n in names if names.count(n) > 1})
+        if dup:
+            raise ValueError(f"measure name '{dup[0]}' appears more than once in [[measures]]")
+        vnames = [v.name for v in self.variants]
+        dup = sorted({n for n in vnames if vnames.count(n) > 1})
+        if dup:
+            raise ValueError(f"variant name '{dup[0]}' appears more than once in [[variants]]")
+        for k, m in enumerate(self.measures):
+            for key in ("start_year", "end_year"):
+                t = getattr(m, key)
+                if t is None:
+                    continue
+                if t > self.run.years:
+                    raise ValueError(f"measures[{k}].{key}: {t:g} yr is after the end of the run "
+                                     f"(run.years = {self.run.years:g})")
+                n = t / self.run.save_every
+                if abs(n - round(n)) > 1e-9 * max(1.0, n):
+                    raise ValueError(
+                        f"measures[{k}].{key}: {t:g} yr is not a whole number of save intervals "
+                        f"(run.save_every = {self.run.save_every:g} yr); measures switch at save "
+                        "points so the saved state before the switch is exact")
+            if m.kind == "corridor" and "suitability" in m.sets() and (
+                    self.landscape.values != "suitability"):
+                raise ValueError(f"measures[{k}].suitability applies to a suitability landscape; "
+                                 "with a class raster set multipliers such as prey_capacity")
+            if m.kind == "corridor" and self.landscape.values == "suitability" and (
+                    set(m.sets()) - {"suitability", "prey_movement", "predator_movement"}):
+                raise ValueError(f"measures[{k}]: on a suitability landscape a corridor sets "
+                                 "suitability, prey_movement or predator_movement")
+        for k, v in enumerate(self.variants):
+            for key in ("add", "remove"):
+                for name in getattr(v, key):
+                    if name not in names:
+                        near = difflib.get_close_matches(name, names, n=1, cutoff=0.6)
+                        hint = f"; did you mean '{near[0]}'?" if near else ""
+                        raise ValueError(f"variants[{k}].{key}: no measure named '{name}'{hint} "
+                                         f"Measures: {', '.join(names) or 'none'}")
+            for name in v.add:
+                if self.measure(name).baseline:
+                    raise ValueError(f"variants[{k}].add: measure '{name}' is already in the "
+                                     "baseline (baseline = true); set baseline = false on it")
+            for name in v.remove:
+                if not self.measure(name).baseline:
+                    raise ValueError(f"variants[{k}].remove: measure '{name}' is not in the "
+                                     "baseline (baseline = false), so there is nothing to remove")
+            for key in v.set:
+                if any(key == f or key.startswith(f + ".") for f in _FIXED_FOR_VARIANTS):
+                    raise ValueError(
+                        f"variants[{k}].set: '{key}' cannot change in a variant (every variant "
+                        "runs on the same grid with the scenario's own measures); allowed are "
+                        "keys such as 'prey.growth', 'predator.mortality', 'interaction.'"
+                        "attack_rate', 'run.years'")
+        if self.variant != BASELINE and self.variant not in vnames:
+            raise ValueError(f"variant '{self.variant}' is not defined")
+        return self
+
+    def measure(self, name: str) -> MeasureSpec:
+        """The measure called ``name``."""
+        for m in self.measures:
+            if m.name == name:
+                return m
+        raise KeyError(name)
+
+    def variant_names(self) -> list[str]:
+        """``"baseline"`` and the names of every variant, in file order."""
+        return [BASELINE] + [v.name for v in self.variants]
+
+    def active_measures(self) -> list[MeasureSpec]:
+        """The measures of this scenario's variant (baseline ones, plus added, less removed)."""
+        on = {m.name for m in self.measures if m.baseline}
+        if self.variant != BASELINE:
+            v = next(v for v in self.variants if v.name == self.variant)
+            on = (on | set(v.add)) - set(v.remove)
+        return [m for m in self.measures if m.name in on]
+
+    def for_variant(self, name: str) -> Scenario:
+        """The scenario of variant ``name`` (``"baseline"``: this scenario's baseline).
+
+        Parameter overrides (``set``) are applied to the file's values and the
+        result is validated again, so a bad override is reported with its key.
+
+        Raises
+        ------
+        InputError
+            For an unknown variant or an invalid override.
+        """
+        if name not in self.variant_names():
+            near = difflib.get_close_matches(name, self.variant_names(), n=1, cutoff=0.5)
+            hint = f"; did you mean '{near[0]}'?" if near else ""
+            raise InputError(f"no variant named '{name}'{hint} Variants: "
+                             f"{', '.join(self.variant_names())}", str(self.path))
+        data = json.loads(json.dumps(self.raw)) if self.raw else self.model_dump(
+            mode="json", exclude_none=True)
+        data["variant"] = name
+        if name != BASELINE:
+            v = next(v for v in self.variants if v.name == name)
+            k = self.variant_names().index(name) - 1
+            for key, value in v.set.items():
+                node = data
+                parts = key.split(".")
+                for part in parts[:-1]:
+                    nxt = node.get(part) if isinstance(node, dict) else None
+                    if not isinstance(nxt, dict):
+                        raise InputError(f"variants[{k}].set: '{key}' does not name a key of the "
+                                         "scenario (use dotted section.key names, e.g. "
+                                         "'predator.mortality')", str(self.path))
+                    node = nxt
+                node[parts[-1]] = value
+        try:
+            return parse_scenario(data, self.path, check_files=False)
+        except InputError as exc:
+            raise InputError(f"in variant '{name}': {exc.message}", exc.source) from None
 
     def resolve(self, rel: str) -> Path:
         """A path from the scenario, resolved against the scenario's folder."""
@@ -239,10 +541,25 @@ class Scenario(_Strict):
         return h.hexdigest()
 
     def files(self) -> list[str]:
-        """Paths of the input files the scenario names (as written)."""
+        """Paths of the input files this run reads (as written)."""
         out = [self.landscape.habitat]
         if self.start.prey == "raster" and self.start.prey_raster:
             out.append(self.start.prey_raster)
+        for m in self.active_measures():
+            out.append(m.geometry or m.raster)
+        return out
+
+    def input_files(self) -> list[tuple[str, str]]:
+        """``(key path, path as written)`` of every input file the scenario names."""
+        out = [("landscape.habitat", self.landscape.habitat)]
+        if self.start.prey == "raster" and self.start.prey_raster:
+            out.append(("start.prey_raster", self.start.prey_raster))
+        for k, m in enumerate(self.measures):
+            key = "geometry" if m.geometry else "raster"
+            out.append((f"measures[{k}].{key}", m.geometry or m.raster))
+        for k, t in enumerate(self.analysis.targets):
+            key = "geometry" if t.geometry else "raster"
+            out.append((f"analysis.targets[{k}].{key}", t.geometry or t.raster))
         return out
 
 
@@ -288,7 +605,7 @@ def _message(err: dict) -> str:
     if kind == "extra_forbidden":
         key = str(loc[-1])
         parent = _model_at(loc[:-1])
-        valid = sorted(f for f in parent.model_fields if f != "path") if parent else []
+        valid = sorted(f for f in parent.model_fields if f not in ("path", "raw", "variant")) if parent else []
         near = difflib.get_close_matches(key, valid, n=1, cutoff=0.6)
         hint = f"; did you mean '{near[0]}'?" if near else ""
         return f"{where}: unknown key '{key}'{hint} Valid keys here: {', '.join(valid)}"
@@ -300,7 +617,9 @@ def _message(err: dict) -> str:
     return f"{where}: {msg}"
 
 
-def parse_scenario(data: dict, path: str | Path = "scenario.toml") -> Scenario:
+def parse_scenario(
+    data: dict, path: str | Path = "scenario.toml", check_files: bool = True
+) -> Scenario:
     """Validate a scenario given as a dict (as read from TOML).
 
     Raises
@@ -309,8 +628,13 @@ def parse_scenario(data: dict, path: str | Path = "scenario.toml") -> Scenario:
         Naming the file and every offending key.
     """
     path = Path(path)
+    if "variant" in data and check_files:
+        raise InputError("(top level): unknown key 'variant'; name variants in [[variants]] "
+                         "tables", source=str(path))
     try:
-        sc = Scenario.model_validate({**data, "path": path})
+        raw = json.loads(json.dumps({k: v for k, v in data.items() if k != "variant"},
+                                    default=str))
+        sc = Scenario.model_validate({**data, "path": path, "raw": raw})
     except ValidationError as exc:
         lines: list[str] = []
         for e in exc.errors():
@@ -322,9 +646,9 @@ def parse_scenario(data: dict, path: str | Path = "scenario.toml") -> Scenario:
             else:
                 lines.append(line)
         raise InputError("\n  ".join(lines), source=str(path)) from None
-    for key, rel in (("landscape.habitat", sc.landscape.habitat),) + (
-        (("start.prey_raster", sc.start.prey_raster),) if sc.start.prey == "raster" else ()
-    ):
+    if not check_files:
+        return sc
+    for key, rel in sc.input_files():
         f = sc.resolve(rel)
         if not f.is_file():
             raise InputError(

@@ -202,6 +202,106 @@ def write_summaries(folder: Path, grid: Grid, means: dict, finals: dict) -> list
     return out
 
 
+def slug(name: str) -> str:
+    """A file-name form of a measure or variant name (lower case, spaces to hyphens)."""
+    return "-".join(name.lower().split())
+
+
+def write_measures(folder: Path, grid: Grid, layers: list) -> list[dict]:
+    """Write each measure's cells (GeoTIFF) and geometry (GeoJSON) into ``folder``.
+
+    Parameters
+    ----------
+    folder : pathlib.Path
+        Created if there is at least one measure.
+    grid : Grid
+        The run grid.
+    layers : list of MeasureLayer
+        Placed measures (:func:`preyscape.pipeline.place_measures`).
+
+    Returns
+    -------
+    list of dict
+        One summary per measure (see ``MeasureLayer.summary``) with the names of
+        the files written, relative to the run folder.
+    """
+    from preyscape.landscape.io import write_geotiff
+
+    out = []
+    for layer in layers:
+        rec = layer.summary(grid)
+        folder.mkdir(parents=True, exist_ok=True)
+        base = slug(layer.spec.name)
+        if layer.cells is not None:
+            write_geotiff(folder / f"{base}.tif", grid, layer.cells.astype(np.uint8),
+                          nodata=255, dtype="uint8")
+            rec["cells_file"] = f"{folder.name}/{base}.tif"
+        if layer.faces is not None:
+            p = folder / f"{base}_faces.npz"
+            tmp = p.with_name(p.name + ".tmp")
+            with open(tmp, "wb") as fh:
+                np.savez_compressed(fh, between_columns=layer.faces[0],
+                                    between_rows=layer.faces[1])
+            os.replace(tmp, p)
+            rec["faces_file"] = f"{folder.name}/{base}_faces.npz"
+        if layer.shapes:
+            from shapely.geometry import mapping
+
+            feats = [{"type": "Feature", "properties": {"name": layer.spec.name,
+                                                        "kind": layer.spec.kind},
+                      "geometry": mapping(s.geometry)} for s in layer.shapes]
+            doc = {"type": "FeatureCollection", "features": feats}
+            if grid.crs_wkt:
+                from pyproj import CRS
+
+                auth = CRS.from_wkt(grid.crs_wkt).to_authority()
+                if auth:  # the legacy member: these coordinates are not WGS 84
+                    doc["crs"] = {"type": "name", "properties": {
+                        "name": f"urn:ogc:def:crs:{auth[0]}::{auth[1]}"}}
+            p = folder / f"{base}.geojson"
+            tmp = p.with_name(p.name + ".tmp")
+            tmp.write_text(json.dumps(doc))
+            os.replace(tmp, p)
+            rec["geometry_file"] = f"{folder.name}/{base}.geojson"
+        out.append(rec)
+    return out
+
+
+def save_operators(path: Path, span: tuple[float, float], prey, predator) -> None:
+    """Save the movement operators of one epoch (face conductances, 1/yr; weights).
+
+    ``span`` is the epoch ``(t0, t1)`` in years; ``prey`` and ``predator`` are
+    :class:`~preyscape.model.movement.Movement` objects. Read back with
+    :func:`load_operators`; used to compute fluxes across lines after the run.
+    """
+    path.parent.mkdir(parents=True, exist_ok=True)
+    arrays = {"span": np.asarray(span, dtype=float)}
+    for sp, mv in (("prey", prey), ("predator", predator)):
+        arrays[f"{sp}_cx"] = mv.cx
+        arrays[f"{sp}_cy"] = mv.cy
+        arrays[f"{sp}_w"] = (mv.w if mv.w is not None else np.ones(mv.mask.shape, np.float32))
+    tmp = path.with_name(path.name + ".tmp")
+    with open(tmp, "wb") as fh:
+        np.savez_compressed(fh, **arrays)
+    os.replace(tmp, path)
+
+
+def load_operators(folder: Path) -> list[dict]:
+    """The movement operators of every epoch of a run, in time order.
+
+    Returns a list of dicts with ``span`` (t0, t1 in years) and, per species,
+    ``<species>_cx`` (rows, cols+1), ``<species>_cy`` (rows+1, cols) face
+    conductances in 1/yr and ``<species>_w`` per-cell weights.
+    """
+    files = sorted((Path(folder) / "operators").glob("epoch_*.npz"),
+                   key=lambda p: int(p.stem.split("_")[1]))
+    out = []
+    for f in files:
+        with np.load(f) as z:
+            out.append({k: z[k] for k in z.files})
+    return out
+
+
 def write_json(path: Path, record: dict) -> None:
     """Write ``record`` as indented JSON, atomically."""
     tmp = path.with_name(path.name + ".tmp")

@@ -100,9 +100,85 @@ def _cmap(name: str):
     return colormaps[name].with_extremes(bad=NO_DATA)
 
 
+MEASURE_STYLE = {  # ours: line colour and style per kind of measure
+    "fence": {"color": "#d62728", "lw": 1.6, "ls": "-"},
+    "corridor": {"color": "#ff7f0e", "lw": 1.2, "ls": "-"},
+    "refuge": {"color": "#1f77b4", "lw": 1.2, "ls": "--"},
+}
+
+
+def draw_measures(ax, folder: Path, measures: list[dict], grid: Grid) -> list:
+    """Draw measures on a map axis (km): fence lines, corridor and refuge outlines.
+
+    ``measures`` are the records of ``run.json`` (files relative to ``folder``).
+    Returns legend handles.
+    """
+    import json
+
+    from matplotlib.lines import Line2D
+
+    handles = []
+    x = grid.x / 1e3
+    y = grid.y / 1e3
+    for m in measures or []:
+        st = MEASURE_STYLE.get(m["kind"], MEASURE_STYLE["fence"])
+        drawn = False
+        if m["kind"] == "fence" and m.get("geometry_file"):
+            doc = json.loads((folder / m["geometry_file"]).read_text())
+            for f in doc["features"]:
+                for line in _lines_of(f["geometry"]):
+                    xs, ys = zip(*[(p[0] / 1e3, p[1] / 1e3) for p in line], strict=True)
+                    ax.plot(xs, ys, color=st["color"], lw=st["lw"], ls=st["ls"])
+                    drawn = True
+        elif m.get("cells_file"):
+            import rasterio
+
+            with rasterio.open(folder / m["cells_file"]) as src:
+                cells = src.read(1) == 1
+            k = thin(grid)
+            ax.contour(x[::k], y[::k], cells[::k, ::k].astype(float), levels=[0.5],
+                       colors=[st["color"]], linewidths=st["lw"], linestyles=st["ls"])
+            drawn = True
+        elif m.get("faces_file"):  # a fence from a raster: the outline of its cells
+            with np.load(folder / m["faces_file"]) as z:
+                fx, fy = z["between_columns"], z["between_rows"]
+            xe = (grid.x0 + np.arange(grid.nx + 1) * grid.dx) / 1e3
+            ye = (grid.y0 - np.arange(grid.ny + 1) * grid.dy) / 1e3
+            for i, k in zip(*np.nonzero(fx), strict=True):
+                ax.plot([xe[k], xe[k]], [ye[i], ye[i + 1]], color=st["color"], lw=st["lw"])
+            for i, j in zip(*np.nonzero(fy), strict=True):
+                ax.plot([xe[j], xe[j + 1]], [ye[i], ye[i]], color=st["color"], lw=st["lw"])
+            drawn = True
+        if drawn:
+            handles.append(Line2D([], [], color=st["color"], lw=st["lw"], ls=st["ls"],
+                                  label=f"{m['kind']}: {m['name']}"))
+    return handles
+
+
+def _lines_of(geom: dict) -> list:
+    t = geom["type"]
+    c = geom.get("coordinates")
+    if t == "LineString":
+        return [c]
+    if t == "MultiLineString":
+        return list(c)
+    if t == "Polygon":
+        return list(c)
+    if t == "MultiPolygon":
+        return [ring for poly in c for ring in poly]
+    if t == "GeometryCollection":
+        return [ln for g in geom["geometries"] for ln in _lines_of(g)]
+    return []
+
+
 def habitat_map(grid: Grid, habitat: np.ndarray, classes: dict[int, str] | None,
-                title: str, path: Path) -> Path:
-    """Draw the habitat layer: class codes with a legend, or suitability 0–1."""
+                title: str, path: Path, folder: Path | None = None,
+                measures: list[dict] | None = None) -> Path:
+    """Draw the habitat layer: class codes with a legend, or suitability 0–1.
+
+    With ``measures`` (records of ``run.json``, files relative to ``folder``)
+    the fences, corridors and refuges are drawn on top.
+    """
     fig = _new()
     ax = fig.add_subplot()
     k = thin(grid)
@@ -119,12 +195,18 @@ def habitat_map(grid: Grid, habitat: np.ndarray, classes: dict[int, str] | None,
         ax.imshow(idx, extent=_extent_km(grid), cmap=cm, norm=norm, interpolation="nearest")
         handles = [Patch(color=colours[k], label=f"{c} {classes[c]}") for k, c in enumerate(codes)]
         handles.append(Patch(color=NO_DATA, label="no data"))
+        if measures:
+            handles += draw_measures(ax, folder, measures, grid)
         ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1), fontsize=8,
                   frameon=False)
     else:
         im = ax.imshow(data, extent=_extent_km(grid), cmap=_cmap("cividis"), vmin=0, vmax=1,
                        interpolation="nearest")
         fig.colorbar(im, ax=ax, shrink=0.85, label="suitability (0–1)")
+        if measures:
+            hs = draw_measures(ax, folder, measures, grid)
+            if hs:
+                ax.legend(handles=hs, loc="lower left", fontsize=7)
     ax.set_facecolor(NO_DATA)
     _axes_labels(ax, grid)
     ax.set_title(title, fontsize=10)
@@ -175,7 +257,7 @@ def snapshot_panels(grid: Grid, times: np.ndarray, frames: list[np.ndarray], spe
 
 
 def draw_run(folder: Path, sc, grid: Grid, habitat: np.ndarray, means: dict,
-             finals: dict) -> list[Path]:
+             finals: dict, measures: list[dict] | None = None) -> list[Path]:
     """Draw the standard maps of a finished run into ``folder/maps``.
 
     Parameters
@@ -190,6 +272,8 @@ def draw_run(folder: Path, sc, grid: Grid, habitat: np.ndarray, means: dict,
         Habitat classes or suitability on the grid.
     means, finals : dict
         Time-mean and final densities per species, animals/km².
+    measures : list of dict, optional
+        Measure records (``run.json``), drawn on the habitat map.
     """
     import xarray as xr
 
@@ -197,8 +281,10 @@ def draw_run(folder: Path, sc, grid: Grid, habitat: np.ndarray, means: dict,
     names = {"prey": sc.prey.name, "predator": sc.predator.name}
     classes = ({c.code: c.name or str(c.code) for c in sc.landscape.classes}
                if sc.landscape.values == "classes" else None)
-    out = [habitat_map(grid, habitat, classes, f"Habitat: {sc.title or sc.path.stem}",
-                       maps / "habitat.png")]
+    title = f"Habitat: {sc.title or sc.path.stem}"
+    if getattr(sc, "variant", "baseline") != "baseline":
+        title += f" [{sc.variant}]"
+    out = [habitat_map(grid, habitat, classes, title, maps / "habitat.png", folder, measures)]
     for sp in ("prey", "predator"):
         nm = names[sp] or sp
         out.append(density_map(grid, means[sp], f"Time-mean {sp} ({nm})",

@@ -1,0 +1,1 @@
+"""Analyses of run results: pure functions on numpy arrays and xarray objects."""

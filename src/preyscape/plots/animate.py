@@ -1,0 +1,269 @@
+"""An animated GIF of a run: both species side by side, one frame per snapshot.
+
+Each frame is drawn with matplotlib's object API on an Agg canvas and handed
+to Pillow; no ffmpeg and no pyplot. The figure is built once and only the
+image data and the time stamp change between frames, so the layout does not
+jump. Every species keeps ONE colour scale for the whole animation (0 to a
+high percentile of all its shown values), so colours can be compared across
+frames. All frames share one fixed palette built from the two colour maps,
+so colours do not flicker either.
+
+Memory: one snapshot of the grid at a time is read from ``results.nc``
+(a first pass for the colour scales, a second to draw), plus the encoded
+frames, which Pillow keeps until it writes the file (one byte per pixel,
+about 0.3 MB per frame at the default size).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Sequence
+from pathlib import Path
+
+import numpy as np
+
+from preyscape.errors import InputError
+from preyscape.plots import NO_DATA, SPECIES_CMAP, _axes_labels, _cmap, _extent_km, _new
+
+__all__ = ["animate_run", "MAX_SIDE", "VMAX_PERCENTILE"]
+
+MAX_SIDE = 300
+"""Largest number of cells per map side drawn in a frame (every k-th cell beyond)."""
+
+VMAX_PERCENTILE = 99.5
+"""Top of each species' colour scale: this percentile of all its shown values."""
+
+UNITS = "animals per km²"
+
+
+class _StreamingQuantile:
+    """Quantiles of a stream of non-negative values in fixed memory.
+
+    Values are counted in bins of their binary exponent, each split into
+    ``SUB`` equal steps of the mantissa, so a quantile is found to a relative
+    accuracy of 1/``SUB`` (0.4 %) over the whole float range, whatever the
+    values are, without keeping them. Zero, negative and non-finite values
+    count as zero (a density can only be negative by rounding).
+    """
+
+    SUB = 256
+    EMIN, EMAX = -150, 130  # binary exponents covered (float32 range and a margin)
+
+    def __init__(self) -> None:
+        self.counts = np.zeros((self.EMAX - self.EMIN + 1) * self.SUB, dtype=np.int64)
+        self.zeros = 0
+        self.n = 0
+        self.max = 0.0
+
+    def add(self, values: np.ndarray) -> None:
+        """Count the finite values of ``values`` (NaN means no data and is skipped)."""
+        v = np.asarray(values, dtype=np.float64).ravel()
+        v = v[np.isfinite(v)]
+        self.n += v.size
+        pos = v[v > 0]
+        self.zeros += v.size - pos.size
+        if not pos.size:
+            return
+        self.max = max(self.max, float(pos.max()))
+        m, e = np.frexp(pos)  # pos = m * 2**e with 0.5 <= m < 1
+        e = np.clip(e, self.EMIN, self.EMAX)
+        sub = np.minimum(((m - 0.5) * (2 * self.SUB)).astype(np.int64), self.SUB - 1)
+        idx = (e.astype(np.int64) - self.EMIN) * self.SUB + sub
+        self.counts += np.bincount(idx, minlength=self.counts.size)
+
+    def quantile(self, q: float) -> float:
+        """The ``q``-th percentile (0–100), nearest rank, rounded up to its bin's top.
+
+        Never above the largest value seen; 0 if nothing was added.
+        """
+        if self.n == 0:
+            return 0.0
+        rank = max(1, math.ceil(q / 100.0 * self.n))
+        if rank <= self.zeros:
+            return 0.0
+        k = int(np.searchsorted(np.cumsum(self.counts), rank - self.zeros))
+        e, sub = divmod(k, self.SUB)
+        top = (0.5 + (sub + 1) / (2 * self.SUB)) * 2.0 ** (e + self.EMIN)
+        return min(top, self.max)
+
+
+def _frame_indices(n: int, max_frames: int) -> np.ndarray:
+    """Snapshot indices to show: all, or ``max_frames`` spread evenly incl. first and last."""
+    if n <= max_frames:
+        return np.arange(n)
+    # spacing (n-1)/(max_frames-1) >= 1, so rounding keeps them distinct
+    return np.linspace(0, n - 1, max_frames).round().astype(int)
+
+
+def _stride(ny: int, nx: int) -> int:
+    """Every k-th cell to draw so that a map side has at most :data:`MAX_SIDE` cells."""
+    return max(1, -(-max(ny, nx) // MAX_SIDE))
+
+
+def _stamp_format(times: np.ndarray) -> str:
+    """Enough decimals (at least 2) that different snapshot times get different stamps."""
+    steps = np.diff(np.asarray(times, dtype=float))
+    steps = steps[steps > 0]
+    decimals = 2
+    if steps.size:
+        decimals = int(min(6, max(2, math.ceil(-math.log10(float(steps.min()))))))
+    return f"t = {{:.{decimals}f}} yr"
+
+
+def _palette(cmaps: Sequence[str]) -> list[int]:
+    """A fixed 256-colour palette: ramps of the colour maps, greys, the no-data grey."""
+    from matplotlib import colormaps
+    from matplotlib.colors import to_rgb
+
+    greys = np.linspace(0.0, 1.0, 32)
+    rgb = [tuple(to_rgb(NO_DATA))] + [(g, g, g) for g in greys]
+    per = (256 - len(rgb)) // max(1, len(cmaps))
+    for name in cmaps:
+        ramp = colormaps[name](np.linspace(0.0, 1.0, per))[:, :3]
+        rgb += [tuple(c) for c in ramp]
+    flat = [int(round(255 * c)) for col in rgb for c in col]
+    return flat + [0] * (768 - len(flat))
+
+
+def animate_run(
+    results_nc: Path,
+    path: Path,
+    fps: int = 6,
+    max_frames: int = 120,
+    species: Sequence[str] = ("prey", "predator"),
+    names: dict[str, str] | None = None,
+    title: str = "",
+) -> Path:
+    """Write an animated GIF of the densities in a ``results.nc``.
+
+    Parameters
+    ----------
+    results_nc : pathlib.Path
+        A results file written by :class:`preyscape.store.ResultWriter`
+        (densities in animals per km², time in years).
+    path : pathlib.Path
+        The GIF to write (replaced if it exists; written under a temporary
+        name, then renamed).
+    fps : int, optional
+        Frames per second.
+    max_frames : int, optional
+        At most this many frames; longer runs show snapshots spread evenly
+        over the run, always including the first and the last.
+    species : sequence of str, optional
+        Density variables to show side by side.
+    names : dict, optional
+        Common names per species for the panel titles, e.g.
+        ``{"prey": "field vole"}``.
+    title : str, optional
+        Title above the panels.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+
+    Raises
+    ------
+    InputError
+        If the file cannot be read, a species is not in it, or it holds no
+        snapshot.
+    """
+    import xarray as xr
+    from PIL import Image
+
+    from preyscape.store import grid_of
+
+    if fps < 1 or max_frames < 1:
+        raise ValueError("fps and max_frames must be at least 1")
+    results_nc, path = Path(results_nc), Path(path)
+    names = names or {}
+    species = list(species)
+    if not species:
+        raise ValueError("give at least one species to animate")
+    try:
+        ds = xr.open_dataset(results_nc, decode_times=False)
+    except (OSError, ValueError) as err:
+        raise InputError(f"cannot read the results file ({err})", str(results_nc)) from err
+    with ds:
+        missing = [sp for sp in species if sp not in ds.data_vars]
+        if missing:
+            have = sorted(v for v in ds.data_vars if ds[v].dims == ("time", "y", "x"))
+            raise InputError(f"no density variable {', '.join(missing)}; the file has "
+                             f"{', '.join(have) or 'none'}", str(results_nc))
+        times = np.asarray(ds["time"].values, dtype=float)
+        if times.size == 0:
+            raise InputError("the results file holds no snapshot", str(results_nc))
+        grid = grid_of(ds)
+        pick = _frame_indices(times.size, max_frames)
+        k = _stride(grid.ny, grid.nx)
+        shown_mask = grid.mask[::k, ::k]
+
+        def frame(sp: str, i: int) -> np.ndarray:
+            # one snapshot in memory at a time, thinned to what the frame can show
+            v = np.asarray(ds[sp].isel(time=int(i)).values, dtype=np.float32)[::k, ::k]
+            return np.where(shown_mask, v, np.nan)
+
+        # pass 1: one colour scale per species for the whole animation
+        vmax = {}
+        above = {}
+        for sp in species:
+            q = _StreamingQuantile()
+            for i in pick:
+                q.add(frame(sp, i))
+            top = q.quantile(VMAX_PERCENTILE)
+            vmax[sp] = top if top > 0 else (q.max if q.max > 0 else 1.0)
+            above[sp] = q.max > vmax[sp]
+
+        # the figure is built once; frames only swap image data and the stamp
+        n = len(species)
+        fig = _new(figsize=(3.7 * n + 0.5, 3.75))
+        extent = _extent_km(grid)
+        images = []
+        for j, sp in enumerate(species):
+            ax = fig.add_subplot(1, n, j + 1)
+            cm = _cmap(SPECIES_CMAP.get(sp, "viridis"))
+            im = ax.imshow(np.ma.masked_invalid(frame(sp, pick[0])), extent=extent, cmap=cm,
+                           vmin=0.0, vmax=vmax[sp], interpolation="nearest")
+            ax.set_facecolor(NO_DATA)
+            _axes_labels(ax, grid)
+            ax.tick_params(labelsize=7)
+            ax.xaxis.label.set_size(8)
+            ax.yaxis.label.set_size(8)
+            nm = names.get(sp)
+            ax.set_title(f"{sp} ({nm})" if nm and nm != sp else sp, fontsize=9)
+            cb = fig.colorbar(im, ax=ax, shrink=0.85, extend="max" if above[sp] else "neither")
+            cb.set_label(UNITS, fontsize=8)
+            cb.ax.tick_params(labelsize=7)
+            images.append(im)
+        fig.text(0.01, 0.985, title or "Population density", ha="left", va="top",
+                 fontsize=10, weight="bold")
+        fmt = _stamp_format(times[pick])
+        stamp = fig.text(0.99, 0.985, fmt.format(times[pick[0]]), ha="right", va="top",
+                         fontsize=10, family="monospace")
+        fig.tight_layout(rect=(0, 0, 1, 0.95))  # once: later frames keep this layout
+
+        palette = Image.new("P", (1, 1))
+        palette.putpalette(_palette([SPECIES_CMAP.get(sp, "viridis") for sp in species]))
+
+        def frames():
+            for i in pick:
+                for sp, im in zip(species, images, strict=True):
+                    im.set_data(np.ma.masked_invalid(frame(sp, i)))
+                stamp.set_text(fmt.format(times[i]))
+                fig.canvas.draw()
+                rgb = Image.frombuffer("RGBA", fig.canvas.get_width_height(),
+                                       fig.canvas.buffer_rgba()).convert("RGB")
+                yield rgb.quantize(palette=palette, dither=Image.Dither.NONE)
+
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name("." + path.name + ".tmp.gif")
+        try:
+            it = frames()
+            first = next(it)
+            first.save(tmp, format="GIF", save_all=True, append_images=it,
+                       duration=max(20, round(1000 / fps)), loop=0, optimize=False)
+            os.replace(tmp, path)
+        finally:
+            tmp.unlink(missing_ok=True)
+    return path

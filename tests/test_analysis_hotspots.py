@@ -1,0 +1,255 @@
+"""Hotspot analysis: Gi* against esda, FDR, persistence, kernels and the product."""
+
+from __future__ import annotations
+
+import csv
+import warnings
+
+import numpy as np
+import pytest
+import rasterio
+import scipy.stats
+import xarray as xr
+
+from preyscape.analysis.hotspots import (
+    default_band_m,
+    distance_band_kernel,
+    fdr_significant,
+    getis_ord_gi_star,
+    hotspots,
+    hotspots_of_run,
+    persistent_hotspots,
+)
+from preyscape.errors import InputError
+from preyscape.landscape.grid import Grid
+from preyscape.products.hotspots import write_hotspots
+from preyscape.store import ResultWriter
+
+# A small grid of non-square cells: 15 rows of 20 m, 18 columns of 30 m.
+NY, NX, DX, DY = 15, 18, 30.0, 20.0
+BAND = 75.0  # m; no centre distance sqrt((30 a)^2 + (20 b)^2) equals 75 exactly
+
+
+def _field(seed: int = 7) -> tuple[np.ndarray, np.ndarray]:
+    """Random values around 10 plus a bump, a few no-data cells (mask False or NaN)."""
+    rng = np.random.default_rng(seed)
+    yy, xx = np.mgrid[0:NY, 0:NX]
+    cx, cy = (xx + 0.5) * DX, -(yy + 0.5) * DY
+    values = 10.0 + rng.random((NY, NX))
+    values += 5.0 * np.exp(-(((cx - 200.0) / 60.0) ** 2 + ((cy + 100.0) / 50.0) ** 2))
+    mask = np.ones((NY, NX), dtype=bool)
+    mask[0, :3] = False
+    mask[7, 9] = False
+    mask[14, 17] = False
+    values[~mask] = -999.0  # must be ignored
+    values[3, 4] = np.nan  # a non-finite value is no data too
+    return values, mask
+
+
+@pytest.mark.parametrize("method", ["direct", "fft"])
+def test_gi_star_matches_esda(method):
+    # Reference library: PySAL esda G_Local(star=True, transform="B", permutations=0)
+    # (Getis & Ord 1992, Geogr Anal 24:189; Ord & Getis 1995, Geogr Anal 27:286).
+    # How esda computes it (esda/getisord.py): with star=True and binary weights whose
+    # diagonal is zero (libpysal DistanceBand has none), it sets every self-weight to 1,
+    # i.e. the same "self included" band as ours. It then forms G*_i = sum_j w_ij y_j /
+    # sum y, E = W_i / n and Var = W_i (n - W_i) / (n - 1) / n^2 * s^2 / ybar^2 with the
+    # population variance s^2 = mean(y^2) - ybar^2. So z = (sum_j w_ij y_j - ybar W_i) /
+    # (s sqrt(W_i (n - W_i) / (n - 1))), which is the Ord & Getis form with sum w^2 = W_i
+    # for binary weights: for positive values (ybar > 0) the two agree to round-off.
+    from esda.getisord import G_Local
+    from libpysal.weights import DistanceBand
+
+    values, mask = _field()
+    data = mask & np.isfinite(values)
+    yy, xx = np.nonzero(data)  # row-major order, as values[data]
+    pts = np.column_stack([(xx + 0.5) * DX, -(yy + 0.5) * DY])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        w = DistanceBand(pts, threshold=BAND, binary=True, silence_warnings=True)
+        ref = G_Local(values[data], w, transform="B", star=True, permutations=0)
+    assert w.max_neighbors == 30  # our kernel has 31 cells, self included (hand count)
+    z = getis_ord_gi_star(values, mask, DX, DY, BAND, method=method)
+    np.testing.assert_allclose(z[data], ref.Zs, rtol=1e-8, atol=1e-12)
+    assert np.isnan(z[~data]).all()
+    assert z[data].max() > 5  # the bump stands out (sanity: the test is not trivial)
+
+
+def test_kernel_shape_for_non_square_cells():
+    # Hand count (textbook geometry): offsets (i rows of 20 m, j columns of 30 m) with
+    # (20 i)^2 + (30 j)^2 <= 65^2: |i| <= 3 at j = 0, |i| <= 2 at |j| = 1, |i| <= 1 at |j| = 2.
+    k = distance_band_kernel(30.0, 20.0, 65.0)
+    expected = np.array([
+        [0, 0, 1, 0, 0],
+        [0, 1, 1, 1, 0],
+        [1, 1, 1, 1, 1],
+        [1, 1, 1, 1, 1],
+        [1, 1, 1, 1, 1],
+        [0, 1, 1, 1, 0],
+        [0, 0, 1, 0, 0],
+    ], dtype=float)
+    np.testing.assert_array_equal(k, expected)
+    # a band equal to a centre distance includes it (design requirement)
+    assert distance_band_kernel(25.0, 25.0, 50.0).shape == (5, 5)
+    np.testing.assert_array_equal(distance_band_kernel(30.0, 20.0, 10.0), [[1.0]])
+
+
+def test_self_only_band_gives_standard_scores():
+    # With a band shorter than both cell sides, W_i = 1 and Gi* reduces to the
+    # standard score (x_i - xbar) / S, S the population standard deviation (textbook).
+    values, mask = _field(3)
+    data = mask & np.isfinite(values)
+    z = getis_ord_gi_star(values, mask, DX, DY, 15.0)
+    x = values[data]
+    np.testing.assert_allclose(z[data], (x - x.mean()) / x.std(), rtol=1e-12)
+
+
+def test_constant_field_and_empty_mask():
+    # Design requirement: S = 0 gives z = 0 on data cells, NaN elsewhere.
+    mask = np.ones((6, 7), dtype=bool)
+    mask[2, 3] = False
+    z = getis_ord_gi_star(np.full((6, 7), 4.2), mask, 10.0, 10.0, 25.0)
+    assert (z[mask] == 0).all() and np.isnan(z[2, 3])
+    assert not fdr_significant(z).any()
+    assert np.isnan(getis_ord_gi_star(np.ones((3, 3)), np.zeros((3, 3), bool), 1, 1, 2)).all()
+
+
+def test_fdr_hand_worked_step_up():
+    # Benjamini & Hochberg 1995 (J R Stat Soc B 57:289), worked by hand: m = 4,
+    # alpha = 0.05, thresholds k alpha / m = 0.0125, 0.025, 0.0375, 0.05. Sorted
+    # p = 0.001, 0.03, 0.035, 0.9: rank 2 fails (0.03 > 0.025) but rank 3 passes
+    # (0.035 <= 0.0375), so the step-up rule rejects ranks 1-3.
+    p = np.array([0.035, 0.9, 0.001, 0.03])
+    z = scipy.stats.norm.isf(p)  # upper-tail z-scores with these p-values
+    np.testing.assert_array_equal(fdr_significant(z, 0.05, "upper"), [True, False, True, True])
+    # a NaN is not a test: with m = 3 the thresholds become 0.0167, 0.0333, 0.05
+    z5 = np.append(z, np.nan)
+    np.testing.assert_array_equal(fdr_significant(z5, 0.05, "upper"),
+                                  [True, False, True, True, False])
+    # two-sided: p = 2 sf(|z|) gives 0.07, 0.2, 0.002, 0.06; sorted 0.002 <= 0.0125,
+    # 0.06 > 0.025, 0.07 > 0.0375, 0.2 > 0.05 -> only the smallest
+    np.testing.assert_array_equal(fdr_significant(z, 0.05, "two-sided"),
+                                  [False, False, True, False])
+
+
+def test_fdr_matches_scipy():
+    # Reference library: scipy.stats.false_discovery_control (Benjamini-Hochberg).
+    rng = np.random.default_rng(11)
+    z = np.concatenate([rng.normal(size=400), rng.normal(3.0, 1.0, size=100)])
+    for tail in ("upper", "two-sided"):
+        p = (scipy.stats.norm.sf(z) if tail == "upper"
+             else 2 * scipy.stats.norm.sf(np.abs(z)))
+        ref = scipy.stats.false_discovery_control(p, method="bh") <= 0.05
+        np.testing.assert_array_equal(fdr_significant(z, 0.05, tail), ref)
+        assert 50 < ref.sum() < 150
+
+
+def test_hotspots_flags_bump_hot():
+    # Design requirement: a planted bump is a significant hotspot; z and p consistent.
+    values, mask = _field()
+    res = hotspots(values, mask, DX, DY, BAND)
+    row, col = 5, 6  # the bump centre (x 200 m, y -100 m) lies in cell (4/5, 6)
+    assert res["hot"][row, col] and not res["cold"][row, col]
+    assert not (res["hot"] & res["cold"]).any()
+    assert not res["hot"][~mask].any()
+    np.testing.assert_allclose(res["p"][row, col], 2 * scipy.stats.norm.sf(res["z"][row, col]))
+
+
+def test_persistent_fraction_counts_frames_with_bump():
+    # Design requirement: a bump present in k of n frames is a hotspot in exactly k/n of
+    # them; cells far from it are never hotspots. Frames come from a generator (read once).
+    rng = np.random.default_rng(5)
+    ny, nx, h = 30, 30, 10.0
+    yy, xx = np.mgrid[0:ny, 0:nx]
+    bump = 8.0 * np.exp(-((yy - 10) ** 2 + (xx - 20) ** 2) / 8.0)
+    mask = np.ones((ny, nx), dtype=bool)
+    mask[25:, :4] = False
+    with_bump = [True, False, True, True, False, False, True, False]  # k = 4 of n = 8
+
+    def frames():
+        for b in with_bump:
+            yield 5.0 + 0.3 * rng.random((ny, nx)) + (bump if b else 0.0)
+
+    frac = persistent_hotspots(frames(), mask, h, h, 30.0)
+    assert frac[10, 20] == pytest.approx(4 / 8)
+    far = np.hypot(yy - 10, xx - 20) > 9
+    assert (frac[far & mask] == 0).all()
+    assert np.isnan(frac[~mask]).all()
+    with pytest.raises(ValueError, match="no snapshots"):
+        persistent_hotspots(iter([]), mask, h, h, 30.0)
+
+
+def test_default_band():
+    # Common practice, no source: max(3 cells, 2 % of the shorter extent).
+    assert default_band_m(Grid((400, 400), 0, 0, 25.0, 25.0)) == pytest.approx(200.0)
+    assert default_band_m(Grid((20, 30), 0, 0, 30.0, 20.0)) == pytest.approx(90.0)
+
+
+# --- run datasets and the product --------------------------------------------
+def _write_run(folder, n_snap: int = 5):
+    """A small results.nc: noise plus a bump (prey) / a dip and bump (predator)."""
+    rng = np.random.default_rng(2)
+    mask = np.ones((20, 24), dtype=bool)
+    mask[0, :2] = False
+    mask[19, 23] = False
+    grid = Grid((20, 24), 400_000.0, 6_000_000.0, 50.0, 50.0, mask=mask)
+    yy, xx = np.mgrid[0:20, 0:24]
+    bump = np.exp(-((yy - 6) ** 2 + (xx - 16) ** 2) / 6.0)
+    folder.mkdir(parents=True, exist_ok=True)
+    w = ResultWriter(folder / "results.nc", grid, {"prey": "field vole", "predator": "stoat"},
+                     {"title": "test"})
+    for k in range(n_snap):
+        noise = rng.random((20, 24))
+        if k == 0:  # the start: uniform, must not enter the mean
+            w.write(0.0, np.full((20, 24), 500.0), np.full((20, 24), 2.0))
+        else:
+            w.write(0.25 * k, 400.0 + 20.0 * noise + 600.0 * bump, 1.0 + 0.1 * noise + 3 * bump)
+    w.close()
+    return grid
+
+
+def test_hotspots_of_run(tmp_path):
+    # Design requirement: time mean over snapshots after the start (as store.time_means).
+    grid = _write_run(tmp_path / "run")
+    with xr.open_dataset(tmp_path / "run" / "results.nc", decode_times=False) as ds:
+        res = hotspots_of_run(ds, "prey", 150.0)
+        expected = ds["prey"].isel(time=slice(1, None)).mean("time").values
+    np.testing.assert_allclose(res["mean"].values, expected, rtol=1e-6)
+    assert res.attrs["snapshots"] == 4 and res.attrs["band_m"] == 150.0
+    assert res["hotspot_class"].values[6, 16] == 1 and bool(res["hot"].values[6, 16])
+    assert res["persistence"].values[6, 16] == 1.0
+    assert res["hotspot_class"].values[0, 0] == -128 and not grid.mask[0, 0]
+    assert np.isnan(res["persistence"].values[0, 0])
+
+
+def test_write_hotspots_product(tmp_path):
+    # Design requirement: files exist, the planted bump is classed hot in the GeoTIFF.
+    grid = _write_run(tmp_path / "run")
+    out = tmp_path / "hot"
+    summary = write_hotspots(tmp_path / "run", out, band_m=150.0)
+    for sp in ("prey", "predator"):
+        for f in (f"{sp}_gi_star.tif", f"{sp}_hotspot_class.tif",
+                  f"{sp}_hotspot_persistence.tif", f"{sp}_hotspots.png",
+                  f"{sp}_hotspot_persistence.png"):
+            assert (out / f).is_file(), f
+        with rasterio.open(out / f"{sp}_hotspot_class.tif") as src:
+            cls = src.read(1)
+            assert src.nodata == -128 and src.dtypes[0] == "int8"
+        assert cls[6, 16] == 1 and cls[0, 0] == -128
+        s = summary["species"][sp]
+        assert s["n_cells"] == grid.n_cells and s["hot_cells"] > 0
+        assert s["hot_area_km2"] == pytest.approx(s["hot_cells"] * 0.0025)
+        assert 0 < s["hot_share_of_animals"] < 1
+    assert summary["band_m"] == 150.0
+    assert all((out / p).is_file() for p in summary["maps"]) and len(summary["maps"]) == 4
+    with open(out / "hotspots.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    assert [r["species"] for r in rows] == ["prey", "predator"]
+    assert int(rows[0]["hot_cells"]) == summary["species"]["prey"]["hot_cells"]
+    with pytest.raises(InputError, match="already exists"):
+        write_hotspots(tmp_path / "run", out)
+    with pytest.raises(InputError, match="results.nc"):
+        write_hotspots(tmp_path / "nothing", tmp_path / "hot2")
+    with pytest.raises(InputError, match="positive"):
+        write_hotspots(tmp_path / "run", tmp_path / "hot3", band_m=-5.0)
+    assert not (tmp_path / "hot2").exists() and not (tmp_path / "hot3").exists()
