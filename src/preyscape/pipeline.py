@@ -316,6 +316,34 @@ def place_measures(sc: Scenario, grid: Grid) -> list[MeasureLayer]:
     return out
 
 
+def place_targets(sc: Scenario, grid: Grid) -> list[tuple[str, np.ndarray]]:
+    """The target patches of ``[analysis]`` on the grid: ``(name, cells)`` pairs.
+
+    Raises
+    ------
+    InputError
+        For unreadable files or a target with no cell with data.
+    """
+    out: list[tuple[str, np.ndarray]] = []
+    if not sc.analysis.targets:
+        return out
+    from preyscape.landscape import measures as lm
+
+    for k, t in enumerate(sc.analysis.targets):
+        key = f"analysis.targets[{k}].{'geometry' if t.geometry else 'raster'}"
+        src = _source(sc, f"{key} ({t.geometry or t.raster})")
+        if t.geometry:
+            cells = lm.cells_covered(lm.read_geometry(sc.resolve(t.geometry), grid, crs=t.crs,
+                                                      source=src), grid)
+        else:
+            cells = lm.cells_from_raster(sc.resolve(t.raster), grid, src)
+        cells = cells & grid.mask
+        if not cells.any():
+            raise InputError("the target covers no cell with habitat data", src)
+        out.append((t.name, cells))
+    return out
+
+
 def measure_epochs(sc: Scenario, layers: list[MeasureLayer]) -> list[
         tuple[float, float, tuple[str, ...]]]:
     """Split the run at the times measures switch on or off.
@@ -585,6 +613,14 @@ def simulate(
         )
         predictions = _predictions(setup)
         layers = store.write_measures(tmp / "measures", setup.grid, setup.layers)
+        targets = []
+        for name, cells in place_targets(sc, setup.grid):
+            (tmp / "targets").mkdir(exist_ok=True)
+            from preyscape.landscape.io import write_geotiff
+
+            f = f"targets/{store.slug(name)}.tif"
+            write_geotiff(tmp / f, setup.grid, cells.astype(np.uint8), nodata=255, dtype="uint8")
+            targets.append({"name": name, "cells": int(cells.sum()), "cells_file": f})
         N, P = setup.N0, setup.P0  # this setup is private to the run: no copies
         setup.release_build_arrays()  # memory: one copy of each field during the run
         grid, habitat = setup.grid, setup.habitat
@@ -630,6 +666,7 @@ def simulate(
                      "cells_with_data": grid.n_cells},
             "species": names,
             "measures": layers,
+            "targets": targets,
             "epochs": [{"start_year": a, "end_year": b, "measures": list(n)}
                        for a, b, n in epochs],
             "predictions": predictions,

@@ -676,6 +676,10 @@ def front_speed(
 # ---------------------------------------------------------------------------
 # periodic travelling waves
 # ---------------------------------------------------------------------------
+MIN_CYCLES = 2.0
+"""Fewest cycles a record must hold for its period or wavelength to be measured."""
+
+
 def _dominant_period(values: np.ndarray, coords: np.ndarray, min_points: int = 8) -> float:
     """Period (in the units of ``coords``) of the strongest oscillation.
 
@@ -683,8 +687,9 @@ def _dominant_period(values: np.ndarray, coords: np.ndarray, min_points: int = 8
     length, and a parabola through the logarithm of the three largest
     spectral values around the peak (Gaussian interpolation; e.g. Gasior &
     Gonzalez 2004, CERN-AB-2004-023). The zero-frequency lobe is skipped: the
-    search starts at one cycle per record and after the spectrum's first
-    local minimum.
+    search starts at :data:`MIN_CYCLES` cycles per record and after the
+    spectrum's first local minimum; a maximum at the start of the search is
+    no peak (NaN).
     """
     from scipy.signal import detrend
 
@@ -710,15 +715,17 @@ def _dominant_period(values: np.ndarray, coords: np.ndarray, min_points: int = 8
     nfft = 1 << int(math.ceil(math.log2(16 * n)))
     power = np.abs(np.fft.rfft(v, nfft)) ** 2
     df = 1.0 / (nfft * step)  # frequency step of the padded spectrum
-    lo = int(math.ceil((1.0 / (n * step)) / df))  # at least one cycle per record
+    # at least two cycles per record: with fewer, the peak merges into the
+    # zero-frequency lobe of the window and its position is biased
+    lo = int(math.ceil((MIN_CYCLES / (n * step)) / df))
     dec = np.flatnonzero(np.diff(power) > 0)  # first rise: end of the zero-frequency lobe
     if dec.size:
         lo = max(lo, int(dec[0]))
     if lo >= power.size - 1:
         return math.nan
     k = lo + int(np.argmax(power[lo:]))
-    if k <= 0 or k >= power.size - 1 or power[k] <= 0:
-        return math.nan
+    if k <= lo or k >= power.size - 1 or power[k] <= 0:
+        return math.nan  # the largest value is at the edge of the search: no peak
     a, b, cc = np.log(np.maximum(power[k - 1: k + 2], 1e-300))
     den = a - 2 * b + cc
     delta = 0.5 * (a - cc) / den if den < 0 else 0.0
@@ -744,8 +751,8 @@ def wavelength_along(profile: np.ndarray, distance_km: np.ndarray) -> float:
     Returns
     -------
     float
-        Wavelength, km; NaN with fewer than 8 points or no oscillation.
-        Wavelengths longer than the profile cannot be measured.
+        Wavelength, km; NaN with fewer than 8 points, no oscillation, or
+        fewer than :data:`MIN_CYCLES` wavelengths along the profile.
     """
     return _dominant_period(profile, distance_km)
 
@@ -768,7 +775,8 @@ def period_at(series: np.ndarray, times: np.ndarray, t_min: float | None = None)
     Returns
     -------
     float
-        Period, years; NaN with fewer than 8 samples or no oscillation.
+        Period, years; NaN with fewer than 8 samples, no oscillation, or
+        fewer than :data:`MIN_CYCLES` periods in the series.
     """
     v = np.asarray(series, dtype=float)
     t = np.asarray(times, dtype=float)
@@ -872,10 +880,11 @@ def wave_summary(
     if t_min is None:
         t_min = float(t[0] + 0.5 * (t[-1] - t[0])) if t.size else math.nan
     if threshold is None:
-        with np.errstate(invalid="ignore"):
-            mean = np.nanmean(vals, axis=0) if vals.size else np.array([])
-        top = float(np.nanmax(mean)) if np.any(np.isfinite(mean)) else math.nan
-        threshold = 0.1 * top
+        ok = np.isfinite(vals)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(ok, vals, 0.0).sum(axis=0) / ok.sum(axis=0)
+        top = float(np.max(mean[np.isfinite(mean)])) if np.any(np.isfinite(mean)) else math.nan
+        threshold = 0.1 * top if top > 0 else math.nan
     pos = front_positions(s, threshold) if math.isfinite(threshold) else np.full(t.size, np.nan)
     d = tr.distance_km
     d0 = float(d[0])

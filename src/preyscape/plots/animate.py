@@ -186,9 +186,9 @@ def animate_run(
     except (OSError, ValueError) as err:
         raise InputError(f"cannot read the results file ({err})", str(results_nc)) from err
     with ds:
-        missing = [sp for sp in species if sp not in ds.data_vars]
+        have = sorted(str(v) for v in ds.data_vars if ds[v].dims == ("time", "y", "x"))
+        missing = [sp for sp in species if sp not in have]
         if missing:
-            have = sorted(v for v in ds.data_vars if ds[v].dims == ("time", "y", "x"))
             raise InputError(f"no density variable {', '.join(missing)}; the file has "
                              f"{', '.join(have) or 'none'}", str(results_nc))
         times = np.asarray(ds["time"].values, dtype=float)
