@@ -21,7 +21,7 @@ from preyscape.model.reactions import Interaction
 from preyscape.pipeline import assemble, prepare, simulate, simulate_variants
 from preyscape.scenario import load_scenario
 from preyscape.solve.run import integrate_epochs
-from preyscape.solve.stepper import StepStats, Stepper
+from preyscape.solve.stepper import Stepper, StepStats
 
 FENCE_COL = 15  # the fence runs along the face line between columns 14 and 15
 CRS_MEMBER = {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}}

@@ -45,13 +45,98 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("scenario", type=Path, help="scenario file (TOML)")
     c.add_argument("--json", action="store_true", help="print the numbers as JSON")
 
-    d = sub.add_parser("demo", help="run the bundled Veldrun Moor scenario")
+    d = sub.add_parser("demo", help="run, compare and report the bundled Veldrun Moor scenario")
     d.add_argument("--out", type=Path,
-                   help="run folder to create (default: preyscape-demo, or the next free "
+                   help="folder to create (default: preyscape-demo, or the next free "
                    "preyscape-demo-N)")
     d.add_argument("--overwrite", action="store_true", help="replace an existing --out folder")
     d.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+
+    def out_opts(q, default: str) -> None:
+        q.add_argument("--out", type=Path, help=f"folder to create (default: {default})")
+        q.add_argument("--overwrite", action="store_true", help="replace an existing --out")
+
+    m = sub.add_parser("compare", help="map where run B differs from run A")
+    m.add_argument("run_a", type=Path, metavar="RUN_A", help="reference run folder")
+    m.add_argument("run_b", type=Path, metavar="RUN_B", help="run folder to compare with it")
+    out_opts(m, "compare-<A>-<B> beside RUN_B")
+    m.add_argument("--threshold", type=float, default=None,
+                   help="relative change of time-mean density that counts as a change "
+                   "(default 0.10 = 10%%, or the scenario's analysis.change_threshold)")
+    m.add_argument("--presence", type=float, default=None,
+                   help="density counted as present, animals per km² (default 1)")
+    m.add_argument("--zones", type=Path,
+                   help="zones for the table: GeoJSON polygons or a class raster (default: "
+                   "the habitat classes)")
+    m.add_argument("--zone-field", help="polygon property naming the zones (default 'name')")
+
+    h = sub.add_parser("hotspots", help="Getis–Ord Gi* hotspots of both species")
+    h.add_argument("run", type=Path, metavar="RUN", help="run folder")
+    out_opts(h, "RUN/hotspots")
+    h.add_argument("--distance", type=float,
+                   help="neighbourhood radius in metres (default: the scenario's "
+                   "analysis.hotspot_distance, else a size from the grid)")
+    h.add_argument("--fdr", type=float, default=None,
+                   help="false discovery rate for significance (default 0.05)")
+
+    w = sub.add_parser("waves", help="arrival times, front speeds and periodic waves")
+    w.add_argument("run", type=Path, metavar="RUN", help="run folder")
+    out_opts(w, "RUN/waves")
+    w.add_argument("--transects", type=Path,
+                   help="GeoJSON lines to measure fronts along (default: the scenario's "
+                   "analysis.transects, else one drawn from the arrival map)")
+    w.add_argument("--prey-threshold", type=float, help="prey arrival density, per km²")
+    w.add_argument("--predator-threshold", type=float,
+                   help="predator arrival density, per km²")
+
+    e = sub.add_parser("effects", help="refuge, corridor and transect effects")
+    e.add_argument("run", type=Path, metavar="RUN", help="run folder")
+    out_opts(e, "RUN/effects")
+    e.add_argument("--without", type=Path, metavar="RUN_WITHOUT",
+                   help="the run without the refuges (default: found beside RUN if there)")
+    e.add_argument("--targets", type=Path, help="GeoJSON polygons of target patches")
+    e.add_argument("--transects", type=Path, help="GeoJSON lines to count animals across")
+
+    rp = sub.add_parser("report", help="one self-contained HTML report of a run")
+    rp.add_argument("run", type=Path, metavar="RUN", help="run folder")
+    rp.add_argument("others", type=Path, nargs="*", metavar="RUN_B",
+                    help="runs to compare with RUN (same grid)")
+    rp.add_argument("--out", type=Path, help="HTML file to write (default: RUN/report.html)")
+    rp.add_argument("--overwrite", action="store_true", help="replace an existing report")
+    rp.add_argument("--no-animation", action="store_true", help="leave out the animated GIF")
     return p
+
+
+def _transects(path: Path | None, run: Path) -> list[dict] | None:
+    """Transects from a GeoJSON file of lines, in the run grid's CRS."""
+    if path is None:
+        return None
+    from preyscape.landscape.measures import read_geometry
+    from preyscape.store import open_run
+
+    grid = open_run(run).grid
+    out = []
+    for k, shape in enumerate(read_geometry(path, grid, source=str(path))):
+        g = shape.geometry
+        lines = list(g.geoms) if hasattr(g, "geoms") else [g]
+        for j, line in enumerate(lines):
+            if line.geom_type != "LineString":
+                continue
+            name = str(shape.properties.get("name") or f"transect {k + 1}")
+            if len(lines) > 1:
+                name += f" {j + 1}"
+            out.append({"name": name, "points": [list(p) for p in line.coords]})
+    if not out:
+        from preyscape.errors import InputError
+
+        raise InputError("no LineString in the file; transects are lines", str(path))
+    return out
+
+
+def _analysis_settings(run: Path) -> dict:
+    from preyscape.store import open_run
+
+    return open_run(run).info.get("analysis") or {}
 
 
 def _fmt(x, unit: str = "", digits: int = 4) -> str:
@@ -149,7 +234,8 @@ def main(argv: list[str] | None = None) -> int:
             else:
                 _print_check(args.scenario, d)
             return 0
-        from preyscape.pipeline import simulate
+        if args.command in ("compare", "hotspots", "waves", "effects", "report"):
+            return _analyse(args)
 
         if args.command == "run":
             from preyscape.pipeline import simulate_variants
@@ -164,21 +250,99 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"  {CAUTION}")
             return 0
         else:  # demo
-            from preyscape.demo import demo_scenario
+            from preyscape.demo import run_demo
 
             out = _demo_out(args.out)
-            folder = simulate(demo_scenario(), out, overwrite=args.overwrite,
-                              progress=False if args.quiet else None)
-        if not args.quiet:
-            _summary(folder)
-            print(f"  {CAUTION}")
-        return 0
+            done = run_demo(out, overwrite=args.overwrite,
+                            progress=False if args.quiet else None,
+                            log=None if args.quiet else print)
+            if not args.quiet:
+                for folder in done["runs"].values():
+                    _summary(folder)
+                for name, folder in done["comparisons"].items():
+                    print(f"comparison baseline → {name}: {folder}")
+            print(f"report: {done['report']}")
+            if not args.quiet:
+                print(f"  {CAUTION}")
+            return 0
     except InputError as exc:
         print(f"preyscape: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("preyscape: interrupted; no run folder was written", file=sys.stderr)
         return 130
+
+
+def _analyse(args) -> int:
+    """The analysis commands: compare, hotspots, waves, effects, report."""
+    if args.command == "compare":
+        from preyscape.products.compare import write_comparison
+
+        st = _analysis_settings(args.run_a)
+        out = args.out or args.run_b.parent / f"compare-{args.run_a.name}-{args.run_b.name}"
+        rec = write_comparison(
+            args.run_a, args.run_b, out,
+            args.threshold if args.threshold is not None else st.get("change_threshold", 0.1),
+            args.presence if args.presence is not None else st.get("presence", 1.0),
+            args.zones, args.zone_field, args.overwrite)
+        print(f"comparison: {rec['folder']}")
+        for k, v in rec["changed_area_km2"].items():
+            print(f"  {k:<16} {rec['changed_cells'][k]:>9} cells  {v:10.4g} km²")
+    elif args.command == "hotspots":
+        from preyscape.products.hotspots import write_hotspots
+
+        st = _analysis_settings(args.run)
+        rec = write_hotspots(args.run, args.out or args.run / "hotspots",
+                             args.distance or st.get("hotspot_distance"),
+                             args.fdr if args.fdr is not None else st.get("significance", 0.05),
+                             args.overwrite)
+        print(f"hotspots (distance band {rec['band_m']:g} m): {args.out or args.run / 'hotspots'}")
+        for sp, d in rec["species"].items():
+            print(f"  {sp:<9} {d['hot_cells']} hotspot cells ({d['hot_area_km2']:.4g} km²), "
+                  f"{100 * d['hot_share_of_animals']:.1f} % of the animals")
+    elif args.command == "waves":
+        from preyscape.products.waves import write_waves
+        from preyscape.store import open_run
+
+        info = open_run(args.run).info
+        st = info.get("analysis") or {}
+        pr = info.get("predictions") or {}
+        tr = _transects(args.transects, args.run) or st.get("transects") or None
+        thr = {"prey": args.prey_threshold or st.get("prey_threshold"),
+               "predator": args.predator_threshold or st.get("predator_threshold")}
+        thr = {k: v for k, v in thr.items() if v} or None
+        rec = write_waves(args.run, args.out or args.run / "waves", tr, thr,
+                          {"prey": pr.get("prey_front_speed"),
+                           "predator": pr.get("predator_front_speed")}, args.overwrite)
+        print(f"waves: {rec['out']}")
+        for f in rec["fronts"]:
+            print(f"  {f['transect']}, {f['species']}: front {_fmt(f['speed_km_yr'], 'km/yr')}"
+                  f" (predicted minimal {_fmt(f['predicted_km_yr'], 'km/yr')})")
+    elif args.command == "effects":
+        from preyscape.products.effects import write_effects
+        from preyscape.products.run_report import find_without_refuge
+        from preyscape.store import open_run
+
+        without = args.without or find_without_refuge(args.run, open_run(args.run).info)
+        rec = write_effects(args.run, args.out or args.run / "effects", without,
+                            args.targets, _transects(args.transects, args.run),
+                            overwrite=args.overwrite)
+        print(f"effects: {rec['folder']}")
+        if without is not None:
+            print(f"  compared with the run without refuges: {without}")
+        for r in rec["refuges"]:
+            print(f"  refuge {r['name']}: spill-over decay length "
+                  f"{_fmt(r.get('decay_length_km'), 'km')}")
+        for t in rec["targets"]:
+            print(f"  target {t['name']}: predators colonised in year "
+                  f"{_fmt(t.get('predator_colonised_year'))}")
+    else:
+        from preyscape.products.run_report import write_report
+
+        path = write_report(args.run, args.out, args.others, args.overwrite,
+                            animate=not args.no_animation)
+        print(f"report: {path}")
+    return 0
 
 
 if __name__ == "__main__":  # pragma: no cover

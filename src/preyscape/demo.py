@@ -21,3 +21,56 @@ def demo_scenario():
     from preyscape.scenario import load_scenario
 
     return load_scenario(landscapes_dir() / DEMO_SCENARIO)
+
+
+def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
+             log=None) -> dict:
+    """Run the bundled scenario's baseline and variants, compare and report them.
+
+    Parameters
+    ----------
+    out : pathlib.Path
+        Folder to create: one run folder per variant, ``compare-<variant>``
+        folders and ``report.html``.
+    overwrite : bool
+        Replace an existing ``out``.
+    progress : bool, optional
+        Progress bars (default: on a terminal).
+    log : callable, optional
+        Called with a line of text before each stage.
+
+    Returns
+    -------
+    dict
+        ``runs`` (variant → run folder), ``comparisons`` (variant → folder)
+        and ``report`` (the HTML file).
+    """
+    import shutil
+
+    from preyscape.errors import InputError
+    from preyscape.pipeline import simulate_variants
+    from preyscape.products.compare import write_comparison
+    from preyscape.products.run_report import write_report
+
+    say = log or (lambda _text: None)
+    out = Path(out)
+    if out.exists():
+        if not overwrite:
+            raise InputError("folder already exists; choose another with --out or pass "
+                             "--overwrite to replace it", str(out))
+        shutil.rmtree(out)
+    sc = demo_scenario()
+    say(f"running {', '.join(sc.variant_names())} into {out} ...")
+    runs = simulate_variants(sc, out, progress=progress)
+    settings = sc.analysis
+    comparisons = {}
+    for name in ("fence", "corridor"):
+        if name in runs:
+            say(f"comparing baseline with {name} ...")
+            rec = write_comparison(runs["baseline"], runs[name], out / f"compare-{name}",
+                                   settings.change_threshold, settings.presence)
+            comparisons[name] = Path(rec["folder"])
+    say("writing the report ...")
+    others = [runs[n] for n in ("fence", "corridor") if n in runs]
+    report = write_report(runs["baseline"], out / "report.html", others)
+    return {"runs": runs, "comparisons": comparisons, "report": report}

@@ -31,7 +31,7 @@ from preyscape.model.fields import (
 from preyscape.model.movement import Movement, build_movement
 from preyscape.model.reactions import Interaction
 from preyscape.scenario import MeasureSpec, Scenario, load_scenario
-from preyscape.solve.stepper import StepStats, Stepper, auto_step
+from preyscape.solve.stepper import Stepper, StepStats, auto_step
 
 
 @dataclass(eq=False)
@@ -455,6 +455,11 @@ def _predictions(setup: Setup) -> dict:
             "prey_front_speed", "predator_front_speed", "best_habitat")
     out = {k: d[k] for k in keys}
     out["equilibrium"] = [None if not math.isfinite(v) else v for v in out["equilibrium"]]
+    b = d["best_habitat"]
+    it = setup.interaction
+    out["predator_growth_at_capacity"] = (
+        it.efficiency * it.attack_rate * b["K"] / (1 + it.attack_rate * it.h * b["K"]) - b["m"]
+        if math.isfinite(b["K"]) else None)
     out["growth"] = setup.scenario.prey.growth
     out["prey_movement"] = setup.scenario.prey.move_coefficient
     out["predator_movement"] = setup.scenario.predator.move_coefficient
@@ -626,9 +631,10 @@ def simulate(
         grid, habitat = setup.grid, setup.habitat
         stats = StepStats()
         epochs = setup.epochs
+        build = setup.epoch_stepper
 
         def make_stepper(k: int) -> Stepper:
-            st = setup.epoch_stepper(k, stats)
+            st = build(k, stats)
             store.save_operators(tmp / "operators" / f"epoch_{k}.npz", epochs[k][:2],
                                  st.prey_movement, st.predator_movement)
             return st
@@ -640,7 +646,7 @@ def simulate(
             writer.close()
         finals = {k: np.where(grid.mask, v, np.nan) for k, v in (("prey", N), ("predator", P))}
         dt, n_snapshots = setup.dt, writer.n
-        del N, P, setup, writer  # free the run's arrays before the summaries
+        del N, P, setup, writer, build  # free the run's arrays before the summaries
         means = store.time_means(tmp / "results.nc", grid.mask)
         store.write_summaries(tmp / "summary", grid, means, finals)
         if maps:
@@ -671,6 +677,8 @@ def simulate(
                        for a, b, n in epochs],
             "predictions": predictions,
             "analysis": sc.analysis.model_dump(mode="json"),
+            "settings": {k: sc.model_dump(mode="json")[k]
+                         for k in ("prey", "predator", "interaction", "start", "run")},
             "classes": ({str(c.code): c.name for c in sc.landscape.classes}
                         if sc.landscape.values == "classes" else None),
             "positivity_clip_total": stats.clipped,

@@ -605,7 +605,8 @@ def _message(err: dict) -> str:
     if kind == "extra_forbidden":
         key = str(loc[-1])
         parent = _model_at(loc[:-1])
-        valid = sorted(f for f in parent.model_fields if f not in ("path", "raw", "variant")) if parent else []
+        hidden = ("path", "raw", "variant")
+        valid = sorted(f for f in parent.model_fields if f not in hidden) if parent else []
         near = difflib.get_close_matches(key, valid, n=1, cutoff=0.6)
         hint = f"; did you mean '{near[0]}'?" if near else ""
         return f"{where}: unknown key '{key}'{hint} Valid keys here: {', '.join(valid)}"

@@ -57,7 +57,7 @@ def _new(figsize=(6.4, 5.4), layout: str | None = None) -> Figure:
 def _save(fig: Figure, path: Path) -> Path:
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name("." + path.name + ".tmp.png")
-    fig.savefig(tmp, format="png")
+    fig.savefig(tmp, format="png", bbox_inches="tight")
     tmp.replace(path)
     return path
 

@@ -215,6 +215,8 @@ def write_waves(
             reached = np.isfinite(a) & grid.mask
             summary["arrival"][sp] = {
                 "reached_fraction": float(reached.sum() / max(grid.n_cells, 1)),
+                "present_at_start_fraction": float((reached & (a <= 0)).sum()
+                                                   / max(grid.n_cells, 1)),
                 "median_years": _f(float(np.median(a[reached]))) if reached.any() else None,
                 "latest_years": _f(float(np.max(a[reached]))) if reached.any() else None,
             }
@@ -263,6 +265,8 @@ def write_waves(
                     "predicted_km_yr": fit.predicted, "ratio": fit.ratio, "n": fit.n,
                     "wavelength_km": wave.wavelength, "period_yr": wave.period,
                     "phase_speed_km_yr": wave.phase_speed,
+                    "fit_start_yr": float(fit.times[0]) if fit.n else math.nan,
+                    "fit_end_yr": float(fit.times[-1]) if fit.n else math.nan,
                 }
                 rows.append([rec[k] for k in FRONTS_HEADER])
                 summary["fronts"].append(
