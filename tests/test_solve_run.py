@@ -73,3 +73,53 @@ def test_resume_reaches_bitwise_the_same_state():
     integrate(_stepper(), Nr, Pr, 2.0, 0.25, rest, start_step=step, progress=False)
     assert np.array_equal(Nr, N) and np.array_equal(Pr, P)
     assert rest.times == full.times[4:]
+
+
+def test_one_epoch_is_the_plain_run_bitwise():
+    # design requirement: splitting the loop into epochs changes nothing by itself
+    from preyscape.solve.run import integrate_epochs
+
+    N, P = _start()
+    a = Keep()
+    integrate(_stepper(), N, P, 1.0, 0.25, a, progress=False)
+    N2, P2 = _start()
+    b = Keep()
+    integrate_epochs(lambda k: _stepper(), [(0.0, 1.0)], N2, P2, 0.25, 0.05, b, progress=False)
+    assert np.array_equal(N, N2) and np.array_equal(P, P2)
+    assert a.times == b.times and sorted(a.checkpoints) == sorted(b.checkpoints)
+
+
+def test_epochs_resume_bitwise_and_restart_damped():
+    # design requirement: a resumed run with epochs matches an uninterrupted one bitwise;
+    # each epoch starts with the stepper's damped steps (index counted within the epoch)
+    from preyscape.solve.run import integrate_epochs
+
+    built = []
+
+    def make(k):
+        built.append(k)
+        return _stepper()
+
+    epochs = [(0.0, 0.5), (0.5, 2.0)]
+    N, P = _start()
+    full = Keep()
+    integrate_epochs(make, epochs, N, P, 0.25, 0.05, full, progress=False)
+    assert built == [0, 1]
+    N2, P2 = _start()
+    part = Keep(stop_after=4)
+    with pytest.raises(KeyboardInterrupt):
+        integrate_epochs(make, epochs, N2, P2, 0.25, 0.05, part, progress=False)
+    step = max(part.checkpoints)
+    Nr, Pr = (x.copy() for x in part.checkpoints[step])
+    built.clear()
+    rest = Keep()
+    integrate_epochs(make, epochs, Nr, Pr, 0.25, 0.05, rest, start_step=step, progress=False)
+    assert built == [1]  # the finished epoch is not rebuilt
+    assert np.array_equal(Nr, N) and np.array_equal(Pr, P)
+    # a plain run (one epoch) differs: the second epoch restarted with damped steps
+    N3, P3 = _start()
+    integrate(_stepper(), N3, P3, 2.0, 0.25, Keep(), progress=False)
+    assert not np.array_equal(N3, N)
+    with pytest.raises(ValueError):
+        integrate_epochs(make, [(0.0, 0.5), (0.75, 2.0)], *_start(), 0.25, 0.05, Keep(),
+                         progress=False)

@@ -10,9 +10,10 @@ The public API (imported lazily so ``preyscape --help`` stays fast)::
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
+__version__ = "0.2.0"
 
-__all__ = ["load_scenario", "simulate", "open_run", "prepare", "derived", "__version__"]
+__all__ = ["load_scenario", "simulate", "simulate_variants", "open_run", "prepare", "derived",
+           "__version__"]
 
 
 def __getattr__(name: str):
@@ -20,7 +21,7 @@ def __getattr__(name: str):
         from preyscape.scenario import load_scenario
 
         return load_scenario
-    if name in ("simulate", "prepare", "derived"):
+    if name in ("simulate", "simulate_variants", "prepare", "derived"):
         from preyscape import pipeline
 
         return getattr(pipeline, name)

@@ -646,7 +646,8 @@ def simulate(
             writer.close()
         finals = {k: np.where(grid.mask, v, np.nan) for k, v in (("prey", N), ("predator", P))}
         dt, n_snapshots = setup.dt, writer.n
-        del N, P, setup, writer, build  # free the run's arrays before the summaries
+        del N, P, writer  # free the run's arrays before the summaries
+        setup = build = None  # (the stepper closure holds them otherwise)
         means = store.time_means(tmp / "results.nc", grid.mask)
         store.write_summaries(tmp / "summary", grid, means, finals)
         if maps:

@@ -206,7 +206,6 @@ def _wave_section(rep, wv: dict, tmp: Path, info: dict) -> None:
         "capacity. A front approaches its minimal speed from below: over a few kilometres "
         "it is slower, and poorer habitat slows it further.")
     rows = []
-    pr = info.get("predictions") or {}
     notes = []
     # a species that occupies most of the landscape from the start has no front to follow
     settled = [sp for sp in SPECIES
@@ -220,24 +219,13 @@ def _wave_section(rep, wv: dict, tmp: Path, info: dict) -> None:
         rows.append([f["transect"], _name(info, f["species"]), f["speed_km_yr"],
                      f["stderr_km_yr"], f["predicted_km_yr"], f["ratio"], f["n"],
                      f["wavelength_km"], f["period_yr"]])
-        t1, t2 = f.get("fit_start_yr"), f.get("fit_end_yr")
-        g = pr.get("predator_growth_at_capacity") if f["species"] == "predator" else pr.get(
-            "growth")
-        D = pr.get("predator_movement") if f["species"] == "predator" else pr.get(
-            "prey_movement")
-        c = f["predicted_km_yr"]
-        if all(isinstance(v, (int, float)) and v is not None and math.isfinite(v) and v > 0
-               for v in (t1, t2, g, D, c)) and t2 > t1:
-            # point release in two dimensions: position c t - (d+2)/2 sqrt(D/g) ln t
-            # (Bramson 1983 for d = 1; Gartner 1982 and Ducrot 2015 for radial fronts;
-            # from memory)
-            mean = c - 2.0 * math.sqrt(D / g) * math.log(t2 / t1) / (t2 - t1)
-            notes.append(f"{f['transect']}, {f['species']}: from a point release the front "
-                         f"is expected to average about {mean:.3g} km/yr between "
-                         f"{t1:.3g} and {t2:.3g} yr (minimal speed minus the logarithmic "
-                         "delay of a radial front, 2√(D/g)·ln t; from memory of Gärtner "
-                         "1982 and Ducrot 2015), against the fitted "
-                         f"{_num(f['speed_km_yr'], 'km/yr')}.")
+        if isinstance(f["ratio"], float) and math.isfinite(f["ratio"]):
+            notes.append(f"{f['transect']}, {f['species']}: the fitted front moved at "
+                         f"{100 * f['ratio']:.0f} % of the minimal speed predicted for the "
+                         "best habitat. Below 100 % is expected over short distances (a "
+                         "front approaches its minimal speed from below; Bramson 1983) and "
+                         "where poorer habitat lies on the way; well above it would point "
+                         "to a too coarse step or threshold.")
     if rows:
         sec.table(["transect", "species", "fitted speed (km/yr)", "std. error (km/yr)",
                    "predicted minimal speed (km/yr)", "fitted / predicted", "snapshots",
@@ -255,6 +243,10 @@ def _wave_section(rep, wv: dict, tmp: Path, info: dict) -> None:
                 for f in wv.get("fronts", []) if f["n"]):
             continue
         cap = png.replace("_", " ").removesuffix(".png")
+        if png.endswith("_front_speed.png"):
+            cap += (" (1/|∇T| of the arrival time T; very large values mark places the front "
+                    "reaches almost at once, near the release or where fronts meet, not a "
+                    "fast-moving front)")
         sec.figure(tmp / png, cap, cap)
 
 
@@ -329,10 +321,15 @@ def _compare_section(rep, cmp: dict, tmp: Path, base, other) -> None:
     sec.table(["change", "cells", "area (km²)"], rows)
     tot = cmp.get("time_mean_totals_animals") or {}
     if tot:
-        sec.table(["species", "run A (animals)", "run B (animals)"],
-                  [[sp, v.get("a"), v.get("b")] for sp, v in tot.items()
-                   if isinstance(v, dict)],
-                  caption="Time-mean animals in the whole landscape")
+        rows = []
+        for sp, v in tot.items():
+            if not isinstance(v, dict):
+                continue
+            a, b = v.get("a"), v.get("b")
+            pct = 100.0 * (b - a) / a if a else None
+            rows.append([sp, a, b, pct])
+        sec.table(["species", "run A (animals)", "run B (animals)", "change (%)"], rows,
+                  caption="Time-mean animals in the whole landscape", numeric_format="{:,.0f}")
     for f, cap in (("change.png", "Where the outcome changes"),
                    ("prey_mean_difference.png", "Prey time-mean density, B − A"),
                    ("predator_mean_difference.png", "Predator time-mean density, B − A"),
