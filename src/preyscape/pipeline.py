@@ -10,15 +10,13 @@ everything is complete.
 from __future__ import annotations
 
 import math
-import os
-import shutil
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from preyscape import __version__
+from preyscape import __version__, store
 from preyscape.errors import InputError
 from preyscape.landscape.grid import Grid
 from preyscape.model import theory
@@ -586,26 +584,16 @@ def simulate(
     pathlib.Path
         The run folder.
     """
-    from preyscape import store
     from preyscape.solve.kernels import warm_up
     from preyscape.solve.run import integrate_epochs
 
     _return_freed_memory()
     sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
     out = Path(out)
-    if out.exists() and not overwrite:
-        raise InputError(
-            "run folder already exists; choose another with --out or pass --overwrite to "
-            "replace it", str(out),
-        )
+    store.refuse_existing(out, overwrite, "run folder")  # before any work
     setup = prepare(sc)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.parent / f".{out.name}.partial-{os.getpid()}"
-    if tmp.exists():
-        shutil.rmtree(tmp)
-    tmp.mkdir()
     t0 = time.perf_counter()
-    try:
+    with store.output_folder(out, overwrite, "run folder") as tmp:
         warm_up()
         compiled = time.perf_counter() - t0
         names = {"prey": sc.prey.name, "predator": sc.predator.name}
@@ -688,12 +676,6 @@ def simulate(
             "finished": store.now_iso(),
         }
         store.write_json(tmp / "run.json", record)
-        if out.exists():  # overwrite was asked for
-            shutil.rmtree(out)
-        os.replace(tmp, out)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
     return out
 
 
@@ -722,13 +704,8 @@ def plan_variants(
     else:
         names = variants or sc.variant_names()
         plan = {n: (sc.for_variant(n), out / n) for n in dict.fromkeys(names)}
-    if not overwrite:
-        for _, folder in plan.values():
-            if folder.exists():
-                raise InputError(
-                    "run folder already exists; choose another with --out or pass --overwrite "
-                    "to replace it", str(folder),
-                )
+    for _, folder in plan.values():
+        store.refuse_existing(folder, overwrite, "run folder")
     return plan
 
 

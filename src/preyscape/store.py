@@ -17,6 +17,8 @@ from __future__ import annotations
 
 import json
 import os
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -300,6 +302,58 @@ def load_operators(folder: Path) -> list[dict]:
         with np.load(f) as z:
             out.append({k: z[k] for k in z.files})
     return out
+
+
+def refuse_existing(out: Path, overwrite: bool, what: str = "output folder") -> None:
+    """Raise :class:`~preyscape.errors.InputError` if ``out`` exists and may not be replaced."""
+    from preyscape.errors import InputError
+
+    if Path(out).exists() and not overwrite:
+        raise InputError(
+            f"{what} already exists; choose another with --out or pass --overwrite to "
+            "replace it", str(out),
+        )
+
+
+@contextmanager
+def output_folder(out: str | Path, overwrite: bool = False,
+                  what: str = "output folder") -> Iterator[Path]:
+    """Create the folder ``out`` atomically: yield a temporary folder, rename it when done.
+
+    Parameters
+    ----------
+    out : str or pathlib.Path
+        The folder to create.
+    overwrite : bool
+        Replace an existing ``out``; otherwise an existing folder is an
+        :class:`~preyscape.errors.InputError` and is left untouched.
+    what : str
+        What the folder is, for the message.
+
+    Yields
+    ------
+    pathlib.Path
+        A hidden temporary folder beside ``out`` (``.NAME.partial-PID``). If the
+        block raises (or is interrupted), the temporary folder is removed and
+        ``out`` is unchanged.
+    """
+    import shutil
+
+    out = Path(out)
+    refuse_existing(out, overwrite, what)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = out.parent / f".{out.name}.partial-{os.getpid()}"
+    if tmp.exists():
+        shutil.rmtree(tmp)
+    tmp.mkdir()
+    try:
+        yield tmp
+        if out.exists():  # overwrite was asked for
+            shutil.rmtree(out)
+        os.replace(tmp, out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
 
 
 def write_json(path: Path, record: dict) -> None:

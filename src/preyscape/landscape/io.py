@@ -18,6 +18,7 @@ from __future__ import annotations
 import math
 import os
 import uuid
+from collections.abc import Callable
 from pathlib import Path
 from typing import Literal
 
@@ -162,6 +163,7 @@ def read_layer_onto(
     grid: Grid,
     resampling: str = "average",
     source: str | None = None,
+    values: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
 ) -> np.ndarray:
     """Read band 1 of a raster and align it onto ``grid``.
 
@@ -182,6 +184,10 @@ def read_layer_onto(
         cells with data; ``"mode"`` is the majority value (for categories).
     source : str, optional
         Name used in error messages. Default: ``str(path)``.
+    values : callable, optional
+        ``values(raw, valid)`` turns band 1 and its validity mask into the
+        float64 array to warp (NaN = no data). Default: the raw values, NaN
+        where not valid.
 
     Returns
     -------
@@ -219,7 +225,8 @@ def read_layer_onto(
     # A one-cell no-data frame: GDAL's average and mode take at least one
     # source cell per target cell, so target cells that merely touch the
     # layer's edge would otherwise copy the edge cell instead of being NaN.
-    src = np.pad(np.where(valid, raw, np.nan).astype(np.float64), 1, constant_values=np.nan)
+    data = np.where(valid, raw, np.nan) if values is None else values(raw, valid)
+    src = np.pad(np.asarray(data, dtype=np.float64), 1, constant_values=np.nan)
     t = src_transform
     src_transform = Affine(t.a, t.b, t.c - t.a - t.b, t.d, t.e, t.f - t.d - t.e)
     out = np.full(grid.shape, np.nan, dtype=np.float64)

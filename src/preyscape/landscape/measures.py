@@ -304,46 +304,17 @@ def cells_from_raster(
     ValueError
         If ``grid`` has no CRS.
     """
-    from affine import Affine
-    from rasterio.crs import CRS
-    from rasterio.errors import CRSError, RasterioError
-    from rasterio.warp import Resampling, reproject
+    from preyscape.landscape.io import read_layer_onto
 
-    from preyscape.landscape import io
+    def marked(raw: np.ndarray, valid: np.ndarray) -> np.ndarray:
+        # no-data counts as unmarked (0) inside the raster; beyond its edge the
+        # grid cells stay NaN (not covered)
+        vals = raw.astype(np.float64, copy=False)
+        with np.errstate(invalid="ignore"):
+            return (valid & np.isfinite(vals) & (vals != 0)).astype(np.float64)
 
     src_name = str(path) if source is None else source
-    if not grid.crs_wkt:
-        raise ValueError("grid has no CRS (crs_wkt is empty); cannot align a layer onto it")
-    with io._open(path, src_name) as ds:
-        src_crs = ds.crs
-        io._check_crs(src_crs, src_name, need_metres=False)
-        t = ds.transform
-        io._check_transform(t, src_name)
-        raw, valid = io._read_band1(ds, src_name)
-    vals = raw.astype(np.float64, copy=False)
-    with np.errstate(invalid="ignore"):
-        marked = valid & np.isfinite(vals) & (vals != 0)
-    # No-data counts as unmarked (0) inside the raster; the one-cell NaN frame
-    # keeps grid cells beyond the raster's edge unmarked (see read_layer_onto).
-    src = np.pad(marked.astype(np.float64), 1, constant_values=np.nan)
-    src_transform = Affine(t.a, t.b, t.c - t.a - t.b, t.d, t.e, t.f - t.d - t.e)
-    out = np.full(grid.shape, np.nan, dtype=np.float64)
-    try:
-        reproject(
-            source=src,
-            destination=out,
-            src_transform=src_transform,
-            src_crs=src_crs,
-            src_nodata=np.nan,
-            dst_transform=io._grid_transform(grid),
-            dst_crs=CRS.from_wkt(grid.crs_wkt),
-            dst_nodata=np.nan,
-            resampling=Resampling.average,
-        )
-    except (RasterioError, CRSError) as exc:
-        raise InputError(
-            f"could not align the raster onto the habitat grid: {exc}", src_name
-        ) from None
+    out = read_layer_onto(path, grid, "average", src_name, values=marked)
     with np.errstate(invalid="ignore"):
         return (out >= 0.5) & grid.mask
 

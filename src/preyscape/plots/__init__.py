@@ -69,6 +69,32 @@ def _axes_labels(ax, grid: Grid) -> None:
     ax.set_aspect("equal")
 
 
+def map_figure(grid: Grid, values: np.ndarray, title: str, cmap, *, norm=None,
+               vmin: float | None = None, vmax: float | None = None,
+               units: str | None = None, extend: str = "neither"):
+    """Start a map of one raster: no-data grey, axes in km, title, colour bar if ``units``.
+
+    Returns ``(fig, ax, image)``; finish with :func:`finish_map`. ``cmap`` is a
+    colour map name or object; ``norm`` or ``vmin``/``vmax`` set its scale.
+    """
+    fig = _new()
+    ax = fig.add_subplot()
+    im = ax.imshow(_shown(grid, values), extent=_extent_km(grid), cmap=_cmap(cmap), norm=norm,
+                   vmin=vmin, vmax=vmax, interpolation="nearest")
+    ax.set_facecolor(NO_DATA)
+    _axes_labels(ax, grid)
+    ax.set_title(title, fontsize=10)
+    if units is not None:
+        fig.colorbar(im, ax=ax, shrink=0.85, label=units, extend=extend)
+    return fig, ax, im
+
+
+def finish_map(fig: Figure, path: Path) -> Path:
+    """Lay out and save a figure from :func:`map_figure`; returns the PNG path."""
+    fig.tight_layout()
+    return _save(fig, path)
+
+
 def density_map(
     grid: Grid,
     values: np.ndarray,
@@ -79,25 +105,18 @@ def density_map(
     units: str = "animals per km²",
 ) -> Path:
     """Draw one density map (animals/km²) with no-data masked; returns the PNG path."""
-    fig = _new()
-    ax = fig.add_subplot()
     data = _shown(grid, values)
-    cm = _cmap(cmap)
     vmax = vmax if vmax is not None else (float(data.max()) if data.count() else 1.0)
-    im = ax.imshow(data, extent=_extent_km(grid), cmap=cm, vmin=0.0, vmax=max(vmax, 1e-12),
-                   interpolation="nearest")
-    ax.set_facecolor(NO_DATA)
-    _axes_labels(ax, grid)
-    ax.set_title(title, fontsize=10)
-    fig.colorbar(im, ax=ax, shrink=0.85, label=units)
-    fig.tight_layout()
-    return _save(fig, path)
+    fig, _, _ = map_figure(grid, values, title, cmap, vmin=0.0, vmax=max(vmax, 1e-12),
+                           units=units)
+    return finish_map(fig, path)
 
 
-def _cmap(name: str):
+def _cmap(name):
     from matplotlib import colormaps
 
-    return colormaps[name].with_extremes(bad=NO_DATA)
+    cm = colormaps[name] if isinstance(name, str) else name
+    return cm.with_extremes(bad=NO_DATA)
 
 
 MEASURE_STYLE = {  # ours: line colour and style per kind of measure

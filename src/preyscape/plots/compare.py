@@ -14,7 +14,14 @@ from matplotlib.colors import BoundaryNorm, ListedColormap, TwoSlopeNorm
 from matplotlib.patches import Patch
 
 from preyscape.landscape.grid import Grid
-from preyscape.plots import NO_DATA, _axes_labels, _cmap, _extent_km, _new, _save, _shown
+from preyscape.plots import (
+    NO_DATA,
+    _new,
+    _save,
+    _shown,
+    finish_map,
+    map_figure,
+)
 
 CHANGE_COLOURS = {
     0: "#f2f0e6",  # no change
@@ -47,21 +54,13 @@ def difference_map(grid: Grid, diff: np.ndarray, title: str, path: Path,
     pathlib.Path
         ``path``.
     """
-    fig = _new()
-    ax = fig.add_subplot()
     data = _shown(grid, diff)
     # symmetric limits, so equal gains and losses get equally strong colours
     lim = float(np.abs(data).max()) if data.count() else 0.0
     lim = lim if lim > 0 else 1e-12
-    norm = TwoSlopeNorm(vcenter=0.0, vmin=-lim, vmax=lim)
-    im = ax.imshow(data, extent=_extent_km(grid), cmap=_cmap("RdBu_r"), norm=norm,
-                   interpolation="nearest")
-    ax.set_facecolor(NO_DATA)
-    _axes_labels(ax, grid)
-    ax.set_title(title, fontsize=10)
-    fig.colorbar(im, ax=ax, shrink=0.85, label=units)
-    fig.tight_layout()
-    return _save(fig, path)
+    fig, _, _ = map_figure(grid, diff, title, "RdBu_r",
+                           norm=TwoSlopeNorm(vcenter=0.0, vmin=-lim, vmax=lim), units=units)
+    return finish_map(fig, path)
 
 
 def change_map(grid: Grid, classes: np.ndarray, title: str, path: Path) -> Path:
@@ -83,24 +82,16 @@ def change_map(grid: Grid, classes: np.ndarray, title: str, path: Path) -> Path:
     pathlib.Path
         ``path``.
     """
-    fig = _new()
-    ax = fig.add_subplot()
     codes = np.asarray(classes)
-    data = _shown(grid, np.where(codes < 0, np.nan, codes).astype(float))
     colours = [CHANGE_COLOURS[k] for k in range(4)]
-    cm = ListedColormap(colours).with_extremes(bad=NO_DATA)
-    norm = BoundaryNorm(np.arange(5) - 0.5, 4)
-    ax.imshow(data, extent=_extent_km(grid), cmap=cm, norm=norm, interpolation="nearest")
+    fig, ax, _ = map_figure(grid, np.where(codes < 0, np.nan, codes).astype(float), title,
+                            ListedColormap(colours), norm=BoundaryNorm(np.arange(5) - 0.5, 4))
     handles = [Patch(facecolor=CHANGE_COLOURS[k], edgecolor="#808080", label=CHANGE_LABELS[k])
                for k in range(4)]
     handles.append(Patch(facecolor=NO_DATA, edgecolor="#808080", label="no data"))
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1), fontsize=8,
               frameon=False)
-    ax.set_facecolor(NO_DATA)
-    _axes_labels(ax, grid)
-    ax.set_title(title, fontsize=10)
-    fig.tight_layout()
-    return _save(fig, path)
+    return finish_map(fig, path)
 
 
 def totals_compare_plot(

@@ -11,12 +11,9 @@ from matplotlib.patches import Patch
 from preyscape.landscape.grid import Grid
 from preyscape.plots import (
     NO_DATA,
-    _axes_labels,
-    _cmap,
-    _extent_km,
-    _new,
-    _save,
     _shown,
+    finish_map,
+    map_figure,
     thin,
 )
 
@@ -76,14 +73,12 @@ def hotspot_map(
     pathlib.Path
         ``path``.
     """
-    fig = _new()
-    ax = fig.add_subplot()
     data = _shown(grid, z)
     lim = float(np.abs(data).max()) if data.count() else 1.0
     lim = max(lim, 1.0)  # a flat field still gets a readable scale of ±1
-    im = ax.imshow(data, extent=_extent_km(grid), cmap=_cmap("RdBu_r"),
-                   norm=TwoSlopeNorm(vcenter=0.0, vmin=-lim, vmax=lim), interpolation="nearest")
-    ax.set_facecolor(NO_DATA)
+    fig, ax, _ = map_figure(grid, z, title, "RdBu_r",
+                            norm=TwoSlopeNorm(vcenter=0.0, vmin=-lim, vmax=lim),
+                            units="Gi* z-score")
     handles = []
     if _mark(ax, grid, hot, HOT, "///"):
         handles.append(Patch(facecolor="none", edgecolor=HOT, hatch="///",
@@ -94,11 +89,7 @@ def hotspot_map(
     handles.append(Patch(color=NO_DATA, label="no data"))
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(0.0, -0.12), ncol=3,
               fontsize=7, frameon=False)
-    _axes_labels(ax, grid)
-    ax.set_title(title, fontsize=10)
-    fig.colorbar(im, ax=ax, shrink=0.85, label="Gi* z-score")
-    fig.tight_layout()
-    return _save(fig, path)
+    return finish_map(fig, path)
 
 
 def persistence_map(grid: Grid, fraction: np.ndarray, title: str, path: Path) -> Path:
@@ -120,13 +111,6 @@ def persistence_map(grid: Grid, fraction: np.ndarray, title: str, path: Path) ->
     pathlib.Path
         ``path``.
     """
-    fig = _new()
-    ax = fig.add_subplot()
-    im = ax.imshow(_shown(grid, fraction), extent=_extent_km(grid), cmap=_cmap("YlOrRd"),
-                   vmin=0.0, vmax=1.0, interpolation="nearest")
-    ax.set_facecolor(NO_DATA)
-    _axes_labels(ax, grid)
-    ax.set_title(title, fontsize=10)
-    fig.colorbar(im, ax=ax, shrink=0.85, label="share of snapshots as hotspot (0–1)")
-    fig.tight_layout()
-    return _save(fig, path)
+    fig, _, _ = map_figure(grid, fraction, title, "YlOrRd", vmin=0.0, vmax=1.0,
+                           units="share of snapshots as hotspot (0–1)")
+    return finish_map(fig, path)

@@ -14,7 +14,14 @@ from typing import Any
 import numpy as np
 
 from preyscape.landscape.grid import Grid
-from preyscape.plots import NO_DATA, _axes_labels, _cmap, _extent_km, _new, _save, _shown
+from preyscape.plots import (
+    _extent_km,
+    _new,
+    _save,
+    _shown,
+    finish_map,
+    map_figure,
+)
 
 ARRIVAL_CMAP = "cividis"  # sequential, perceptually uniform, readable in grey
 SPEED_CMAP = "plasma"
@@ -66,22 +73,16 @@ def arrival_map(
         objects, ``{"name", "points"}`` dicts or polylines of map ``(x, y)``
         in metres. A dot marks each start.
     """
-    fig = _new()
-    ax = fig.add_subplot()
     data = _shown(grid, arrival)
     vmax = float(data.max()) if data.count() else 1.0
-    im = ax.imshow(data, extent=_extent_km(grid), cmap=_cmap(ARRIVAL_CMAP), vmin=0.0,
-                   vmax=max(vmax, 1e-12), interpolation="nearest")
-    ax.set_facecolor(NO_DATA)
+    fig, ax, _ = map_figure(grid, arrival, title, ARRIVAL_CMAP, vmin=0.0,
+                            vmax=max(vmax, 1e-12),
+                            units="arrival time (years); grey: never or no data")
     _draw_transects(ax, transects)
     left, right, bottom, top = _extent_km(grid)
     ax.set_xlim(left, right)
     ax.set_ylim(bottom, top)
-    _axes_labels(ax, grid)
-    ax.set_title(title, fontsize=10)
-    fig.colorbar(im, ax=ax, shrink=0.85, label="arrival time (years); grey: never or no data")
-    fig.tight_layout()
-    return _save(fig, path)
+    return finish_map(fig, path)
 
 
 def speed_map(grid: Grid, speed: np.ndarray, title: str, path: Path) -> Path:
@@ -91,19 +92,11 @@ def speed_map(grid: Grid, speed: np.ndarray, title: str, path: Path) -> Path:
     (the local speed is a derivative of interpolated arrival times) do not
     wash out the rest; faster cells are drawn in the top colour.
     """
-    fig = _new()
-    ax = fig.add_subplot()
-    data = _shown(grid, speed)
-    vals = data.compressed()
+    vals = _shown(grid, speed).compressed()
     vmax = float(np.percentile(vals, 98)) if vals.size else 1.0
-    im = ax.imshow(data, extent=_extent_km(grid), cmap=_cmap(SPEED_CMAP), vmin=0.0,
-                   vmax=max(vmax, 1e-12), interpolation="nearest")
-    ax.set_facecolor(NO_DATA)
-    _axes_labels(ax, grid)
-    ax.set_title(title, fontsize=10)
-    fig.colorbar(im, ax=ax, shrink=0.85, label="local front speed (km/yr)", extend="max")
-    fig.tight_layout()
-    return _save(fig, path)
+    fig, _, _ = map_figure(grid, speed, title, SPEED_CMAP, vmin=0.0, vmax=max(vmax, 1e-12),
+                           units="local front speed (km/yr)", extend="max")
+    return finish_map(fig, path)
 
 
 def front_plot(fit: Any, path: Path, label: str) -> Path:

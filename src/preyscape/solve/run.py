@@ -77,32 +77,8 @@ def integrate(
     progress : bool, optional
         Show a progress bar; default: only when standard error is a terminal.
     """
-    n_steps, per_save = schedule(years, save_every, stepper.dt)
-    if start_step == 0:
-        sink.write(0.0, N, P)
-    show = sys.stderr.isatty() if progress is None else progress
-    bar = None
-    if show:
-        from tqdm import tqdm
-
-        bar = tqdm(total=n_steps, initial=start_step, unit="step", desc="simulating",
-                   leave=False, file=sys.stderr)
-    checkpoint = getattr(sink, "checkpoint", None)
-    if start_step % per_save:
-        raise ValueError("a run resumes only from a save point")
-    for k in range(start_step, n_steps, per_save):
-        # between two saves the stepper fuses the half reaction steps
-        stepper.advance(N, P, k, per_save)
-        t = (k + per_save) // per_save * save_every
-        if not (math.isfinite(float(N.max())) and math.isfinite(float(P.max()))):
-            raise FloatingPointError(f"densities are no longer finite at t = {t:g} yr")
-        sink.write(t, N, P)
-        if checkpoint is not None:
-            checkpoint(k + per_save, N, P)
-        if bar is not None:
-            bar.update(per_save)
-    if bar is not None:
-        bar.close()
+    integrate_epochs(lambda _k: stepper, [(0.0, years)], N, P, save_every, stepper.dt, sink,
+                     start_step, progress)
 
 
 def integrate_epochs(
