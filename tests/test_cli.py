@@ -210,3 +210,203 @@ def test_interrupted_run_leaves_no_folder(scenario_path, tmp_path, capsys, monke
     assert status == 130  # 128 + SIGINT, the shell convention
     assert "interrupted" in err and "Traceback" not in err
     assert_no_run_folder(out)
+
+
+# ---------------------------------------------------------------------------
+# variants and the analysis commands
+# ---------------------------------------------------------------------------
+REFUGE_BOX = (3, 9, 2, 8)  # rows 3..8, cols 2..7: 36 cells of 100 m, all with data
+FENCE_COL = 15  # the fence runs along the face line between columns 14 and 15
+
+
+def write_variant_scenario(folder: Path) -> Path:
+    """The base landscape with a refuge (baseline), a predator fence and two variants."""
+    from conftest import BASE, apply_overrides, to_toml
+    from test_pipeline_measures import box, face_line, geojson
+
+    make_landscape(folder)
+    geojson(folder / "refuge.geojson", box(*REFUGE_BOX))
+    geojson(folder / "fence.geojson", face_line(FENCE_COL))
+    over = {
+        "measures": [
+            {"name": "fen refuge", "kind": "refuge", "geometry": "refuge.geojson",
+             "protected_fraction": 0.7},
+            {"name": "predator fence", "kind": "fence", "geometry": "fence.geojson",
+             "permeability": {"prey": 1.0, "predator": 0.0}, "baseline": False},
+        ],
+        "variants": [{"name": "fenced", "add": ["predator fence"]},
+                     {"name": "no-refuge", "remove": ["fen refuge"]}],
+    }
+    path = folder / "variants.toml"
+    path.write_text(to_toml(apply_overrides(BASE, over)))
+    return path
+
+
+@pytest.fixture(scope="module")
+def variant_runs(tmp_path_factory):
+    """One ``preyscape run`` of a scenario with variants, shared by the tests below."""
+    folder = tmp_path_factory.mktemp("cli_variants")
+    scenario = write_variant_scenario(folder)
+    out = folder / "runs"
+    status = main(["run", str(scenario), "--out", str(out), "--quiet"])
+    return {"status": status, "scenario": scenario, "out": out, "folder": folder}
+
+
+def test_run_with_variants_creates_one_folder_per_variant(variant_runs):
+    assert variant_runs["status"] == 0
+    out = variant_runs["out"]
+    assert sorted(p.name for p in out.iterdir()) == ["baseline", "fenced", "no-refuge"]
+    for name in ("baseline", "fenced", "no-refuge"):
+        info = json.loads((out / name / "run.json").read_text())
+        assert info["variant"] == name
+        assert (out / name / "results.nc").is_file()
+    measures = {n: [m["name"] for m in json.loads((out / n / "run.json").read_text())
+                    ["measures"]] for n in ("baseline", "fenced", "no-refuge")}
+    assert measures == {"baseline": ["fen refuge"], "fenced": ["fen refuge", "predator fence"],
+                        "no-refuge": []}
+
+
+def test_run_variant_runs_only_the_named_one(variant_runs, tmp_path, capsys):
+    out = tmp_path / "only"
+    status = main(["run", str(variant_runs["scenario"]), "--out", str(out), "--variant",
+                   "fenced"])
+    text = capsys.readouterr().out
+    assert status == 0
+    assert [p.name for p in out.iterdir()] == ["fenced"]
+    assert f"run folder: {out / 'fenced'}" in text
+    assert "variant fenced; measures: fen refuge, predator fence" in text
+
+
+def test_run_unknown_variant_suggests_the_nearest(variant_runs, tmp_path, capsys):
+    out = tmp_path / "none"
+    status = main(["run", str(variant_runs["scenario"]), "--out", str(out), "--variant",
+                   "fencd", "--quiet"])
+    assert_one_clean_error(capsys, status, variant_runs["scenario"], "no variant named 'fencd'",
+                           "did you mean 'fenced'")
+    assert not out.exists()
+
+
+def test_check_prints_measures_and_variants(variant_runs, capsys):
+    assert main(["check", str(variant_runs["scenario"])]) == 0
+    text = capsys.readouterr().out
+    # the baseline's measures: 36 cells of 0.01 km² (100 m cells)
+    assert "measure             refuge 'fen refuge': 36 cells, 0.36 km²; years 0–end" in text
+    # a measure only a variant adds is placed too, and says which variants use it
+    assert "measure             fence 'predator fence': 24 cell faces (in variants fenced)" in text
+    assert "variant             fenced: +predator fence" in text
+    assert "variant             no-refuge: -fen refuge" in text
+
+
+def test_compare_writes_folder_and_prints_changed_areas(variant_runs, capsys):
+    out = variant_runs["out"]
+    a, b = out / "baseline", out / "fenced"
+    status = main(["compare", str(a), str(b)])
+    text = capsys.readouterr().out
+    assert status == 0
+    folder = out / "compare-baseline-fenced"  # the default: beside run B
+    assert f"comparison: {folder}" in text
+    for f in ("change.tif", "change.png", "zones.csv", "comparison.json"):
+        assert (folder / f).is_file(), f
+    rec = json.loads((folder / "comparison.json").read_text())
+    cells = rec["changed_cells"]
+    assert sum(cells.values()) == SHAPE[0] * SHAPE[1] - len(NODATA_CELLS)
+    for k, n in cells.items():
+        line = next(x for x in text.splitlines() if x.strip().startswith(k))
+        assert str(n) in line.split() and "km²" in line
+        # 100 m cells: 0.01 km² each
+        assert float(line.split()[-2]) == pytest.approx(n * 0.01, rel=1e-3)
+
+
+def write_transects(path: Path) -> Path:
+    """A GeoJSON line from the predator release east to the rim (EPSG:32633)."""
+    from conftest import RELEASE_X, RELEASE_Y
+
+    doc = {"type": "FeatureCollection",
+           "crs": {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}},
+           "features": [{"type": "Feature", "properties": {"name": "east line"},
+                         "geometry": {"type": "LineString", "coordinates": [
+                             [RELEASE_X, RELEASE_Y + 30.0],
+                             [X0 + SHAPE[1] * DX - 50.0, RELEASE_Y + 30.0]]}}]}
+    path.write_text(json.dumps(doc))
+    return path
+
+
+def analysis_argv(command: str, runs: Path, out: Path | None, transects: Path) -> list[str]:
+    base = runs / "baseline"
+    argv = {"hotspots": ["hotspots", str(base)],
+            "waves": ["waves", str(base), "--transects", str(transects)],
+            "effects": ["effects", str(base)],
+            "report": ["report", str(base), str(runs / "fenced"), "--no-animation"]}[command]
+    return argv + ([] if out is None else ["--out", str(out)])
+
+
+ANALYSES = ("hotspots", "waves", "effects", "report")
+
+
+@pytest.mark.parametrize("command", ANALYSES)
+def test_analysis_command_writes_its_output(variant_runs, command, tmp_path, capsys):
+    runs = variant_runs["out"]
+    transects = write_transects(tmp_path / "transects.geojson")
+    out = tmp_path / ("report.html" if command == "report" else command)
+    status = main(analysis_argv(command, runs, out, transects))
+    cap = capsys.readouterr()
+    assert status == 0, cap.err
+    if command == "report":
+        assert out.is_file() and out.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
+        assert f"report: {out}" in cap.out
+        assert "Change: baseline (baseline) → fenced (fenced)" in out.read_text(encoding="utf-8")
+        return
+    names = {p.name for p in out.iterdir()}
+    if command == "hotspots":
+        assert "hotspots (distance band" in cap.out
+        assert any(n.endswith(".tif") for n in names) and any(n.endswith(".png") for n in names)
+    elif command == "waves":
+        assert {"fronts.csv", "predator_arrival.tif"} <= names
+        assert "east line, predator: front" in cap.out
+        assert "east line" in (out / "fronts.csv").read_text()
+    else:
+        assert {"refuges.csv", "effects.json"} <= names
+        # the run without the refuge is found beside the baseline
+        assert f"compared with the run without refuges: {runs / 'no-refuge'}" in cap.out
+        assert "refuge fen refuge: spill-over decay length" in cap.out
+        rec = json.loads((out / "effects.json").read_text())
+        assert rec["refuges"][0]["prey"]["inside_outside_without"] is not None
+
+
+@pytest.mark.parametrize("command", ANALYSES + ("compare",))
+def test_analysis_command_on_a_folder_that_is_not_a_run(variant_runs, command, tmp_path,
+                                                       capsys):
+    empty = tmp_path / "not-a-run"
+    empty.mkdir()
+    (empty / "notes.txt").write_text("no run here")
+    if command == "compare":
+        argv = ["compare", str(empty), str(variant_runs["out"] / "baseline")]
+    else:
+        argv = analysis_argv(command, tmp_path, None, tmp_path / "t.geojson")
+        argv[1] = str(empty)
+    status = main(argv)
+    assert_one_clean_error(capsys, status, empty, "not a finished run folder")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["not-a-run"]
+
+
+@pytest.mark.parametrize("command", ANALYSES + ("compare",))
+def test_analysis_command_refuses_an_existing_out(variant_runs, command, tmp_path, capsys):
+    runs = variant_runs["out"]
+    transects = write_transects(tmp_path / "transects.geojson")
+    out = tmp_path / ("report.html" if command == "report" else "existing")
+    if command == "report":
+        out.write_text("an older report")
+    else:
+        out.mkdir()
+        (out / "keep.txt").write_text("an older result")
+    if command == "compare":
+        argv = ["compare", str(runs / "baseline"), str(runs / "fenced"), "--out", str(out)]
+    else:
+        argv = analysis_argv(command, runs, out, transects)
+    status = main(argv)
+    assert_one_clean_error(capsys, status, out, "--overwrite")
+    if command == "report":
+        assert out.read_text() == "an older report"
+    else:
+        assert [p.name for p in out.iterdir()] == ["keep.txt"]
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]

@@ -189,6 +189,12 @@ def _print_check(path: Path, d: dict) -> None:
             size += (", " if size else "") + f"{m['faces']} cell faces"
         when = f"years {m['start_year']:g}–{'end' if m['end_year'] is None else m['end_year']}"
         lines.append(f"measure             {m['kind']} '{m['name']}': {size}; {when}")
+    for m in d.get("variant_measures", []):
+        size = (f"{m['cells']} cells, {m['area_km2']:.3g} km²" if "cells" in m else "")
+        if "faces" in m:
+            size += (", " if size else "") + f"{m['faces']} cell faces"
+        lines.append(f"measure             {m['kind']} '{m['name']}': {size} "
+                     f"(in variants {', '.join(m['variants'])})")
     for v in d.get("variants", []):
         parts = [f"+{a}" for a in v["add"]] + [f"-{r}" for r in v["remove"]]
         parts += [f"{k} = {x}" for k, x in v["set"].items()]
@@ -225,10 +231,13 @@ def main(argv: list[str] | None = None) -> int:
 
     try:
         if args.command == "check":
-            from preyscape.pipeline import derived, prepare
+            from preyscape.pipeline import check_variant_measures, derived, prepare
             from preyscape.scenario import load_scenario
 
-            d = derived(prepare(load_scenario(args.scenario)))
+            sc = load_scenario(args.scenario)
+            d = derived(prepare(sc))
+            d["variant_measures"] = check_variant_measures(
+                [sc.for_variant(n) for n in sc.variant_names()[1:]])
             if args.json:
                 print(json.dumps(d, indent=2, default=str))
             else:
@@ -293,7 +302,8 @@ def _analyse(args) -> int:
 
         st = _analysis_settings(args.run)
         rec = write_hotspots(args.run, args.out or args.run / "hotspots",
-                             args.distance or st.get("hotspot_distance"),
+                             args.distance if args.distance is not None
+                             else st.get("hotspot_distance"),
                              args.fdr if args.fdr is not None else st.get("significance", 0.05),
                              args.overwrite)
         print(f"hotspots (distance band {rec['band_m']:g} m): {args.out or args.run / 'hotspots'}")
@@ -308,9 +318,11 @@ def _analyse(args) -> int:
         st = info.get("analysis") or {}
         pr = info.get("predictions") or {}
         tr = _transects(args.transects, args.run) or st.get("transects") or None
-        thr = {"prey": args.prey_threshold or st.get("prey_threshold"),
-               "predator": args.predator_threshold or st.get("predator_threshold")}
-        thr = {k: v for k, v in thr.items() if v} or None
+        thr = {"prey": args.prey_threshold if args.prey_threshold is not None
+               else st.get("prey_threshold"),
+               "predator": args.predator_threshold if args.predator_threshold is not None
+               else st.get("predator_threshold")}
+        thr = {k: v for k, v in thr.items() if v is not None} or None
         rec = write_waves(args.run, args.out or args.run / "waves", tr, thr,
                           {"prey": pr.get("prey_front_speed"),
                            "predator": pr.get("predator_front_speed")}, args.overwrite)
@@ -330,6 +342,10 @@ def _analyse(args) -> int:
         print(f"effects: {rec['folder']}")
         if without is not None:
             print(f"  compared with the run without refuges: {without}")
+        elif rec["refuges"]:
+            print("  no run without the refuges was found or given (--without): the decay "
+                  "length below is that of the time-mean prey profile, not the refuge's own "
+                  "effect")
         for r in rec["refuges"]:
             print(f"  refuge {r['name']}: spill-over decay length "
                   f"{_fmt(r.get('decay_length_km'), 'km')}")

@@ -45,23 +45,21 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
         ``runs`` (variant → run folder), ``comparisons`` (variant → folder)
         and ``report`` (the HTML file).
     """
-    import shutil
-
-    from preyscape.errors import InputError
     from preyscape.pipeline import simulate_variants
     from preyscape.products.compare import write_comparison
     from preyscape.products.run_report import write_report
+    from preyscape.store import output_folder, refuse_existing
 
     say = log or (lambda _text: None)
     out = Path(out)
-    if out.exists():
-        if not overwrite:
-            raise InputError("folder already exists; choose another with --out or pass "
-                             "--overwrite to replace it", str(out))
-        shutil.rmtree(out)
+    refuse_existing(out, overwrite, "folder")
     sc = demo_scenario()
     say(f"running {', '.join(sc.variant_names())} into {out} ...")
-    runs = simulate_variants(sc, out, progress=progress)
+    # the runs go to a temporary folder renamed when all are complete, so a failed or
+    # interrupted demo leaves an existing folder as it was
+    with output_folder(out, overwrite, "folder") as tmp:
+        done = simulate_variants(sc, tmp, progress=progress)
+    runs = {name: out / folder.name for name, folder in done.items()}
     settings = sc.analysis
     comparisons = {}
     for name in ("fence", "corridor"):

@@ -612,7 +612,9 @@ def simulate(
             from preyscape.landscape.io import write_geotiff
 
             f = f"targets/{store.slug(name)}.tif"
-            write_geotiff(tmp / f, setup.grid, cells.astype(np.uint8), nodata=255, dtype="uint8")
+            write_geotiff(tmp / f, setup.grid,
+                          np.where(setup.grid.mask, cells, 255).astype(np.uint8),
+                          nodata=255, dtype="uint8")
             targets.append({"name": name, "cells": int(cells.sum()), "cells_file": f})
         N, P = setup.N0, setup.P0  # this setup is private to the run: no copies
         setup.release_build_arrays()  # memory: one copy of each field during the run
@@ -706,7 +708,44 @@ def plan_variants(
         plan = {n: (sc.for_variant(n), out / n) for n in dict.fromkeys(names)}
     for _, folder in plan.values():
         store.refuse_existing(folder, overwrite, "run folder")
+    if len(plan) > 1:
+        check_variant_measures([v for v, _ in plan.values()])
     return plan
+
+
+def check_variant_measures(scenarios: list[Scenario]) -> list[dict]:
+    """Place every variant's measures and targets on the grid once, before any run.
+
+    A measure that only a variant adds is otherwise read when that variant
+    starts, after the earlier variants have run; this finds its mistakes first.
+
+    Returns
+    -------
+    list of dict
+        Summaries (see ``MeasureLayer.summary``) of the measures that are not
+        in the baseline, each with ``variants``: the variants that use it.
+
+    Raises
+    ------
+    InputError
+        For the first measure or target that cannot be placed.
+    """
+    from preyscape.landscape.io import read_habitat
+
+    if not scenarios:
+        return []
+    sc = scenarios[0]
+    ls = sc.landscape
+    grid, _ = read_habitat(sc.resolve(ls.habitat), ls.values, ls.cell_size,
+                           source=_source(sc, f"landscape.habitat ({ls.habitat})"))
+    extra: dict[str, dict] = {}
+    for v in scenarios:
+        for layer in place_measures(v, grid):
+            if not layer.spec.baseline:
+                rec = extra.setdefault(layer.spec.name, {**layer.summary(grid), "variants": []})
+                rec["variants"].append(v.variant)
+        place_targets(v, grid)
+    return list(extra.values())
 
 
 def simulate_variants(

@@ -235,7 +235,8 @@ def write_measures(folder: Path, grid: Grid, layers: list) -> list[dict]:
         folder.mkdir(parents=True, exist_ok=True)
         base = slug(layer.spec.name)
         if layer.cells is not None:
-            write_geotiff(folder / f"{base}.tif", grid, layer.cells.astype(np.uint8),
+            write_geotiff(folder / f"{base}.tif", grid,
+                          np.where(grid.mask, layer.cells, 255).astype(np.uint8),
                           nodata=255, dtype="uint8")
             rec["cells_file"] = f"{folder.name}/{base}.tif"
         if layer.faces is not None:

@@ -115,10 +115,10 @@ def transect_flux(run_folder: Path, ds, points: list, species: str) -> tuple[np.
     times = np.asarray(ds["time"].values, dtype=float)
     spans = [tuple(float(v) for v in op["span"]) for op in ops]
     flow = np.zeros(times.size)
-    frames = dict(snapshots(ds, species, range(times.size)))
-    for k, t in enumerate(times):
-        op = ops[_epoch_of(float(t), spans)]
-        flow[k] = net_flux([frames[k]], [t], op[f"{species}_cx"], op[f"{species}_cy"],
+    for k, frame in snapshots(ds, species, range(times.size)):  # one at a time: O(grid)
+        t = float(times[k])
+        op = ops[_epoch_of(t, spans)]
+        flow[k] = net_flux([frame], [t], op[f"{species}_cx"], op[f"{species}_cy"],
                            op[f"{species}_w"], fx, fy, sx, sy, grid.cell_area_km2)[0]
     return times, flow
 

@@ -214,7 +214,7 @@ def _wave_section(rep, wv: dict, tmp: Path, info: dict) -> None:
         notes.append(f"{_name(info, sp)} occupied most of the landscape from the start, so "
                      "there is no front of it to follow.")
     for f in wv.get("fronts", []):
-        if f["species"] in settled or f["n"] == 0:
+        if f["species"] in settled or f["n"] < 2:
             continue
         rows.append([f["transect"], _name(info, f["species"]), f["speed_km_yr"],
                      f["stderr_km_yr"], f["predicted_km_yr"], f["ratio"], f["n"],
@@ -240,7 +240,7 @@ def _wave_section(rep, wv: dict, tmp: Path, info: dict) -> None:
             continue
         if png.startswith("front_") and not any(
                 png == f"front_{_part(f['transect'])}_{f['species']}.png"
-                for f in wv.get("fronts", []) if f["n"]):
+                for f in wv.get("fronts", []) if f["n"] >= 2):
             continue
         cap = png.replace("_", " ").removesuffix(".png")
         if png.endswith("_front_speed.png"):
@@ -382,7 +382,8 @@ def write_report(
     settings = info.get("analysis") or {}
     pr = info.get("predictions") or {}
     title = info.get("title") or run.path.name
-    sub = f"variant {info.get('variant', 'baseline')}: {info['years']:g} years"
+    years = info["years"]
+    sub = f"variant {info.get('variant', 'baseline')}: {years:g} year{'' if years == 1 else 's'}"
     if others:
         sub += " — compared with " + ", ".join(_run_label(o) for o in others)
     rep = Report(title, sub)

@@ -1,0 +1,233 @@
+"""The report of a run: ``preyscape.products.run_report``.
+
+One baseline with a prey refuge and a variant without it are run once for the
+module on the tiny test landscape of ``conftest.py`` (half a year), and one
+report compares them. The scenario title and the species names carry hostile
+strings, which must reach the page as text. The page is then opened in headless
+Chromium (tests/browser.py; skipped locally without it, fails in CI).
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+import shutil
+from html.parser import HTMLParser
+
+import pytest
+import xarray as xr
+from browser import load_in_browser
+from conftest import BASE, DX, SHAPE, X0, Y0, apply_overrides, to_toml, write_habitat
+from test_pipeline_measures import box, geojson
+
+from preyscape.analysis.effects import refuge_effect
+from preyscape.errors import InputError
+from preyscape.pipeline import simulate_variants
+from preyscape.products.run_report import find_without_refuge, write_report
+from preyscape.report import CAUTIONS
+
+TITLE = "Moor <script>alert(1)</script> test"
+PREY = 'Fen & "marsh" vole'
+PREDATOR = "<b>weasel</b>"
+HOSTILE = (TITLE, PREY, PREDATOR)
+REFUGE_BOX = (3, 9, 2, 8)  # rows 3..8, cols 2..7
+STALE = "an older report"
+
+
+class _Tags(HTMLParser):
+    """Every start tag with its attributes."""
+
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict[str, str | None]]] = []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+
+
+@pytest.fixture(scope="module")
+def made(tmp_path_factory) -> dict:
+    folder = tmp_path_factory.mktemp("run_report")
+    write_habitat(folder / "habitat.tif")
+    geojson(folder / "refuge.geojson", box(*REFUGE_BOX))
+    over = {
+        "title": TITLE,
+        "prey.name": PREY,
+        "predator.name": PREDATOR,
+        "measures": [{"name": "fen refuge", "kind": "refuge", "geometry": "refuge.geojson",
+                      "protected_fraction": 0.7}],
+        "variants": [{"name": "no-refuge", "remove": ["fen refuge"]}],
+        # a transect from the predator release to the east rim, for the front speeds
+        "analysis": {"transects": [{"name": "east", "points": [
+            [X0 + 10.5 * DX, Y0 - 12.3 * DX], [X0 + 29.5 * DX, Y0 - 12.3 * DX]]}]},
+        "start.releases.0.density": 100.0,
+        "run.years": 0.5, "run.save_every": 0.125,
+    }
+    path = folder / "scenario.toml"
+    path.write_text(to_toml(apply_overrides(BASE, over)))
+    runs = simulate_variants(path, folder / "runs", progress=False)
+    out = folder / "report.html"
+    out.write_text(STALE)
+    try:  # refused: the file exists and overwrite was not asked for
+        write_report(runs["baseline"], out, [runs["no-refuge"]])
+        refused = None
+    except InputError as exc:
+        refused = exc
+    stale_after = out.read_text()
+    path_written = write_report(runs["baseline"], out, [runs["no-refuge"]], overwrite=True)
+    return {"folder": folder, "runs": runs, "out": out, "path": path_written,
+            "refused": refused, "stale_after": stale_after,
+            "doc": out.read_text(encoding="utf-8"),
+            "info": json.loads((runs["baseline"] / "run.json").read_text())}
+
+
+def decay_length_text(made: dict) -> str:
+    """The refuge's decay length as the report prints it, computed by the analysis layer."""
+    import rasterio
+
+    base, without = made["runs"]["baseline"], made["runs"]["no-refuge"]
+    with rasterio.open(base / "measures" / "fen-refuge.tif") as src:
+        cells = src.read(1) == 1
+    with xr.open_dataset(base / "results.nc", decode_times=False) as ds, \
+            xr.open_dataset(without / "results.nc", decode_times=False) as dw:
+        ell = refuge_effect(ds, cells, dw, "prey", 1.0)["decay_length_km"]
+    assert math.isfinite(ell) and ell > 0
+    return f"{ell:.4g} km"
+
+
+def predator_speed_text(made: dict) -> str:
+    v = made["info"]["predictions"]["predator_front_speed"]
+    # Dunbar 1983 (J Math Biol 17:11): c* = 2 sqrt(D (e a K / (1 + a h K) - m)) into prey
+    # at capacity; with the conftest values 2 sqrt(2 (2.5 / 1.5 - 1)) = 2.309 km/yr
+    it, K = BASE["interaction"], BASE["prey"]["capacity"]
+    growth = it["efficiency"] * it["attack_rate"] * K / (
+        1 + it["attack_rate"] * it["handling_time"] * K) - BASE["predator"]["mortality"]
+    assert v == pytest.approx(2 * math.sqrt(BASE["predator"]["diffusivity"] * growth))
+    return f"{v:.4g} km/yr"
+
+
+# ---------------------------------------------------------------------------
+# the HTML source
+# ---------------------------------------------------------------------------
+def test_report_is_written_where_asked(made):
+    assert made["path"] == made["out"]
+    assert made["doc"].startswith("<!DOCTYPE html>")
+    # the temporary products are cleaned up
+    assert not list(made["folder"].glob(".preyscape-report-*"))
+
+
+def test_existing_report_is_refused_unless_overwrite(made):
+    # design requirement: never overwrite results unless asked
+    assert isinstance(made["refused"], InputError)
+    assert str(made["out"]) in str(made["refused"])
+    assert "--overwrite" in str(made["refused"])
+    assert made["stale_after"] == STALE  # left untouched by the refused call
+    assert STALE not in made["doc"]  # and replaced with overwrite=True
+
+
+def test_report_is_self_contained(made):
+    # design requirement: one file, nothing fetched from the network
+    doc = made["doc"]
+    assert "http://" not in doc and "https://" not in doc
+    parsed = _Tags()
+    parsed.feed(doc)
+    imgs = [a for t, a in parsed.tags if t == "img"]
+    assert len(imgs) >= 8  # maps, hotspot and wave maps, spill-over, change maps, animation
+    assert all(a["src"].startswith("data:") for a in imgs)
+    assert any(a["src"].startswith("data:image/gif;base64,") for a in imgs)
+    assert not [t for t, a in parsed.tags if "src" in a and not a["src"].startswith("data:")]
+    assert not {t for t, _ in parsed.tags} & {"script", "link", "iframe", "object", "embed"}
+
+
+def test_report_holds_cautions_and_sections(made):
+    doc = made["doc"]
+    for c in CAUTIONS:
+        assert html.escape(c) in doc
+    for title in ("Scenario and run", "Maps", "Hotspots", "Travelling waves", "Refuges",
+                  "Change: baseline (baseline) → no-refuge (no-refuge)", "Methods and sources"):
+        assert f">{html.escape(title)}</h2>" in doc, title
+
+
+def test_report_gives_decay_length_and_predicted_front_speed(made):
+    doc = made["doc"]
+    assert decay_length_text(made) in doc
+    assert html.escape("fen refuge: decay length of the spill-over") in doc
+    assert f"predators into prey at capacity {predator_speed_text(made)}" in doc
+
+
+def test_user_strings_are_escaped_in_the_source(made):
+    # design requirement: no user string reaches the page as markup
+    doc = made["doc"]
+    assert "<script" not in doc.lower()
+    assert "<b>" not in doc
+    assert 'Fen & "marsh"' not in doc
+    for s in HOSTILE:
+        assert html.escape(s, quote=True) in doc
+    assert f"<title>{html.escape(TITLE)}</title>" in doc
+
+
+# ---------------------------------------------------------------------------
+# a real browser
+# ---------------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def seen(made):
+    return load_in_browser(made["out"])
+
+
+def test_browser_loads_cleanly(seen):
+    # design requirement: nothing blocked or missing when the page loads
+    bad = [e for e in seen["log"] if e["level"] in ("SEVERE", "WARNING")]
+    assert not bad, bad
+    assert seen["scripts"] == 0
+
+
+def test_browser_decodes_every_image(seen):
+    assert len(seen["images"]) >= 8
+    for im in seen["images"]:
+        assert im["complete"] and im["naturalWidth"] > 0 and im["naturalHeight"] > 0, im["alt"]
+
+
+def test_browser_shows_key_numbers_and_user_strings_as_text(seen, made):
+    text = seen["text"]
+    for s in HOSTILE:
+        assert s in text
+    assert seen["title"] == TITLE
+    assert decay_length_text(made) in text
+    assert predator_speed_text(made) in text
+    for title in ("Hotspots", "Travelling waves", "Refuges",
+                  "Change: baseline (baseline) → no-refuge (no-refuge)"):
+        assert title in text
+    assert CAUTIONS[0] in text
+    g = made["info"]["grid"]
+    assert (g["rows"], g["cols"]) == SHAPE
+    assert f"{SHAPE[0]} rows × {SHAPE[1]} columns" in text
+
+
+# ---------------------------------------------------------------------------
+# find_without_refuge
+# ---------------------------------------------------------------------------
+def test_find_without_refuge_finds_the_sibling_run(made):
+    base, without = made["runs"]["baseline"], made["runs"]["no-refuge"]
+    found = find_without_refuge(base, made["info"])
+    assert found is not None and found.resolve() == without.resolve()
+    # the run without refuges has none to look for
+    info = json.loads((without / "run.json").read_text())
+    assert find_without_refuge(without, info) is None
+
+
+def test_find_without_refuge_returns_none_without_a_matching_sibling(made, tmp_path):
+    base, without = made["runs"]["baseline"], made["runs"]["no-refuge"]
+    alone = tmp_path / "alone" / "baseline"
+    alone.mkdir(parents=True)
+    shutil.copy(base / "run.json", alone / "run.json")
+    assert find_without_refuge(alone, made["info"]) is None
+    # a sibling with the right measures but from another scenario file does not count
+    other = alone.parent / "no-refuge"
+    other.mkdir()
+    rec = json.loads((without / "run.json").read_text())
+    (other / "run.json").write_text(json.dumps({**rec, "scenario": "/elsewhere/other.toml"}))
+    assert find_without_refuge(alone, made["info"]) is None
+    # with the same scenario file it is found
+    (other / "run.json").write_text(json.dumps(rec))
+    assert find_without_refuge(alone, made["info"]) == other.resolve()
