@@ -327,7 +327,13 @@ def _analyse(args) -> int:
                           {"prey": pr.get("prey_front_speed"),
                            "predator": pr.get("predator_front_speed")}, args.overwrite)
         print(f"waves: {rec['out']}")
+        settled = {sp for sp, a in rec.get("arrival", {}).items()
+                   if (a or {}).get("present_at_start_fraction", 0) > 0.5}
+        for sp in sorted(settled):
+            print(f"  {sp}: present on most of the landscape from the start, so no front")
         for f in rec["fronts"]:
+            if f["species"] in settled:
+                continue
             print(f"  {f['transect']}, {f['species']}: front {_fmt(f['speed_km_yr'], 'km/yr')}"
                   f" (predicted minimal {_fmt(f['predicted_km_yr'], 'km/yr')})")
     elif args.command == "effects":
