@@ -176,12 +176,17 @@ def time_means(path: Path, mask: np.ndarray) -> dict[str, np.ndarray]:
     return out
 
 
-def save_checkpoint(path: Path, step: int, N: np.ndarray, P: np.ndarray, extra: dict) -> None:
-    """Write the state after ``step`` steps, atomically (float64, exact)."""
+def write_npz(path: Path, compressed: bool = False, **arrays) -> None:
+    """Write arrays to an ``.npz`` file atomically (temporary name, then rename)."""
     tmp = path.with_name(path.name + ".tmp")
     with open(tmp, "wb") as fh:
-        np.savez(fh, step=step, prey=N, predator=P, extra=json.dumps(extra))
+        (np.savez_compressed if compressed else np.savez)(fh, **arrays)
     os.replace(tmp, path)
+
+
+def save_checkpoint(path: Path, step: int, N: np.ndarray, P: np.ndarray, extra: dict) -> None:
+    """Write the state after ``step`` steps, atomically (float64, exact)."""
+    write_npz(path, step=step, prey=N, predator=P, extra=json.dumps(extra))
 
 
 def load_checkpoint(path: Path) -> tuple[int, np.ndarray, np.ndarray, dict]:
@@ -240,12 +245,8 @@ def write_measures(folder: Path, grid: Grid, layers: list) -> list[dict]:
                           nodata=255, dtype="uint8")
             rec["cells_file"] = f"{folder.name}/{base}.tif"
         if layer.faces is not None:
-            p = folder / f"{base}_faces.npz"
-            tmp = p.with_name(p.name + ".tmp")
-            with open(tmp, "wb") as fh:
-                np.savez_compressed(fh, between_columns=layer.faces[0],
-                                    between_rows=layer.faces[1])
-            os.replace(tmp, p)
+            write_npz(folder / f"{base}_faces.npz", True, between_columns=layer.faces[0],
+                      between_rows=layer.faces[1])
             rec["faces_file"] = f"{folder.name}/{base}_faces.npz"
         if layer.shapes:
             from shapely.geometry import mapping
@@ -261,10 +262,7 @@ def write_measures(folder: Path, grid: Grid, layers: list) -> list[dict]:
                 if auth:  # the legacy member: these coordinates are not WGS 84
                     doc["crs"] = {"type": "name", "properties": {
                         "name": f"urn:ogc:def:crs:{auth[0]}::{auth[1]}"}}
-            p = folder / f"{base}.geojson"
-            tmp = p.with_name(p.name + ".tmp")
-            tmp.write_text(json.dumps(doc))
-            os.replace(tmp, p)
+            write_json(folder / f"{base}.geojson", doc)
             rec["geometry_file"] = f"{folder.name}/{base}.geojson"
         out.append(rec)
     return out
@@ -283,10 +281,7 @@ def save_operators(path: Path, span: tuple[float, float], prey, predator) -> Non
         arrays[f"{sp}_cx"] = mv.cx
         arrays[f"{sp}_cy"] = mv.cy
         arrays[f"{sp}_w"] = (mv.w if mv.w is not None else np.ones(mv.mask.shape, np.float32))
-    tmp = path.with_name(path.name + ".tmp")
-    with open(tmp, "wb") as fh:
-        np.savez_compressed(fh, **arrays)
-    os.replace(tmp, path)
+    write_npz(path, True, **arrays)
 
 
 def load_operators(folder: Path) -> list[dict]:

@@ -139,6 +139,56 @@ def _target_cells(run: Path, info: dict, targets: Path | None, grid) -> list[tup
     return out
 
 
+def colonisation(run_folder: Path, info: dict, targets: Path | None = None, ds=None,
+                 thresholds: dict | None = None) -> list[dict]:
+    """Colonisation time of each target patch by each species, years.
+
+    Parameters
+    ----------
+    run_folder : pathlib.Path
+        The run folder (its ``targets/`` and ``results.nc``).
+    info : dict
+        Its ``run.json``.
+    targets : pathlib.Path, optional
+        GeoJSON polygons of more target patches.
+    ds : xarray.Dataset, optional
+        The opened results (opened here if not given).
+    thresholds : dict, optional
+        Arrival density per species, animals/km² (default: the run's
+        ``[analysis]`` thresholds, else its presence density, else 1).
+
+    Returns
+    -------
+    list of dict
+        ``name``, ``cells`` and ``<species>_colonised_year`` (None: not
+        within the run) per target.
+    """
+    import xarray as xr
+
+    from preyscape.analysis.effects import colonisation_time
+
+    settings = info.get("analysis") or {}
+    presence = float(settings.get("presence", 1.0))
+    thr = thresholds or {sp: float(settings.get(f"{sp}_threshold") or presence)
+                         for sp in SPECIES}
+    own = ds is None
+    if own:
+        ds = xr.open_dataset(Path(run_folder) / "results.nc", decode_times=False)
+    try:
+        grid = grid_of(ds)
+        out = []
+        for name, cells in _target_cells(Path(run_folder), info, targets, grid):
+            entry = {"name": name, "cells": int((cells & grid.mask).sum())}
+            for sp in SPECIES:
+                t = colonisation_time(ds, sp, cells, thr[sp], SHARE)
+                entry[f"{sp}_colonised_year"] = None if math.isnan(t) else t
+            out.append(entry)
+        return out
+    finally:
+        if own:
+            ds.close()
+
+
 def write_effects(
     run_folder: Path,
     out: Path,
@@ -180,7 +230,7 @@ def write_effects(
     """
     import xarray as xr
 
-    from preyscape.analysis.effects import colonisation_time, cumulative, refuge_effect
+    from preyscape.analysis.effects import cumulative, refuge_effect
     from preyscape.plots.compare import profile_plot
     from preyscape.plots.effects import flux_plot
     from preyscape.products import output_folder, write_csv
@@ -204,7 +254,6 @@ def write_effects(
             open_run(without)
             ds_without = xr.open_dataset(Path(without) / "results.nc", decode_times=False)
         try:
-            grid = grid_of(ds)
             import rasterio
 
             rows = []
@@ -250,15 +299,10 @@ def write_effects(
                            "persistence", "without_mean_density_per_km2",
                            "without_lowest_mean_density_per_km2", "without_persistence"], rows)
 
-            trows = []
-            for name, cells in _target_cells(Path(run_folder), info, targets, grid):
-                entry = {"name": name, "cells": int((cells & grid.mask).sum())}
-                for sp in SPECIES:
-                    t = colonisation_time(ds, sp, cells, thr[sp], SHARE)
-                    entry[f"{sp}_colonised_year"] = None if math.isnan(t) else t
-                    trows.append([name, sp, entry["cells"], thr[sp], SHARE,
-                                  "" if math.isnan(t) else t])
-                record["targets"].append(entry)
+            record["targets"] = colonisation(Path(run_folder), info, targets, ds, thr)
+            trows = [[t["name"], sp, t["cells"], thr[sp], SHARE,
+                      "" if t[f"{sp}_colonised_year"] is None else t[f"{sp}_colonised_year"]]
+                     for t in record["targets"] for sp in SPECIES]
             if trows:
                 write_csv(tmp / "targets.csv",
                           ["target", "species", "cells", "threshold_per_km2", "share",

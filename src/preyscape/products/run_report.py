@@ -239,8 +239,7 @@ def _wave_section(rep, wv: dict, tmp: Path, info: dict) -> None:
         if any(png.startswith(f"{sp}_") or png.endswith(f"_{sp}.png") for sp in settled):
             continue
         if png.startswith("front_") and not any(
-                png == f"front_{_part(f['transect'])}_{f['species']}.png"
-                for f in wv.get("fronts", []) if f["n"] >= 2):
+                png == f.get("figure") for f in wv.get("fronts", []) if f["n"] >= 2):
             continue
         cap = png.replace("_", " ").removesuffix(".png")
         if png.endswith("_front_speed.png"):
@@ -248,12 +247,6 @@ def _wave_section(rep, wv: dict, tmp: Path, info: dict) -> None:
                     "reaches almost at once, near the release or where fronts meet, not a "
                     "fast-moving front)")
         sec.figure(tmp / png, cap, cap)
-
-
-def _part(name: str) -> str:
-    import re
-
-    return re.sub(r"[^A-Za-z0-9_-]+", "_", name).strip("_") or "transect"
 
 
 def _effects_section(rep, ef: dict, tmp: Path, info: dict, without: Path | None) -> None:
@@ -367,7 +360,7 @@ def write_report(
     """
     from preyscape.plots.animate import animate_run
     from preyscape.products.compare import write_comparison
-    from preyscape.products.effects import write_effects
+    from preyscape.products.effects import colonisation, write_effects
     from preyscape.products.hotspots import write_hotspots
     from preyscape.products.waves import write_waves
     from preyscape.report import Report
@@ -414,13 +407,13 @@ def write_report(
                                    settings.get("change_threshold", 0.10),
                                    settings.get("presence", 1.0))
             _compare_section(rep, cmp, work / f"compare-{k}", run, o)
-            oe = write_effects(o.path, work / f"effects-{k}")
-            if oe["targets"]:
+            targets = colonisation(o.path, o.info)
+            if targets:
                 sec = rep.section(f"Colonisation in {_run_label(o)}")
                 sec.table(["target patch", "prey colonised (year)",
                            "predators colonised (year)"],
                           [[t["name"], t.get("prey_colonised_year"),
-                            t.get("predator_colonised_year")] for t in oe["targets"]])
+                            t.get("predator_colonised_year")] for t in targets])
         src = rep.section("Methods and sources")
         src.paragraph("preyscape solves reaction–diffusion equations for the densities of "
                       "both species on the habitat raster (Strang splitting of the local "

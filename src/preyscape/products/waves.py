@@ -267,6 +267,7 @@ def write_waves(
                     "phase_speed_km_yr": wave.phase_speed,
                     "fit_start_yr": float(fit.times[0]) if fit.n else math.nan,
                     "fit_end_yr": float(fit.times[-1]) if fit.n else math.nan,
+                    "figure": png.name,
                 }
                 rows.append([rec[k] for k in FRONTS_HEADER])
                 summary["fronts"].append(
