@@ -195,7 +195,7 @@ def bench_scenario(quick):
     kernels.warm_up()
     n_eq, p_eq = theory.equilibrium(INTER, 1.0, 1000.0, 0.5)
     g_max = INTER.efficiency * INTER.attack_rate * 1000 / (1 + INTER.attack_rate * INTER.h * 1000)
-    # the automatic step, as pipeline.prepare derives it for a scenario
+    # the automatic step, as assemble.prepare derives it for a scenario
     dt_auto = auto_step([1.0, 0.5, INTER.attack_rate * p_eq, g_max], None, 1.0)
     dt_ref = 0.0025
     ref, wall_ref = _run_fronts(land, dt_ref, years)

@@ -204,3 +204,12 @@ def make_landscape(folder: Path) -> Path:
     path = folder / "scenario.toml"
     path.write_text(to_toml(BASE))
     return path
+
+
+def write_run_record(folder, species=None, **info) -> None:
+    """A minimal ``run.json`` beside a hand-written ``results.nc`` (a finished run folder)."""
+    import json
+    from pathlib import Path
+
+    rec = {"variant": "baseline", "species": species or {}, "analysis": {}, **info}
+    (Path(folder) / "run.json").write_text(json.dumps(rec))

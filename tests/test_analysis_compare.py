@@ -1,4 +1,4 @@
-"""Comparing two runs: preyscape.analysis.compare and preyscape.products.compare.
+"""Comparing two runs: preyscape.analysis.compare and preyscape.analysis.compare_output.
 
 Two small synthetic runs are written with the real ResultWriter. Units: animals
 per km², km², years.
@@ -22,10 +22,11 @@ from preyscape.analysis.compare import (
     compare_runs,
     difference,
     relative_change,
-    run_statistics,
     zone_table,
 )
-from preyscape.errors import InputError
+from preyscape.analysis.results import cell_statistics as run_statistics
+from preyscape.analysis.settings import AnalysisSettings
+from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
 from preyscape.landscape.io import write_geotiff
 from preyscape.store import ResultWriter
@@ -96,12 +97,14 @@ def test_run_statistics_match_numpy_over_snapshots_after_start(runs):
     prey = runs["frames_a"][0][1:]
     mask = make_grid().mask
     s = run_statistics(runs["ds_a"], "prey", presence=10.0)
-    assert s["snapshots"] == len(TIMES) - 1
-    for key, expect in (("mean", prey.mean(axis=0)), ("min", prey.min(axis=0)),
-                        ("max", prey.max(axis=0)), ("persistence", (prey >= 10.0).mean(axis=0))):
-        assert s[key].dtype == np.float32
-        np.testing.assert_array_equal(s[key][mask], expect[mask].astype(np.float32), err_msg=key)
-        assert np.isnan(s[key][0, 0])
+    assert s.snapshots == len(TIMES) - 1
+    for key, expect in (("mean", prey.mean(axis=0)), ("minimum", prey.min(axis=0)),
+                        ("maximum", prey.max(axis=0)),
+                        ("persistence", (prey >= 10.0).mean(axis=0))):
+        got = getattr(s, key)
+        assert got.dtype == np.float32
+        np.testing.assert_array_equal(got[mask], expect[mask].astype(np.float32), err_msg=key)
+        assert np.isnan(got[0, 0])
 
 
 def test_difference_maps_are_exactly_b_minus_a(runs):
@@ -233,10 +236,11 @@ def read_zones_csv(path: Path) -> list[dict]:
 
 
 def test_write_comparison_end_to_end(runs):
-    from preyscape.products.compare import write_comparison
+    from preyscape.analysis.compare_output import write_comparison
 
     out = runs["base"] / "cmp"
-    summary = write_comparison(runs["a"], runs["b"], out, threshold=0.1, presence=1.0)
+    summary = write_comparison(runs["a"], runs["b"], out,
+                               settings=AnalysisSettings(change_threshold=0.1, presence=1.0))
     for name in ("prey_mean_difference", "predator_mean_difference",
                  "prey_persistence_difference", "predator_persistence_difference"):
         assert (out / f"{name}.tif").is_file() and (out / f"{name}.png").is_file()
@@ -257,7 +261,7 @@ def test_write_comparison_end_to_end(runs):
                                       cmp["prey_mean_difference"].values[grid.mask])
     rec = json.loads((out / "comparison.json").read_text())
     assert sum(rec["changed_cells"].values()) == grid.n_cells
-    assert rec["changed_cells"] == summary["changed_cells"]
+    assert rec["changed_cells"] == summary.changed_cells
     assert rec["changed_area_km2"]["both"] == pytest.approx(rec["changed_cells"]["both"] * 0.01)
     assert rec["settings"]["zone_source"] == "habitat classes"
     assert rec["zones"] == ["class 1", "class 2"]
@@ -277,24 +281,26 @@ def test_write_comparison_end_to_end(runs):
     # an existing folder is refused unless overwrite is asked for
     with pytest.raises(InputError, match="already exists"):
         write_comparison(runs["a"], runs["b"], out)
-    write_comparison(runs["a"], runs["b"], out, threshold=0.5, overwrite=True)
+    write_comparison(runs["a"], runs["b"], out, settings=AnalysisSettings(change_threshold=0.5),
+                     overwrite=True)
     assert json.loads((out / "comparison.json").read_text())["settings"]["threshold"] == 0.5
 
 
 def test_write_comparison_refuses_bad_input(runs, tmp_path):
-    from preyscape.products.compare import write_comparison
+    from preyscape.analysis.compare_output import write_comparison
 
-    with pytest.raises(InputError, match="not a finished run folder"):
+    with pytest.raises(FileProblem, match="not a finished run folder"):
         write_comparison(runs["a"], tmp_path / "missing", tmp_path / "o1")
     with pytest.raises(InputError, match="presence"):
-        write_comparison(runs["a"], runs["b"], tmp_path / "o2", presence=0.0)
+        write_comparison(runs["a"], runs["b"], tmp_path / "o2",
+                         settings=AnalysisSettings(presence=0.0))
     with pytest.raises(InputError, match="zone file not found"):
         write_comparison(runs["a"], runs["b"], tmp_path / "o3", zones=tmp_path / "nope.tif")
     assert not (tmp_path / "o1").exists() and not (tmp_path / "o3").exists()
 
 
 def test_write_comparison_with_raster_zones(runs, tmp_path):
-    from preyscape.products.compare import write_comparison
+    from preyscape.analysis.compare_output import write_comparison
 
     grid = make_grid()
     z = np.full(SHAPE, 7, dtype=np.uint8)
@@ -302,7 +308,7 @@ def test_write_comparison_with_raster_zones(runs, tmp_path):
     write_geotiff(tmp_path / "zones.tif", grid, z, nodata=0, dtype="uint8")
     out = tmp_path / "cmp"
     summary = write_comparison(runs["a"], runs["b"], out, zones=tmp_path / "zones.tif")
-    assert summary["zones"] == ["zone 7", "zone 9"]
+    assert summary.record["zones"] == ["zone 7", "zone 9"]
     rows = read_zones_csv(out / "zones.csv")
     north = [r for r in rows if r["zone"] == "zone 7" and r["species"] == "prey"][0]
     # 3 rows x 8 cols minus the no-data corner, cells of 0.01 km²
@@ -310,7 +316,7 @@ def test_write_comparison_with_raster_zones(runs, tmp_path):
 
 
 def test_write_comparison_with_polygon_zones(runs, tmp_path):
-    from preyscape.products.compare import write_comparison
+    from preyscape.analysis.compare_output import write_comparison
 
     # two invented parcels: the western and eastern halves of the grid
     def square(x0, x1):
@@ -328,8 +334,8 @@ def test_write_comparison_with_polygon_zones(runs, tmp_path):
     path.write_text(json.dumps(fc))
     out = tmp_path / "cmp"
     summary = write_comparison(runs["a"], runs["b"], out, zones=path, zone_field="parcel")
-    assert sorted(summary["zones"]) == ["High Leys", "Low Copse"]
-    assert summary["settings"]["zone_source"] == "polygons"
+    assert sorted(summary.record["zones"]) == ["High Leys", "Low Copse"]
+    assert summary.record["settings"]["zone_source"] == "polygons"
     rows = [r for r in read_zones_csv(out / "zones.csv") if r["species"] == "prey"]
     area = {r["zone"]: float(r["area_km2"]) for r in rows}
     assert area["Low Copse"] == pytest.approx(23 * 0.01)  # 6 x 4 cells less the corner

@@ -10,6 +10,7 @@ import pytest
 import rasterio
 import scipy.stats
 import xarray as xr
+from conftest import write_run_record
 
 from preyscape.analysis.hotspots import (
     default_band_m,
@@ -20,9 +21,10 @@ from preyscape.analysis.hotspots import (
     hotspots_of_run,
     persistent_hotspots,
 )
-from preyscape.errors import InputError
+from preyscape.analysis.hotspots_output import write_hotspots
+from preyscape.analysis.settings import AnalysisSettings
+from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
-from preyscape.products.hotspots import write_hotspots
 from preyscape.store import ResultWriter
 
 # A small grid of non-square cells: 15 rows of 20 m, 18 columns of 30 m.
@@ -205,6 +207,7 @@ def _write_run(folder, n_snap: int = 5):
         else:
             w.write(0.25 * k, 400.0 + 20.0 * noise + 600.0 * bump, 1.0 + 0.1 * noise + 3 * bump)
     w.close()
+    write_run_record(folder, {"prey": "field vole", "predator": "stoat"})
     return grid
 
 
@@ -212,21 +215,22 @@ def test_hotspots_of_run(tmp_path):
     # Design requirement: time mean over snapshots after the start (as store.time_means).
     grid = _write_run(tmp_path / "run")
     with xr.open_dataset(tmp_path / "run" / "results.nc", decode_times=False) as ds:
-        res = hotspots_of_run(ds, "prey", 150.0)
+        res = hotspots_of_run(ds, "prey", band_m=150.0)
         expected = ds["prey"].isel(time=slice(1, None)).mean("time").values
-    np.testing.assert_allclose(res["mean"].values, expected, rtol=1e-6)
-    assert res.attrs["snapshots"] == 4 and res.attrs["band_m"] == 150.0
-    assert res["hotspot_class"].values[6, 16] == 1 and bool(res["hot"].values[6, 16])
-    assert res["persistence"].values[6, 16] == 1.0
-    assert res["hotspot_class"].values[0, 0] == -128 and not grid.mask[0, 0]
-    assert np.isnan(res["persistence"].values[0, 0])
+    np.testing.assert_allclose(res.mean, expected, rtol=1e-6)
+    assert res.snapshots == 4 and res.band_m == 150.0
+    assert res.classes[6, 16] == 1 and bool(res.hot[6, 16])
+    assert res.persistence[6, 16] == 1.0
+    assert res.classes[0, 0] == -128 and not grid.mask[0, 0]
+    assert np.isnan(res.persistence[0, 0])
 
 
 def test_write_hotspots_product(tmp_path):
     # Design requirement: files exist, the planted bump is classed hot in the GeoTIFF.
     grid = _write_run(tmp_path / "run")
     out = tmp_path / "hot"
-    summary = write_hotspots(tmp_path / "run", out, band_m=150.0)
+    summary = write_hotspots(tmp_path / "run", out,
+                             settings=AnalysisSettings(hotspot_distance=150.0))
     for sp in ("prey", "predator"):
         for f in (f"{sp}_gi_star.tif", f"{sp}_hotspot_class.tif",
                   f"{sp}_hotspot_persistence.tif", f"{sp}_hotspots.png",
@@ -236,20 +240,23 @@ def test_write_hotspots_product(tmp_path):
             cls = src.read(1)
             assert src.nodata == -128 and src.dtypes[0] == "int8"
         assert cls[6, 16] == 1 and cls[0, 0] == -128
-        s = summary["species"][sp]
-        assert s["n_cells"] == grid.n_cells and s["hot_cells"] > 0
-        assert s["hot_area_km2"] == pytest.approx(s["hot_cells"] * 0.0025)
-        assert 0 < s["hot_share_of_animals"] < 1
-    assert summary["band_m"] == 150.0
-    assert all((out / p).is_file() for p in summary["maps"]) and len(summary["maps"]) == 4
+        s = summary.species[sp]
+        assert s.n_cells == grid.n_cells and s.hot_cells > 0
+        assert s.hot_area_km2 == pytest.approx(s.hot_cells * 0.0025)
+        assert 0 < s.hot_share_of_animals < 1
+    assert summary.band_m == 150.0
+    maps = [f.name for f in summary.files if f.role == "map"]
+    assert all((out / p).is_file() for p in maps) and len(maps) == 4
+    assert all((out / f.name).is_file() for f in summary.files)
     with open(out / "hotspots.csv") as fh:
         rows = list(csv.DictReader(fh))
     assert [r["species"] for r in rows] == ["prey", "predator"]
-    assert int(rows[0]["hot_cells"]) == summary["species"]["prey"]["hot_cells"]
+    assert int(rows[0]["hot_cells"]) == summary.species["prey"].hot_cells
     with pytest.raises(InputError, match="already exists"):
         write_hotspots(tmp_path / "run", out)
-    with pytest.raises(InputError, match="results.nc"):
+    with pytest.raises(FileProblem, match="not a finished run folder"):
         write_hotspots(tmp_path / "nothing", tmp_path / "hot2")
     with pytest.raises(InputError, match="positive"):
-        write_hotspots(tmp_path / "run", tmp_path / "hot3", band_m=-5.0)
+        write_hotspots(tmp_path / "run", tmp_path / "hot3",
+                       settings=AnalysisSettings(hotspot_distance=-5.0))
     assert not (tmp_path / "hot2").exists() and not (tmp_path / "hot3").exists()

@@ -61,7 +61,7 @@ def test_arrival_time_is_exact_on_a_linear_ramp_and_streams():
     mask[2, 3] = False
     times = np.array([0.0, 0.7, 1.3, 2.9, 4.0, 6.5, 10.0])  # uneven snapshot intervals
     frames = (a + b * t for t in times)  # a generator: read once, one frame at a time
-    T = W.arrival_time(frames, times, 1.0, mask)
+    T = W.arrival_time(frames, times, 1.0, mask=mask)
     with np.errstate(divide="ignore"):
         expect = (1.0 - a) / b
     ok = mask & (b > 0) & (expect <= times[-1]) & (a < 1.0)
@@ -229,7 +229,7 @@ def test_predator_invasion_speed_into_prey_at_capacity():
     times = np.arange(0.0, years + 1e-9, 0.25)
     tr = W.sample_transect(g, middle_line(g))
     fit = W.front_speed(snapshots(st, N, P, 0.25, years, 1), times, tr, 0.2 * p_star,
-                        "predator", predicted_km_yr=c_star)
+                        species="predator", predicted_km_yr=c_star)
     assert fit.ratio == pytest.approx(1.0, abs=0.05)
     assert fit.ratio < 1.001  # approached from below, as for Fisher fronts
     assert fit.n > 30 and fit.r2 > 0.999
@@ -280,14 +280,14 @@ def test_wave_summary_returns_the_lambda_omega_selected_wavelength():
     ds = dataset(g, times, np.zeros((times.size, *g.shape)),
                  np.stack([density(t) for t in times]))
     tr = W.sample_transect(g, middle_line(g), name="middle")
-    ws = W.wave_summary(ds, "predator", tr, t_min=40.0, threshold=0.05)
+    ws = W.wave_summary(ds, species="predator", transect=tr, t_min=40.0, threshold=0.05)
     assert ws.wavelength == pytest.approx(2 * math.pi / q, rel=0.01)
     assert ws.period == pytest.approx(2 * math.pi / omega, rel=0.01)
     assert ws.phase_speed == pytest.approx(omega / q, rel=0.02)
     assert len(ws.periods) == 3 and len(ws.wavelengths) == 3
     # the front itself: speed 2 (the synthetic front moves at exactly c_front)
     # (to ~1 %: the wave modulates the density at the leading edge, so the crossing wobbles)
-    fit = W.front_speed(ds, None, tr, 0.05, "predator", predicted_km_yr=c_front)
+    fit = W.front_speed(ds, None, tr, 0.05, species="predator", predicted_km_yr=c_front)
     assert fit.ratio == pytest.approx(1.0, abs=0.02)
 
 
@@ -298,8 +298,10 @@ def test_write_waves_from_a_small_run_folder(tmp_path):
     # Design requirement: a run folder -> arrival and speed GeoTIFFs, fronts.csv and
     # PNGs; synthetic logistic fronts moving east at known speeds (no solver needed).
     import rasterio
+    from conftest import write_run_record
 
-    from preyscape.products.waves import write_waves
+    from preyscape.analysis.settings import AnalysisSettings, TransectLine
+    from preyscape.analysis.waves_output import write_waves
     from preyscape.store import ResultWriter, time_means
 
     c_prey, c_pred = 0.5, 0.3  # km/yr
@@ -315,15 +317,17 @@ def test_write_waves_from_a_small_run_folder(tmp_path):
         P = np.broadcast_to(5.0 / (1 + np.exp((xk - 0.2 - c_pred * t) / 0.1)), g.shape)
         w.write(float(t), N.copy(), P.copy())
     w.close()
+    write_run_record(run)
     y = float(g.y[6])
     out = tmp_path / "waves"
-    s = write_waves(run, out, [{"name": "east", "points": [[600_000, y], [604_000, y]]}],
-                    None, {"prey": 0.5, "predator": 0.25})
+    east = TransectLine("east", ((600_000, y), (604_000, y)))
+    s = write_waves(run, out, settings=AnalysisSettings(transects=(east,)),
+                    predicted={"prey": 0.5, "predator": 0.25})
     for name in ("prey_arrival.tif", "predator_arrival.tif", "prey_front_speed.tif",
                  "predator_front_speed.tif", "fronts.csv", "prey_arrival.png",
                  "predator_front_speed.png", "front_east_prey.png", "front_east_predator.png"):
         assert (out / name).is_file() and (out / name).stat().st_size > 0, name
-    assert set(s["pngs"]) >= {"front_east_prey.png", "prey_arrival.png"}
+    assert {f.name for f in s.files} >= {"front_east_prey.png", "prey_arrival.png"}
     with rasterio.open(out / "prey_arrival.tif") as src:
         a = src.read(1)
     assert np.isnan(a[0, 0]) and np.isfinite(a[6, 40])
@@ -336,20 +340,22 @@ def test_write_waves_from_a_small_run_folder(tmp_path):
     assert float(rows[1]["ratio"]) == pytest.approx(c_pred / 0.25, rel=0.01)
     # default thresholds: 10 % of the largest time-mean density (common practice, no source)
     means = {sp: float(np.nanmax(v)) for sp, v in time_means(run / "results.nc", mask).items()}
-    assert s["thresholds"]["prey"] == pytest.approx(0.1 * means["prey"])
-    assert s["fronts"][0]["speed_km_yr"] == pytest.approx(c_prey, rel=0.01)
+    assert s.arrival["prey"].threshold == pytest.approx(0.1 * means["prey"])
+    assert s.fronts[0].speed_km_yr == pytest.approx(c_prey, rel=0.01)
     # the automatic transect follows the predator front from where it started
-    s2 = write_waves(run, tmp_path / "auto", None, {"prey": 50.0, "predator": 2.5}, None)
-    assert s2["transects"][0]["auto"] and s2["fronts"][0]["transect"] == "auto"
-    assert s2["fronts"][1]["speed_km_yr"] == pytest.approx(c_pred, rel=0.05)
+    s2 = write_waves(run, tmp_path / "auto", settings=AnalysisSettings(
+        prey_threshold=50.0, predator_threshold=2.5), predicted={})
+    assert s2.automatic and s2.fronts[0].transect == "auto"
+    assert s2.fronts[1].speed_km_yr == pytest.approx(c_pred, rel=0.05)
     # user mistakes
     with pytest.raises(InputError, match="already exists"):
-        write_waves(run, out, None, None, None)
+        write_waves(run, out)
     with pytest.raises(InputError, match="transects\\[0\\]"):
-        write_waves(run, tmp_path / "bad", [{"name": "x", "points": [[0, 0]]}], None, None)
+        write_waves(run, tmp_path / "bad", settings=AnalysisSettings(
+            transects=({"name": "x", "points": [[0, 0]]},)))
     with pytest.raises(InputError, match="no point"):
-        write_waves(run, tmp_path / "bad", [{"name": "far", "points": [[0, 0], [1, 1]]}],
-                    None, None)
-    with pytest.raises(InputError, match="thresholds.prey"):
-        write_waves(run, tmp_path / "bad", None, {"prey": -1.0}, None)
+        write_waves(run, tmp_path / "bad", settings=AnalysisSettings(
+            transects=(TransectLine("far", ((0, 0), (1, 1))),)))
+    with pytest.raises(InputError, match="prey_threshold"):
+        write_waves(run, tmp_path / "bad", settings=AnalysisSettings(prey_threshold=-1.0))
     assert not (tmp_path / "bad").exists()

@@ -102,7 +102,7 @@ def test_overwrite_replaces_run_folder(scenario_path, tmp_path, capsys):
 
 
 def test_run_without_quiet_prints_summary(scenario_path, tmp_path, capsys, monkeypatch):
-    import preyscape.pipeline as pipeline
+    import preyscape.runfolder as pipeline
 
     real = pipeline.simulate
     monkeypatch.setattr(pipeline, "simulate",
@@ -222,7 +222,7 @@ FENCE_COL = 15  # the fence runs along the face line between columns 14 and 15
 def write_variant_scenario(folder: Path) -> Path:
     """The base landscape with a refuge (baseline), a predator fence and two variants."""
     from conftest import BASE, apply_overrides, to_toml
-    from test_pipeline_measures import box, face_line, geojson
+    from test_runfolder import box, face_line, geojson
 
     make_landscape(folder)
     geojson(folder / "refuge.geojson", box(*REFUGE_BOX))
@@ -354,7 +354,7 @@ def test_analysis_command_writes_its_output(variant_runs, command, tmp_path, cap
     if command == "report":
         assert out.is_file() and out.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
         assert f"report: {out}" in cap.out
-        assert "Change: baseline (baseline) → fenced (fenced)" in out.read_text(encoding="utf-8")
+        assert "Change: baseline → fenced" in out.read_text(encoding="utf-8")
         return
     names = {p.name for p in out.iterdir()}
     if command == "hotspots":

@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 from conftest import BASE, CAPACITY, DELETE, apply_overrides, habitat_array, write_habitat
 
+from preyscape.assemble import prepare
 from preyscape.errors import InputError
-from preyscape.pipeline import prepare
 from preyscape.scenario import Scenario, load_scenario, parse_scenario
 
 
@@ -99,9 +99,12 @@ def test_missing_raster_refused(write_scenario):
 
 
 def test_missing_scenario_file_refused(tmp_path):
+    from preyscape.errors import FileProblem
+
     path = tmp_path / "absent.toml"
-    text = load_error(path)
-    assert str(path) in text
+    with pytest.raises(FileProblem) as info:  # a file problem: also an OSError
+        load_scenario(path)
+    assert str(path) in str(info.value) and isinstance(info.value, OSError)
 
 
 def test_invalid_toml_refused_with_line(write_scenario):
@@ -278,7 +281,11 @@ def test_analysis_settings(write_scenario):
     sc = load_scenario(write_scenario({"analysis": {
         "hotspot_distance": 300.0,
         "transects": [{"name": "t", "points": [[1.0, 2.0], [3.0, 4.0]]}]}}))
-    assert sc.analysis.hotspot_distance == 300.0 and sc.analysis.presence == 1.0
+    # unset keys stay unset here; their defaults live in AnalysisSettings (one place)
+    assert sc.analysis.hotspot_distance == 300.0 and sc.analysis.presence is None
+    from preyscape.analysis.settings import AnalysisSettings
+
+    assert AnalysisSettings.build(sc.analysis.model_dump(mode="json")).presence == 1.0
     text = load_error(write_scenario({"analysis": {"transects": [{"name": "t",
                                                                   "points": [[1.0, 2.0]]}]}}))
     assert "analysis.transects[0].points" in text

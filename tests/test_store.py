@@ -11,10 +11,12 @@ import xarray as xr
 from conftest import EPSG, SHAPE, make_landscape, utm_grid
 
 import preyscape
-from preyscape.errors import InputError
-from preyscape.pipeline import prepare, simulate
+from preyscape.analysis.results import open_run
+from preyscape.assemble import prepare
+from preyscape.errors import FileProblem
+from preyscape.runfolder import simulate
 from preyscape.scenario import load_scenario
-from preyscape.store import ResultWriter, open_run
+from preyscape.store import ResultWriter
 
 SNAPSHOT_TIMES = [0.0, 0.25, 0.5]  # years = 0.5, save_every = 0.25 in conftest.BASE
 
@@ -133,10 +135,10 @@ def test_open_run(run):
 
 def test_open_run_refuses_non_run_folder(tmp_path):
     (tmp_path / "results.nc").write_bytes(b"")  # no run.json
-    with pytest.raises(InputError) as info:
+    with pytest.raises(FileProblem) as info:
         open_run(tmp_path)
     assert str(tmp_path) in str(info.value)
-    with pytest.raises(InputError):
+    with pytest.raises(FileProblem):
         open_run(tmp_path / "does_not_exist")
 
 

@@ -5,28 +5,33 @@ The public API (imported lazily so ``preyscape --help`` stays fast)::
     from preyscape import load_scenario, simulate, open_run
     sc = load_scenario("landscapes/veldrun_moor.toml")
     folder = simulate(sc, "runs/baseline")
-    run = open_run(folder)          # run.results is an xarray.Dataset
+    run = open_run(folder)          # run.ds is an xarray.Dataset; run.time_mean("prey")
 """
 
 from __future__ import annotations
 
 __version__ = "0.2.0"
 
-__all__ = ["load_scenario", "simulate", "simulate_variants", "open_run", "prepare", "derived",
-           "__version__"]
+_LAZY = {
+    "load_scenario": "preyscape.scenario",
+    "simulate": "preyscape.runfolder",
+    "simulate_variants": "preyscape.runfolder",
+    "prepare": "preyscape.assemble",
+    "derived": "preyscape.assemble",
+    "open_run": "preyscape.analysis.results",
+    "AnalysisSettings": "preyscape.analysis.settings",
+    "write_report": "preyscape.report.run_report",
+    "PreyscapeError": "preyscape.errors",
+    "InputError": "preyscape.errors",
+    "FileProblem": "preyscape.errors",
+}
+
+__all__ = [*_LAZY, "__version__"]
 
 
 def __getattr__(name: str):
-    if name == "load_scenario":
-        from preyscape.scenario import load_scenario
+    if name in _LAZY:
+        import importlib
 
-        return load_scenario
-    if name in ("simulate", "simulate_variants", "prepare", "derived"):
-        from preyscape import pipeline
-
-        return getattr(pipeline, name)
-    if name == "open_run":
-        from preyscape.store import open_run
-
-        return open_run
+        return getattr(importlib.import_module(_LAZY[name]), name)
     raise AttributeError(f"module 'preyscape' has no attribute {name!r}")

@@ -45,9 +45,10 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
         ``runs`` (variant → run folder), ``comparisons`` (variant → folder)
         and ``report`` (the HTML file).
     """
-    from preyscape.pipeline import simulate_variants
-    from preyscape.products.compare import write_comparison
-    from preyscape.products.run_report import write_report
+    from preyscape.analysis.compare_output import write_comparison
+    from preyscape.analysis.settings import AnalysisSettings
+    from preyscape.report.run_report import write_report
+    from preyscape.runfolder import simulate_variants
     from preyscape.store import output_folder, refuse_existing
 
     say = log or (lambda _text: None)
@@ -60,14 +61,15 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
     with output_folder(out, overwrite, "folder") as tmp:
         done = simulate_variants(sc, tmp, progress=progress)
     runs = {name: out / folder.name for name, folder in done.items()}
-    settings = sc.analysis
+    settings = AnalysisSettings.build(sc.analysis.model_dump(mode="json"),
+                                      stored_as=f"{sc.path}: analysis")
     comparisons = {}
     for name in ("fence", "corridor"):
         if name in runs:
             say(f"comparing baseline with {name} ...")
-            rec = write_comparison(runs["baseline"], runs[name], out / f"compare-{name}",
-                                   settings.change_threshold, settings.presence)
-            comparisons[name] = Path(rec["folder"])
+            done = write_comparison(runs["baseline"], runs[name], out / f"compare-{name}",
+                                    settings=settings)
+            comparisons[name] = done.folder
     say("writing the report ...")
     others = [runs[n] for n in ("fence", "corridor") if n in runs]
     report = write_report(runs["baseline"], out / "report.html", others)

@@ -26,7 +26,7 @@ from pydantic import (
     model_validator,
 )
 
-from preyscape.errors import InputError
+from preyscape.errors import FileProblem, InputError
 
 # strict: a quoted number or a boolean is a mistake in a scenario file, not a number
 Positive = Annotated[float, Field(gt=0, allow_inf_nan=False, strict=True)]
@@ -370,12 +370,13 @@ class Target(_Strict):
 class AnalysisSpec(_Strict):
     """``[analysis]``: settings for hotspots, fronts and effects (all optional)."""
 
-    presence: Positive = 1.0
+    # None: the default of preyscape.analysis.settings.DEFAULTS (the one place they live)
+    presence: Positive | None = None
     hotspot_distance: Positive | None = None
-    significance: Annotated[float, Field(gt=0, lt=1, strict=True)] = 0.05
+    significance: Annotated[float, Field(gt=0, lt=1, strict=True)] | None = None
     prey_threshold: Positive | None = None
     predator_threshold: Positive | None = None
-    change_threshold: Annotated[float, Field(gt=0, strict=True)] = 0.10
+    change_threshold: Annotated[float, Field(gt=0, strict=True)] | None = None
     transects: tuple[Transect, ...] = ()
     targets: tuple[Target, ...] = ()
 
@@ -670,14 +671,26 @@ def load_scenario(path: str | Path) -> Scenario:
 
     Raises
     ------
+    FileProblem
+        If the file is missing or cannot be read.
     InputError
-        If the file is missing, is not valid TOML, or any key is wrong.
+        If it is not valid TOML, or any key is wrong.
+
+    Examples
+    --------
+    ``scenario_path`` is a scenario file (such as ``landscapes/veldrun_moor.toml``):
+
+    >>> sc = load_scenario(scenario_path)
+    >>> sc.variant_names()
+    ['baseline', 'fenced', 'no-refuge']
+    >>> sc.for_variant("fenced").variant
+    'fenced'
     """
     path = Path(path)
     try:
         raw = path.read_bytes()
     except OSError as exc:
-        raise InputError(f"cannot read scenario file ({exc.strerror})", source=str(path)) from None
+        raise FileProblem(f"cannot read scenario file ({exc.strerror})", source=str(path)) from None
     try:
         data = tomllib.loads(raw.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:

@@ -17,9 +17,8 @@ from __future__ import annotations
 
 import json
 import os
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -27,6 +26,7 @@ from typing import Any
 import numpy as np
 
 from preyscape.landscape.grid import Grid
+from preyscape.names import slug
 
 SPECIES = ("prey", "predator")
 
@@ -154,25 +154,101 @@ class ResultWriter:
             self._ds = None
 
 
-def time_means(path: Path, mask: np.ndarray) -> dict[str, np.ndarray]:
-    """Time-mean density per species in a ``results.nc``, animals/km².
+def data_mask(ds) -> np.ndarray:
+    """Cells with data of a results dataset (its ``mask`` variable; all cells if absent)."""
+    if "mask" in ds:
+        return np.asarray(ds["mask"].values).astype(bool)
+    sp = next(s for s in SPECIES if s in ds)
+    return np.ones(ds[sp].shape[-2:], dtype=bool)
 
-    The mean is over the snapshots after the start (all of them if there is
-    only one), accumulated in float64 one snapshot at a time; NaN off ``mask``.
+
+def used_snapshots(n: int) -> range:
+    """Indices of the snapshots statistics use: all after the first when ``n > 1``.
+
+    The start state is chosen by the user, not produced by the model, so it
+    does not weigh on time means, persistence or hotspots.
     """
-    import netCDF4
+    return range(1 if n > 1 else 0, n)
 
+
+def frames(ds, species: str, indices: Iterable[int] | None = None,
+           mask: np.ndarray | None = None, *, raw: bool = False,
+           ) -> Iterator[tuple[int, np.ndarray]]:
+    """Yield ``(index, density)`` one snapshot at a time (animals/km², float64).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        An opened ``results.nc`` with variable ``species`` of dims (time, y, x).
+    species : str
+        ``"prey"`` or ``"predator"``.
+    indices : iterable of int, optional
+        Snapshots to read; default :func:`used_snapshots`.
+    mask : numpy.ndarray of bool, optional
+        Cells with data; default :func:`data_mask` of ``ds``.
+    raw : bool
+        Yield the values as stored (NaN off the data mask) instead of
+        cleaned ones (keyword only).
+
+    Yields
+    ------
+    (int, numpy.ndarray)
+        The snapshot index and its densities, 0 off the data mask. NaN only
+        marks no-data cells, so a non-finite value on a data cell counts as
+        absence.
+    """
+    if species not in ds:
+        raise ValueError(f"results dataset has no variable {species!r}")
+    var = ds[species]
+    if mask is None and not raw:
+        mask = data_mask(ds)
+    if indices is None:
+        indices = used_snapshots(var.shape[0])
+    for k in indices:
+        frame = np.asarray(var.isel(time=int(k)).values, dtype=np.float64)
+        if raw:
+            yield int(k), frame
+            continue
+        yield int(k), np.where(mask & np.isfinite(frame), frame, 0.0)
+
+
+def time_means(source, mask: np.ndarray | None = None,
+               species: Iterable[str] = SPECIES) -> dict[str, np.ndarray]:
+    """Time-mean density per species over :func:`used_snapshots`, animals/km².
+
+    Accumulated in float64 one snapshot at a time, so memory does not grow
+    with the number of snapshots.
+
+    Parameters
+    ----------
+    source : xarray.Dataset or path
+        An opened ``results.nc`` or its path.
+    mask : numpy.ndarray of bool, optional
+        Cells with data (default: the file's own mask).
+    species : iterable of str
+        The species to average.
+
+    Returns
+    -------
+    dict
+        Species to float64 map, NaN off the mask.
+    """
+    if isinstance(source, (str, os.PathLike)):
+        import xarray as xr
+
+        with xr.open_dataset(source, decode_times=False) as ds:
+            return time_means(ds, mask, species)
+    ds = source
+    if mask is None:
+        mask = data_mask(ds)
     out = {}
-    with netCDF4.Dataset(path, "r") as ds:
-        for sp in SPECIES:
-            v = ds[sp]
-            v.set_auto_mask(False)
-            n = v.shape[0]
-            first = 1 if n > 1 else 0
-            acc = np.zeros(mask.shape)
-            for k in range(first, n):
-                acc += np.where(mask, v[k], 0.0)
-            out[sp] = np.where(mask, acc / (n - first), np.nan)
+    for sp in species:
+        acc = np.zeros(mask.shape)
+        n = 0
+        for _, u in frames(ds, sp, mask=mask):
+            acc += u
+            n += 1
+        out[sp] = np.where(mask, acc / max(n, 1), np.nan)
     return out
 
 
@@ -209,12 +285,7 @@ def write_summaries(folder: Path, grid: Grid, means: dict, finals: dict) -> list
     return out
 
 
-def slug(name: str) -> str:
-    """A file-name form of a measure or variant name (lower case, spaces to hyphens)."""
-    return "-".join(name.lower().split())
-
-
-def write_measures(folder: Path, grid: Grid, layers: list) -> list[dict]:
+def write_measures(folder: Path, grid: Grid, measures: Iterable) -> list[dict]:
     """Write each measure's cells (GeoTIFF) and geometry (GeoJSON) into ``folder``.
 
     Parameters
@@ -223,37 +294,36 @@ def write_measures(folder: Path, grid: Grid, layers: list) -> list[dict]:
         Created if there is at least one measure.
     grid : Grid
         The run grid.
-    layers : list of MeasureLayer
-        Placed measures (:func:`preyscape.pipeline.place_measures`).
+    measures : iterable of PlacedMeasure
+        Placed measures (:func:`preyscape.assemble.place_measures`).
 
     Returns
     -------
     list of dict
-        One summary per measure (see ``MeasureLayer.summary``) with the names of
+        One summary per measure (``PlacedMeasure.summary``) with the names of
         the files written, relative to the run folder.
     """
     from preyscape.landscape.io import write_geotiff
 
     out = []
-    for layer in layers:
-        rec = layer.summary(grid)
+    for m in measures:
+        rec = m.summary(grid.cell_area_km2)
         folder.mkdir(parents=True, exist_ok=True)
-        base = slug(layer.spec.name)
-        if layer.cells is not None:
+        base = slug(m.name)
+        if m.cells is not None:
             write_geotiff(folder / f"{base}.tif", grid,
-                          np.where(grid.mask, layer.cells, 255).astype(np.uint8),
+                          np.where(grid.mask, m.cells, 255).astype(np.uint8),
                           nodata=255, dtype="uint8")
             rec["cells_file"] = f"{folder.name}/{base}.tif"
-        if layer.faces is not None:
-            write_npz(folder / f"{base}_faces.npz", True, between_columns=layer.faces[0],
-                      between_rows=layer.faces[1])
+        if m.faces is not None:
+            write_npz(folder / f"{base}_faces.npz", True, between_columns=m.faces[0],
+                      between_rows=m.faces[1])
             rec["faces_file"] = f"{folder.name}/{base}_faces.npz"
-        if layer.shapes:
+        if m.shapes:
             from shapely.geometry import mapping
 
-            feats = [{"type": "Feature", "properties": {"name": layer.spec.name,
-                                                        "kind": layer.spec.kind},
-                      "geometry": mapping(s.geometry)} for s in layer.shapes]
+            feats = [{"type": "Feature", "properties": {"name": m.name, "kind": m.kind},
+                      "geometry": mapping(s.geometry)} for s in m.shapes]
             doc = {"type": "FeatureCollection", "features": feats}
             if grid.crs_wkt:
                 from pyproj import CRS
@@ -364,35 +434,6 @@ def now_iso() -> str:
     return datetime.now(UTC).isoformat(timespec="seconds")
 
 
-@dataclass
-class RunFolder:
-    """An opened run folder.
-
-    Attributes
-    ----------
-    path : pathlib.Path
-        The folder.
-    info : dict
-        Contents of ``run.json``.
-    """
-
-    path: Path
-    info: dict
-
-    @property
-    def results(self):
-        """The snapshots as an :class:`xarray.Dataset` (opened lazily)."""
-        import xarray as xr
-
-        return xr.open_dataset(self.path / "results.nc", decode_times=False)
-
-    @property
-    def grid(self) -> Grid:
-        """The run grid (metres, CRS, data mask), read from ``results.nc``."""
-        with self.results as ds:
-            return grid_of(ds)
-
-
 def grid_of(ds) -> Grid:
     """The :class:`Grid` of a results dataset (as written by :class:`ResultWriter`).
 
@@ -416,20 +457,3 @@ def grid_of(ds) -> Grid:
     wkt = str(ref.get("crs_wkt") or ref.get("spatial_ref") or "")
     mask = np.asarray(ds["mask"].values).astype(bool) if "mask" in ds else None
     return Grid((y.size, x.size), x0, y0, dx, dy, wkt, mask)
-
-
-def open_run(path: str | Path) -> RunFolder:
-    """Open a finished run folder.
-
-    Raises
-    ------
-    InputError
-        If ``path`` is not a finished run folder.
-    """
-    from preyscape.errors import InputError
-
-    p = Path(path)
-    rec = p / "run.json"
-    if not rec.is_file() or not (p / "results.nc").is_file():
-        raise InputError("not a finished run folder (no run.json and results.nc)", str(p))
-    return RunFolder(p, json.loads(rec.read_text()))

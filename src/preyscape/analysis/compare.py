@@ -4,22 +4,8 @@ Pure functions on results datasets (``xarray.open_dataset(folder / "results.nc",
 decode_times=False)``) and numpy arrays. Densities are animals per km², areas
 km², times years.
 
-Definitions used throughout
----------------------------
-presence threshold
-    A density (animals/km²) at or above which a cell counts as occupied.
-    Default :data:`PRESENCE` = 1 animal per km² (common practice, no source:
-    modelled densities are continuous and never reach exactly zero, so very
-    low values are read as absence).
-snapshots used
-    The snapshots after the start, t = 0: the first snapshot is skipped when
-    there is more than one, as :func:`preyscape.store.time_means` does, so the
-    chosen start state does not weigh on the statistics.
-time mean
-    The mean density of a cell over the snapshots used, animals/km².
-persistence of a cell
-    The fraction (0–1) of the snapshots used in which the cell's density is at
-    or above the presence threshold.
+The presence threshold, the snapshots used, the time mean and the persistence
+are defined once, in :mod:`preyscape.analysis.results`.
 
 Two runs are compared only on the same grid (shape, cell size, position, CRS
 and data mask: :func:`check_same_grid`). Their snapshot times may differ:
@@ -30,17 +16,20 @@ landscape totals are compared as two curves on their own time axes.
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Sequence
+from collections.abc import Sequence
+from pathlib import Path
 
 import numpy as np
 
+from preyscape.analysis.results import CellStatistics, cell_statistics
+from preyscape.analysis.settings import DEFAULTS
 from preyscape.errors import InputError
-from preyscape.store import SPECIES, grid_of
+from preyscape.store import SPECIES, data_mask, frames, grid_of
 
-PRESENCE = 1.0
-"""Default presence threshold, animals/km² (common practice, no source)."""
+PRESENCE = DEFAULTS["presence"]
+"""Default presence threshold, animals/km² (:data:`~preyscape.analysis.settings.DEFAULTS`)."""
 
-CHANGE_THRESHOLD = 0.10
+CHANGE_THRESHOLD = DEFAULTS["change_threshold"]
 """Default relative change of the time-mean density that counts as a change (10 %)."""
 
 CHANGE_CODES = {-1: "no data", 0: "no change", 1: "prey only", 2: "predator only", 3: "both"}
@@ -54,48 +43,6 @@ ZONE_STATISTICS = (
     "occupied_fraction",
 )
 """Per-zone statistics of :func:`zone_table`, in table order."""
-
-
-# ---------------------------------------------------------------------------
-# reading snapshots
-# ---------------------------------------------------------------------------
-def data_mask(ds) -> np.ndarray:
-    """Cells with data of a results dataset (``mask`` variable; all cells if absent)."""
-    if "mask" in ds:
-        return np.asarray(ds["mask"].values).astype(bool)
-    sp = next(s for s in SPECIES if s in ds)
-    return np.ones(ds[sp].shape[-2:], dtype=bool)
-
-
-def used_snapshots(n: int) -> range:
-    """Indices of the snapshots used for statistics: all after the first if ``n > 1``."""
-    return range(1 if n > 1 else 0, n)
-
-
-def snapshots(ds, species: str, indices: Sequence[int] | None = None,
-              ) -> Iterator[tuple[int, np.ndarray]]:
-    """Yield ``(index, density)`` one snapshot at a time, float64, 0 off the data mask.
-
-    Parameters
-    ----------
-    ds : xarray.Dataset
-        A results dataset with variable ``species`` of dims (time, y, x),
-        animals/km².
-    species : str
-        ``"prey"`` or ``"predator"``.
-    indices : sequence of int, optional
-        Snapshots to read. Default: :func:`used_snapshots`.
-    """
-    if species not in ds:
-        raise ValueError(f"results dataset has no variable {species!r}")
-    var = ds[species]
-    mask = data_mask(ds)
-    if indices is None:
-        indices = used_snapshots(var.shape[0])
-    for k in indices:
-        frame = np.asarray(var.isel(time=int(k)).values, dtype=np.float64)
-        # NaN only marks no-data cells; a non-finite value on a data cell counts as absence
-        yield int(k), np.where(mask & np.isfinite(frame), frame, 0.0)
 
 
 def _check_presence(presence: float) -> None:
@@ -169,60 +116,14 @@ def check_same_grid(ds_a, ds_b, names: tuple[str, str] = ("A", "B")) -> None:
 # ---------------------------------------------------------------------------
 # per-cell statistics
 # ---------------------------------------------------------------------------
-def run_statistics(ds, species: str, presence: float = PRESENCE) -> dict[str, np.ndarray]:
-    """Per-cell statistics of one species over the snapshots after the start.
-
-    Snapshots are read one at a time, so memory does not grow with their
-    number. Sums are taken in float64 and the maps returned as float32.
-
-    Parameters
-    ----------
-    ds : xarray.Dataset
-        A results dataset.
-    species : str
-        ``"prey"`` or ``"predator"``.
-    presence : float
-        Presence threshold, animals/km².
-
-    Returns
-    -------
-    dict
-        ``"mean"``, ``"min"``, ``"max"``: time mean, minimum and maximum of the
-        density over the snapshots used, animals/km²; ``"persistence"``:
-        fraction (0–1) of those snapshots with density >= ``presence``; all
-        float32, shape (rows, cols), NaN off the data mask. ``"snapshots"``:
-        how many snapshots were used (int).
-    """
-    _check_presence(presence)
-    mask = data_mask(ds)
-    acc = np.zeros(mask.shape)
-    lo = np.full(mask.shape, np.inf)
-    hi = np.full(mask.shape, -np.inf)
-    occ = np.zeros(mask.shape)
-    n = 0
-    for _, u in snapshots(ds, species):
-        acc += u
-        np.minimum(lo, u, out=lo)
-        np.maximum(hi, u, out=hi)
-        occ += u >= presence
-        n += 1
-    if n == 0:
-        raise InputError("the run holds no snapshots", f"results: {species}")
-
-    def out(a: np.ndarray) -> np.ndarray:
-        return np.where(mask, a, np.nan).astype(np.float32)
-
-    return {"mean": out(acc / n), "min": out(lo), "max": out(hi),
-            "persistence": out(occ / n), "snapshots": n}
-
-
-def difference(stats_a: dict, stats_b: dict) -> dict[str, np.ndarray]:
+def difference(stats_a: CellStatistics, stats_b: CellStatistics) -> dict[str, np.ndarray]:
     """Maps of B − A for the time mean and the persistence.
 
     Parameters
     ----------
-    stats_a, stats_b : dict
-        Outputs of :func:`run_statistics` for runs A and B (same grid).
+    stats_a, stats_b : CellStatistics
+        Statistics of runs A and B (:func:`preyscape.analysis.results.cell_statistics`,
+        same grid).
 
     Returns
     -------
@@ -233,8 +134,8 @@ def difference(stats_a: dict, stats_b: dict) -> dict[str, np.ndarray]:
     """
     out = {}
     for key in ("mean", "persistence"):
-        a = np.asarray(stats_a[key], dtype=np.float64)
-        b = np.asarray(stats_b[key], dtype=np.float64)
+        a = np.asarray(getattr(stats_a, key), dtype=np.float64)
+        b = np.asarray(getattr(stats_b, key), dtype=np.float64)
         if a.shape != b.shape:
             raise ValueError(f"{key} maps have shapes {a.shape} and {b.shape}")
         out[key] = (b - a).astype(np.float32)
@@ -281,6 +182,7 @@ def change_classes(
     mean_b_prey: np.ndarray,
     mean_a_pred: np.ndarray,
     mean_b_pred: np.ndarray,
+    *,
     threshold: float = CHANGE_THRESHOLD,
     presence: float = PRESENCE,
 ) -> np.ndarray:
@@ -332,6 +234,7 @@ def zone_table(
     labels: np.ndarray,
     names: Sequence[str],
     species: str,
+    *,
     presence: float = PRESENCE,
 ) -> list[dict]:
     """Statistics of one species per zone, over the snapshots after the start.
@@ -382,7 +285,7 @@ def zone_table(
     occ_cells = np.zeros(nz)
     occ_zone = np.zeros(nz)
     n = 0
-    for _, u in snapshots(ds, species):
+    for _, u in frames(ds, species, mask=mask):
         v = u[sel]
         animals = np.bincount(lab, weights=v, minlength=nz) * area_cell
         acc += animals
@@ -414,8 +317,9 @@ def zone_table(
 # ---------------------------------------------------------------------------
 # all maps at once
 # ---------------------------------------------------------------------------
-def compare_runs(ds_a, ds_b, threshold: float = CHANGE_THRESHOLD,
-                 presence: float = PRESENCE, names: tuple[str, str] = ("A", "B")):
+def compare_runs(ds_a, ds_b, *, threshold: float = CHANGE_THRESHOLD,
+                 presence: float = PRESENCE,
+                 names: tuple[str, str] = ("A", "B")):
     """Compare two runs cell by cell: the maps of both runs and their differences.
 
     Parameters
@@ -445,6 +349,17 @@ def compare_runs(ds_a, ds_b, threshold: float = CHANGE_THRESHOLD,
     ------
     InputError
         If the runs are not on the same grid (:func:`check_same_grid`).
+
+    Examples
+    --------
+    ``run_folder`` and ``other_run`` are finished runs of one scenario:
+
+    >>> import xarray as xr
+    >>> with xr.open_dataset(run_folder / "results.nc", decode_times=False) as a, \\
+    ...         xr.open_dataset(other_run / "results.nc", decode_times=False) as b:
+    ...     maps = compare_runs(a, b, presence=1.0)
+    >>> str(maps["change"].dtype), maps.attrs["same_times"]
+    ('int8', 1)
     """
     import xarray as xr
 
@@ -455,24 +370,24 @@ def compare_runs(ds_a, ds_b, threshold: float = CHANGE_THRESHOLD,
     attrs = {"threshold": float(threshold), "presence": float(presence),
              "same_times": int(same_times(ds_a, ds_b))}
     for sp in SPECIES:
-        sa = run_statistics(ds_a, sp, presence)
-        sb = run_statistics(ds_b, sp, presence)
+        sa = cell_statistics(ds_a, sp, presence)
+        sb = cell_statistics(ds_b, sp, presence)
         d = difference(sa, sb)
-        means[sp] = (sa["mean"], sb["mean"])
+        means[sp] = (sa.mean, sb.mean)
         unit = {"units": "km-2"}
-        data[f"{sp}_mean_a"] = (dims, sa["mean"], {**unit, "long_name": f"time-mean {sp}, A"})
-        data[f"{sp}_mean_b"] = (dims, sb["mean"], {**unit, "long_name": f"time-mean {sp}, B"})
-        data[f"{sp}_persistence_a"] = (dims, sa["persistence"], {"units": "1"})
-        data[f"{sp}_persistence_b"] = (dims, sb["persistence"], {"units": "1"})
+        data[f"{sp}_mean_a"] = (dims, sa.mean, {**unit, "long_name": f"time-mean {sp}, A"})
+        data[f"{sp}_mean_b"] = (dims, sb.mean, {**unit, "long_name": f"time-mean {sp}, B"})
+        data[f"{sp}_persistence_a"] = (dims, sa.persistence, {"units": "1"})
+        data[f"{sp}_persistence_b"] = (dims, sb.persistence, {"units": "1"})
         data[f"{sp}_mean_difference"] = (dims, d["mean"],
                                          {**unit, "long_name": f"time-mean {sp}, B - A"})
         data[f"{sp}_persistence_difference"] = (dims, d["persistence"], {"units": "1"})
         data[f"{sp}_relative_change"] = (
-            dims, relative_change(sa["mean"], sb["mean"], presence), {"units": "1"})
-        attrs[f"{sp}_snapshots_a"] = sa["snapshots"]
-        attrs[f"{sp}_snapshots_b"] = sb["snapshots"]
+            dims, relative_change(sa.mean, sb.mean, presence), {"units": "1"})
+        attrs[f"{sp}_snapshots_a"] = sa.snapshots
+        attrs[f"{sp}_snapshots_b"] = sb.snapshots
     change = change_classes(means["prey"][0], means["prey"][1], means["predator"][0],
-                            means["predator"][1], threshold, presence)
+                            means["predator"][1], threshold=threshold, presence=presence)
     data["change"] = (dims, change, {
         "flag_values": np.array(sorted(CHANGE_CODES), dtype=np.int8),
         "flag_meanings": " ".join(CHANGE_CODES[k].replace(" ", "_")
@@ -480,3 +395,81 @@ def compare_runs(ds_a, ds_b, threshold: float = CHANGE_THRESHOLD,
     })
     coords = {"y": ds_a["y"].values, "x": ds_a["x"].values}
     return xr.Dataset(data, coords=coords, attrs=attrs)
+
+
+# ---------------------------------------------------------------------------
+# zones from files
+# ---------------------------------------------------------------------------
+POLYGON_SUFFIXES = (".geojson", ".json")
+"""Zone files read as polygons; any other file is read as a class raster."""
+
+
+def _codes_to_labels(values: np.ndarray, valid: np.ndarray, prefix: str,
+                     source: str) -> tuple[np.ndarray, list[str]]:
+    """Integer labels 0..n-1 for the distinct integer codes in ``values`` on ``valid``."""
+    v = values[valid]
+    if v.size and not np.all(v == np.round(v)):
+        raise InputError("zones must be integer class codes; the raster holds fractional "
+                         "values", source)
+    codes = np.unique(v.astype(np.int64))
+    labels = np.full(values.shape, -1, dtype=np.int32)
+    labels[valid] = np.searchsorted(codes, values[valid].astype(np.int64))
+    return labels, [f"{prefix} {int(c)}" for c in codes]
+
+
+def load_zones(zones: Path | None, zone_field: str | None, grid, ds) -> tuple[
+        np.ndarray, list[str], str]:
+    """Zone labels on ``grid`` from a file or from the run's habitat classes.
+
+    Parameters
+    ----------
+    zones : pathlib.Path or None
+        A polygon file (``.geojson``/``.json``, read with
+        :func:`preyscape.landscape.measures.zones_from_polygons`) or a class
+        raster (any other suffix; read with
+        :func:`preyscape.landscape.io.read_layer_onto`, majority per cell).
+        None: the habitat classes stored in ``ds`` (``habitat``), named
+        ``"class <code>"``, when they are integer codes; otherwise one zone,
+        the whole landscape.
+    zone_field : str or None
+        Polygon attribute naming the zones (polygons only).
+    grid : Grid
+        The run grid.
+    ds : xarray.Dataset
+        The results of run A (for its habitat layer).
+
+    Returns
+    -------
+    labels : numpy.ndarray of int32
+        Zone per cell, −1 none.
+    names : list of str
+        Zone names, indexed by label.
+    kind : str
+        ``"polygons"``, ``"raster"``, ``"habitat classes"`` or ``"whole landscape"``.
+    """
+    mask = grid.mask
+    if zones is None:
+        if "habitat" in ds:
+            hab = np.asarray(ds["habitat"].values, dtype=np.float64)
+            valid = mask & np.isfinite(hab)
+            if valid.any() and np.all(hab[valid] == np.round(hab[valid])):
+                labels, names = _codes_to_labels(hab, valid, "class", "results.nc: habitat")
+                return labels, names, "habitat classes"
+        return np.where(mask, 0, -1).astype(np.int32), ["whole landscape"], "whole landscape"
+    zones = Path(zones)
+    src = str(zones)
+    if not zones.is_file():
+        raise InputError("zone file not found; give a polygon GeoJSON or a class raster", src)
+    if zones.suffix.lower() in POLYGON_SUFFIXES:
+        from preyscape.landscape.measures import zones_from_polygons
+
+        labels, names = zones_from_polygons(zones, grid, field=zone_field, source=src)
+        return np.asarray(labels, dtype=np.int32), [str(n) for n in names], "polygons"
+    if zone_field is not None:
+        raise InputError(f"zone_field {zone_field!r} applies to polygon zones only "
+                         f"({', '.join(POLYGON_SUFFIXES)}); a raster's zones are its codes", src)
+    from preyscape.landscape.io import read_layer_onto
+
+    arr = read_layer_onto(zones, grid, "mode", source=src)
+    labels, names = _codes_to_labels(arr, mask & np.isfinite(arr), "zone", src)
+    return labels, names, "raster"

@@ -1,350 +1,36 @@
-"""Effects of measures: refuges (inside against outside, spill-over) and corridors.
+"""Effects of corridors and fences: colonisation of target patches, animals crossing lines.
 
-Pure functions on results datasets and numpy arrays. Densities are animals
-per km², distances km (metres for cell sizes), times years, fluxes animals per
-year. The presence threshold, the snapshots used and the persistence are as
-defined in :mod:`preyscape.analysis.compare`.
+Pure functions on results datasets, movement operators and numpy arrays.
+Densities are animals per km², times years, fluxes animals per year.
 
-Refuges
-    :func:`inside_outside` compares the cells of a refuge with the rest of
-    the landscape; :func:`spillover_profile` averages a density map in
-    bands of distance from the refuge edge; :func:`decay_length` fits an
-    exponential decay to such a profile. Where animals only die outside a
-    source patch, the steady density there obeys D u'' = r u and decays as
-    exp(−d/ℓ) with ℓ = √(D/r) (textbook; Skellam 1951, Biometrika 38:196;
-    Murray 2002, Mathematical Biology I), so ℓ measures how far a refuge
-    feeds its surroundings.
-
-Corridors
-    :func:`colonisation_time` is when a target patch becomes occupied;
-    :func:`net_flux` counts the animals per year crossing a transect of cell
-    faces, from the face conductances of the movement operator
-    (:class:`preyscape.model.movement.Movement`), and :func:`cumulative`
-    integrates it over time.
+* :func:`colonisation_time` is when a target patch becomes occupied;
+  :func:`colonisation` does it for every target and species;
+* :func:`net_flux` counts the animals per year crossing a transect of cell
+  faces, from the face conductances of the movement operator
+  (:class:`preyscape.model.movement.Movement`); :func:`transect_faces` finds
+  the faces a line crosses, :func:`transect_flux` follows the flow through a
+  run epoch by epoch, and :func:`cumulative` integrates it over time.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 
-from preyscape.analysis.compare import (
-    PRESENCE,
-    _check_presence,
-    check_same_grid,
-    data_mask,
-    snapshots,
-    zone_table,
-)
+from preyscape.analysis.compare import PRESENCE, _check_presence
+from preyscape.analysis.refuges import _cells
 from preyscape.errors import InputError
-from preyscape.store import grid_of
+from preyscape.store import SPECIES, data_mask, frames, grid_of
 
 
-# ---------------------------------------------------------------------------
-# refuges
-# ---------------------------------------------------------------------------
-def _cells(cells: np.ndarray, shape: tuple[int, ...]) -> np.ndarray:
-    c = np.asarray(cells, dtype=bool)
-    if c.shape != tuple(shape):
-        raise ValueError(f"cells have shape {c.shape}, the grid {tuple(shape)}")
-    return c
-
-
-def inside_outside(ds, cells: np.ndarray, species: str = "prey",
-                   presence: float = PRESENCE) -> dict[str, dict]:
-    """A species inside a refuge against outside it.
-
-    Parameters
-    ----------
-    ds : xarray.Dataset
-        A results dataset.
-    cells : numpy.ndarray of bool
-        The refuge's cells, shape (rows, cols).
-    species : str
-        ``"prey"`` or ``"predator"``.
-    presence : float
-        Presence threshold, animals/km².
-
-    Returns
-    -------
-    dict
-        ``{"inside": {...}, "outside": {...}}``, each with ``cells``,
-        ``area_km2``; ``mean_density`` (time mean of the region's mean
-        density, animals/km²); ``min_mean_density`` (smallest mean density
-        of the region in any snapshot used, animals/km²); ``persistence``
-        (mean persistence of the region's cells, 0–1). Only cells with data
-        count; statistics are NaN for an empty region.
-    """
-    mask = data_mask(ds)
-    c = _cells(cells, mask.shape)
-    labels = np.where(c, 0, 1).astype(np.int32)
-    rows = zone_table(ds, labels, ["inside", "outside"], species, presence)
-    out = {}
-    for row in rows:
-        area = row["area_km2"]
-        out[row["zone"]] = {
-            "cells": row["cells"],
-            "area_km2": area,
-            "mean_density": row["mean_density"],
-            "min_mean_density": row["min_animals"] / area if area > 0 else math.nan,
-            "persistence": row["persistence"],
-        }
-    return out
-
-
-def distance_from_edge(cells: np.ndarray, dx_m: float, dy_m: float) -> np.ndarray:
-    """Distance of every cell centre outside ``cells`` from the edge of the region, metres.
-
-    The distance is from the cell centre to the nearest point of the square
-    of the region cell whose centre is nearest (found with
-    :func:`scipy.ndimage.distance_transform_edt`, ``sampling=(dy, dx)``). A
-    cell sharing a side with the region is at half a cell (``dx/2`` east or
-    west, ``dy/2`` north or south); one sharing only a corner at
-    ``hypot(dx/2, dy/2)``; in general ``hypot(max(|Δx| − dx/2, 0),
-    max(|Δy| − dy/2, 0))`` for centre offsets Δx, Δy. Cells inside the
-    region get 0; NaN everywhere if the region is empty.
-    """
-    from scipy.ndimage import distance_transform_edt
-
-    c = np.asarray(cells, dtype=bool)
-    if not c.any():
-        return np.full(c.shape, np.nan)
-    _, (ri, ci) = distance_transform_edt(~c, sampling=(dy_m, dx_m), return_indices=True)
-    rows, cols = np.indices(c.shape)
-    ox = np.maximum(np.abs(cols - ci) * dx_m - 0.5 * dx_m, 0.0)
-    oy = np.maximum(np.abs(rows - ri) * dy_m - 0.5 * dy_m, 0.0)
-    return np.where(c, 0.0, np.hypot(ox, oy))
-
-
-def spillover_profile(
-    mean: np.ndarray,
-    cells: np.ndarray,
-    mask: np.ndarray,
-    dx_m: float,
-    dy_m: float,
-    bin_m: float | None = None,
-    max_m: float | None = None,
-) -> tuple[np.ndarray, np.ndarray]:
-    """Mean density against distance from a refuge's edge, outside the refuge.
-
-    Parameters
-    ----------
-    mean : numpy.ndarray
-        A density map, animals/km² (a time mean, or a difference of two).
-    cells : numpy.ndarray of bool
-        The refuge's cells.
-    mask : numpy.ndarray of bool
-        Cells with data; others are left out.
-    dx_m, dy_m : float
-        Cell width and height, metres.
-    bin_m : float, optional
-        Width of the distance bands, metres. Default: one cell,
-        ``min(dx_m, dy_m)``.
-    max_m : float, optional
-        Largest distance included, metres. Default: all cells.
-
-    Returns
-    -------
-    distance_km : numpy.ndarray
-        Centres of the bands holding at least one cell, km. Band ``k`` holds
-        the cells at distance ``d`` (:func:`distance_from_edge`) with
-        ``k·bin <= d < (k+1)·bin``; with the default band the cells beside a
-        straight edge, at half a cell, sit at the band centres.
-    density : numpy.ndarray
-        Mean of ``mean`` over the cells of each band, animals/km².
-    """
-    m = np.asarray(mean, dtype=np.float64)
-    c = _cells(cells, m.shape)
-    ok = np.asarray(mask, dtype=bool) & ~c & np.isfinite(m)
-    bin_m = float(min(dx_m, dy_m) if bin_m is None else bin_m)
-    if not bin_m > 0:
-        raise ValueError("bin_m must be a positive distance (metres)")
-    d = distance_from_edge(c, dx_m, dy_m)
-    if max_m is not None:
-        ok &= d <= max_m
-    if not ok.any() or not c.any():
-        return np.zeros(0), np.zeros(0)
-    k = np.floor(d[ok] / bin_m).astype(np.intp)
-    count = np.bincount(k)
-    total = np.bincount(k, weights=m[ok])
-    keep = count > 0
-    centre_km = (np.arange(count.size) + 0.5) * bin_m / 1000.0
-    return centre_km[keep], total[keep] / count[keep]
-
-
-def decay_length(
-    distance_km: np.ndarray,
-    density: np.ndarray,
-    baseline: float | None = None,
-) -> tuple[float, dict]:
-    """Decay length ℓ of a profile ``density − baseline ≈ A exp(−d/ℓ)``, km.
-
-    Parameters
-    ----------
-    distance_km : numpy.ndarray
-        Distances from the refuge edge, km.
-    density : numpy.ndarray
-        Density at those distances, animals/km².
-    baseline : float, optional
-        Known far-field density, animals/km². Given: a least-squares line
-        through ``log(density − baseline)`` over the points where it is
-        positive. None: ``A``, ``ℓ`` and the baseline are fitted together by
-        :func:`scipy.optimize.curve_fit`, started from the log fit.
-
-    Returns
-    -------
-    length_km : float
-        ℓ, km; NaN if the profile does not decay or has too few points.
-    info : dict
-        ``amplitude`` (A, animals/km²), ``baseline`` (animals/km²),
-        ``length_km``, ``method`` (``"log-linear"`` or ``"curve_fit"``),
-        ``points`` used, ``rms`` (root-mean-square residual, animals/km²)
-        and ``error`` (a reason when the fit failed, else None).
-    """
-    d = np.asarray(distance_km, dtype=np.float64)
-    y = np.asarray(density, dtype=np.float64)
-    ok = np.isfinite(d) & np.isfinite(y)
-    d, y = d[ok], y[ok]
-    if baseline is not None:
-        return _log_fit(d, y, float(baseline))
-    if d.size < 4:
-        return math.nan, _fail("curve_fit", d.size, "fewer than 4 points")
-    from scipy.optimize import curve_fit
-
-    # start: baseline a little below the smallest value, then the log fit
-    span = float(np.ptp(y)) or 1.0
-    b0 = float(y.min()) - 1e-3 * span
-    ell0, first = _log_fit(d, y, b0)
-    if not math.isfinite(ell0):
-        ell0 = max(float(np.ptp(d)) / 3.0, 1e-9)
-        first = {"amplitude": span}
-
-    def model(x, a, ell, b):
-        return a * np.exp(-x / ell) + b
-
-    try:
-        p, _ = curve_fit(model, d, y, p0=(first["amplitude"], ell0, b0),
-                         bounds=([-np.inf, 1e-12, -np.inf], [np.inf, np.inf, np.inf]),
-                         maxfev=20000)
-    except (RuntimeError, ValueError) as exc:
-        return math.nan, _fail("curve_fit", d.size, str(exc))
-    a, ell, b = (float(v) for v in p)
-    rms = float(np.sqrt(np.mean((model(d, a, ell, b) - y) ** 2)))
-    return ell, {"amplitude": a, "baseline": b, "length_km": ell, "method": "curve_fit",
-                 "points": int(d.size), "rms": rms, "error": None}
-
-
-def _fail(method: str, points: int, why: str) -> dict:
-    return {"amplitude": math.nan, "baseline": math.nan, "length_km": math.nan,
-            "method": method, "points": int(points), "rms": math.nan, "error": why}
-
-
-def _log_fit(d: np.ndarray, y: np.ndarray, baseline: float) -> tuple[float, dict]:
-    z = y - baseline
-    pos = z > 0
-    if pos.sum() < 2:
-        return math.nan, _fail("log-linear", int(pos.sum()), "fewer than 2 points above "
-                               "the baseline")
-    slope, icpt = np.polyfit(d[pos], np.log(z[pos]), 1)
-    if not slope < 0:
-        return math.nan, _fail("log-linear", int(pos.sum()), "the profile does not decay")
-    ell = -1.0 / float(slope)
-    amp = float(np.exp(icpt))
-    rms = float(np.sqrt(np.mean((amp * np.exp(-d[pos] / ell) + baseline - y[pos]) ** 2)))
-    return ell, {"amplitude": amp, "baseline": baseline, "length_km": ell,
-                 "method": "log-linear", "points": int(pos.sum()), "rms": rms, "error": None}
-
-
-def time_mean(ds, species: str) -> np.ndarray:
-    """Time mean over the snapshots after the start, animals/km², float64, NaN off the mask."""
-    mask = data_mask(ds)
-    acc = np.zeros(mask.shape)
-    n = 0
-    for _, u in snapshots(ds, species):
-        acc += u
-        n += 1
-    if n == 0:
-        raise InputError("the run holds no snapshots", f"results: {species}")
-    return np.where(mask, acc / n, np.nan)
-
-
-def refuge_effect(
-    ds,
-    cells: np.ndarray,
-    ds_without=None,
-    species: str = "prey",
-    presence: float = PRESENCE,
-    bin_m: float | None = None,
-    max_m: float | None = None,
-    baseline: float | None = None,
-) -> dict:
-    """Inside/outside statistics, spill-over profile and decay length of a refuge.
-
-    Parameters
-    ----------
-    ds : xarray.Dataset
-        Results of the run with the refuge.
-    cells : numpy.ndarray of bool
-        The refuge's cells.
-    ds_without : xarray.Dataset, optional
-        Results of the same scenario without the refuge, on the same grid.
-        Given: the profile is that of the difference of the time means (with
-        − without), which isolates the refuge's own effect, and the decay is
-        fitted towards a baseline of 0 unless ``baseline`` says otherwise.
-        Not given: the profile of the time mean of ``ds``, with the baseline
-        fitted freely unless given.
-    species : str
-        ``"prey"`` or ``"predator"``.
-    presence : float
-        Presence threshold, animals/km².
-    bin_m, max_m : float, optional
-        Band width and largest distance of the profile, metres
-        (:func:`spillover_profile`).
-    baseline : float, optional
-        Far-field density of the profile, animals/km² (:func:`decay_length`).
-
-    Returns
-    -------
-    dict
-        ``inside_outside`` (:func:`inside_outside` of ``ds``),
-        ``inside_outside_without`` (of ``ds_without``, or None),
-        ``difference`` (bool: profile of with − without), ``distance_km``,
-        ``density`` (the profile, animals/km²), ``decay_length_km`` and
-        ``fit`` (:func:`decay_length`).
-
-    Raises
-    ------
-    InputError
-        If ``ds_without`` is not on the grid of ``ds``.
-    """
-    _check_presence(presence)
-    grid = grid_of(ds)
-    c = _cells(cells, grid.shape)
-    io_with = inside_outside(ds, c, species, presence)
-    io_without = None
-    mean = time_mean(ds, species)
-    if ds_without is not None:
-        check_same_grid(ds, ds_without, ("with the refuge", "without the refuge"))
-        io_without = inside_outside(ds_without, c, species, presence)
-        mean = mean - time_mean(ds_without, species)
-        if baseline is None:
-            baseline = 0.0
-    dist, dens = spillover_profile(mean, c, grid.mask, grid.dx, grid.dy, bin_m, max_m)
-    ell, fit = decay_length(dist, dens, baseline)
-    return {"inside_outside": io_with, "inside_outside_without": io_without,
-            "difference": ds_without is not None, "distance_km": dist, "density": dens,
-            "decay_length_km": ell, "fit": fit}
-
-
-# ---------------------------------------------------------------------------
-# corridors
-# ---------------------------------------------------------------------------
 def colonisation_time(
     ds,
     species: str,
     target_cells: np.ndarray,
+    *,
     threshold: float = PRESENCE,
     share: float = 0.5,
 ) -> float:
@@ -391,7 +77,7 @@ def colonisation_time(
                          "the landscape", f"results: {species}")
     times = np.asarray(ds["time"].values, dtype=float)
     prev_t, prev_f = math.nan, math.nan
-    for k, u in snapshots(ds, species, range(times.size)):
+    for k, u in frames(ds, species, range(times.size), mask=mask):
         f = float(np.count_nonzero(u[tgt] >= threshold)) / n_cells
         if f >= share:
             if k == 0:
@@ -511,14 +197,142 @@ def cumulative(values: np.ndarray, times: np.ndarray) -> np.ndarray:
     return cumulative_trapezoid(v, t, initial=0.0)
 
 
+def transect_faces(points: list, grid) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Faces a transect line crosses and the sign of a crossing flow on each.
+
+    The positive direction is from the left of the line to its right, walking
+    from its first point to its last (for a line drawn northwards: west to
+    east). A face crossed by two segments counts once (the first).
+
+    Parameters
+    ----------
+    points : list of (float, float)
+        The line's vertices, map metres.
+    grid : Grid
+        The run grid.
+
+    Returns
+    -------
+    faces_x, faces_y, sign_x, sign_y : numpy.ndarray
+        Boolean faces shaped (rows, cols+1) and (rows+1, cols) and the signs
+        (+1 or −1) of a flow from west to east / north to south on them.
+    """
+    from shapely.geometry import LineString
+
+    from preyscape.landscape.measures import fence_faces
+
+    ny, nx = grid.shape
+    fx = np.zeros((ny, nx + 1), bool)
+    fy = np.zeros((ny + 1, nx), bool)
+    sx = np.zeros((ny, nx + 1))
+    sy = np.zeros((ny + 1, nx))
+    for (x0, y0), (x1, y1) in zip(points[:-1], points[1:], strict=True):
+        seg = LineString([(x0, y0), (x1, y1)])
+        if seg.length == 0:
+            continue
+        a, b = fence_faces([seg], grid)
+        a &= ~fx
+        b &= ~fy
+        # a west->east flow crosses left->right when the line heads north (dy > 0);
+        # a north->south flow when it heads east (dx > 0)
+        sx[a] = 1.0 if y1 > y0 else -1.0
+        sy[b] = 1.0 if x1 > x0 else -1.0
+        fx |= a
+        fy |= b
+    return fx, fy, sx, sy
+
+
+def _epoch_of(t: float, spans: list[tuple[float, float]]) -> int:
+    for k, (t0, t1) in enumerate(spans):
+        if t0 <= t < t1:
+            return k
+    return len(spans) - 1
+
+
+def transect_flux(ds, operators: Sequence[dict], points: Sequence, species: str,
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """Net flow of a species across a transect at every snapshot, animals/yr.
+
+    Uses the movement operators the run saved for each epoch
+    (:meth:`preyscape.analysis.results.RunResults.operators`); a snapshot at a
+    switch time uses the epoch that starts there. Snapshots are read one at a
+    time, so memory is O(grid).
+
+    Returns
+    -------
+    times : numpy.ndarray
+        Snapshot times, years.
+    flow : numpy.ndarray
+        Animals per year crossing from the left of the line to its right.
+    """
+    ops = list(operators)
+    grid = grid_of(ds)
+    fx, fy, sx, sy = transect_faces(points, grid)
+    times = np.asarray(ds["time"].values, dtype=float)
+    spans = [tuple(float(v) for v in op["span"]) for op in ops]
+    flow = np.zeros(times.size)
+    for k, frame in frames(ds, species, range(times.size)):
+        t = float(times[k])
+        op = ops[_epoch_of(t, spans)]
+        flow[k] = net_flux([frame], [t], op[f"{species}_cx"], op[f"{species}_cy"],
+                           op[f"{species}_w"], fx, fy, sx, sy, grid.cell_area_km2)[0]
+    return times, flow
+
+@dataclass(frozen=True)
+class TargetColonisation:
+    """When each species colonised one target patch.
+
+    Attributes
+    ----------
+    name : str
+        The target's name.
+    cells : int
+        Its cells with data.
+    years : dict
+        Species to the colonisation time in years (None: not within the run).
+    """
+
+    name: str
+    cells: int
+    years: dict
+
+
+def colonisation(ds, targets: Sequence[tuple[str, np.ndarray]], thresholds: dict,
+                 share: float) -> list[TargetColonisation]:
+    """Colonisation time of each target patch by each species (:func:`colonisation_time`).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        An opened ``results.nc``.
+    targets : sequence of (str, numpy.ndarray)
+        Target names and their cells (bool, rows × cols).
+    thresholds : dict
+        Species to the density that counts as occupied, animals/km².
+    share : float
+        Share of a patch's cells that must be occupied, in (0, 1].
+
+    Returns
+    -------
+    list of TargetColonisation
+    """
+    mask = data_mask(ds)
+    out = []
+    for name, cells in targets:
+        years = {}
+        for sp in SPECIES:
+            t = colonisation_time(ds, sp, cells, threshold=thresholds[sp], share=share)
+            years[sp] = None if math.isnan(t) else t
+        out.append(TargetColonisation(name, int((cells & mask).sum()), years))
+    return out
+
+
 __all__ = [
+    "TargetColonisation",
+    "colonisation",
     "colonisation_time",
     "cumulative",
-    "decay_length",
-    "distance_from_edge",
-    "inside_outside",
     "net_flux",
-    "refuge_effect",
-    "spillover_profile",
-    "time_mean",
+    "transect_faces",
+    "transect_flux",
 ]

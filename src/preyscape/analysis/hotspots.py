@@ -32,6 +32,7 @@ Yekutieli 2001, Ann Stat 29:1165; from memory).
 from __future__ import annotations
 
 from collections.abc import Iterable
+from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
@@ -206,6 +207,7 @@ def getis_ord_gi_star(
     dx_m: float,
     dy_m: float,
     band_m: float,
+    *,
     method: Literal["auto", "direct", "fft"] = "auto",
 ) -> np.ndarray:
     """Getis–Ord Gi* z-scores with binary distance-band weights.
@@ -311,6 +313,7 @@ def hotspots(
     dx_m: float,
     dy_m: float,
     band_m: float,
+    *,
     alpha: float = 0.05,
 ) -> dict[str, np.ndarray]:
     """Hot and cold spots of a field: Gi* with a two-sided FDR test.
@@ -351,6 +354,7 @@ def persistent_hotspots(
     dx_m: float,
     dy_m: float,
     band_m: float,
+    *,
     alpha: float = 0.05,
 ) -> np.ndarray:
     """Share of snapshots in which each cell is a significant hotspot.
@@ -404,18 +408,80 @@ def persistent_hotspots(
     return np.where(seen, count / n_frames, np.nan)
 
 
+@dataclass(frozen=True)
+class HotspotResult:
+    """Hotspots of one species in a run (from :func:`hotspots_of_run`).
+
+    Attributes
+    ----------
+    species : str
+        ``"prey"`` or ``"predator"``.
+    band_m : float
+        Neighbourhood radius, metres.
+    alpha : float
+        False discovery rate of the two-sided test.
+    snapshots : int
+        Snapshots in the time mean.
+    mean : numpy.ndarray
+        Time-mean density, animals/km² (NaN off data).
+    gi_star : numpy.ndarray
+        Gi* z-scores (NaN off data).
+    p_value : numpy.ndarray
+        Two-sided normal p-values (NaN off data).
+    hot, cold : numpy.ndarray of bool
+        Significant hot and cold spots (FDR).
+    persistence : numpy.ndarray or None
+        Share of snapshots (0–1) in which each cell is a significant hotspot
+        (NaN off data), if asked for.
+    """
+
+    species: str
+    band_m: float
+    alpha: float
+    snapshots: int
+    mean: np.ndarray
+    gi_star: np.ndarray
+    p_value: np.ndarray
+    hot: np.ndarray
+    cold: np.ndarray
+    persistence: np.ndarray | None = None
+
+    @property
+    def data(self) -> np.ndarray:
+        """Cells with a Gi* value (bool)."""
+        return np.isfinite(self.gi_star)
+
+    @property
+    def classes(self) -> np.ndarray:
+        """int8 per cell: 1 hot, -1 cold, 0 neither, :data:`CLASS_NODATA` no data."""
+        cls = np.where(self.hot, 1, np.where(self.cold, -1, 0)).astype(np.int8)
+        cls[~self.data] = CLASS_NODATA
+        return cls
+
+    @property
+    def hot_share_of_animals(self) -> float:
+        """Share (0–1) of the time-mean animals on hotspot cells (equal cell areas)."""
+        d = self.data
+        total = float(np.sum(self.mean, where=d))
+        return float(np.sum(self.mean, where=d & self.hot)) / total if total > 0 else 0.0
+
+
+CLASS_NODATA = -128
+"""No-data code of :attr:`HotspotResult.classes`."""
+
+
 def hotspots_of_run(
     ds,
     species: str,
+    *,
     band_m: float | None = None,
     alpha: float = 0.05,
     persistent: bool = True,
-):
+) -> HotspotResult:
     """Hotspots of one species in a results dataset.
 
-    The time mean is taken over the snapshots after the start (all of them
-    if there is only one), as :func:`preyscape.store.time_means` does, one
-    snapshot at a time.
+    The time mean is taken over the snapshots used
+    (:func:`preyscape.store.used_snapshots`), one snapshot at a time.
 
     Parameters
     ----------
@@ -429,65 +495,46 @@ def hotspots_of_run(
     alpha : float
         False discovery rate of the two-sided test.
     persistent : bool
-        Also compute the share of snapshots (after the start) in which each
-        cell is a hotspot.
+        Also compute the share of snapshots used in which each cell is a
+        hotspot (keyword only).
 
     Returns
     -------
-    xarray.Dataset
-        On coords ``y``, ``x``: ``mean`` (animals/km²), ``gi_star`` (z),
-        ``p_value`` (two-sided), ``hot``, ``cold`` (bool),
-        ``hotspot_class`` (int8: 1 hot, -1 cold, 0 neither, -128 no data)
-        and, if asked, ``persistence`` (0–1, NaN off data). Attributes
-        ``species``, ``band_m``, ``alpha``, ``snapshots`` (number in the
-        mean).
-    """
-    import xarray as xr
+    HotspotResult
 
-    from preyscape.store import grid_of
+    Examples
+    --------
+    >>> import numpy as np, xarray as xr
+    >>> yy, xx = np.mgrid[0:12, 0:12]
+    >>> bump = 100.0 + 50.0 * np.exp(-((yy - 3) ** 2 + (xx - 8) ** 2) / 4.0)
+    >>> ds = xr.Dataset({"prey": (("time", "y", "x"), bump[None])},
+    ...                 coords={"time": [0.0], "y": 1000.0 - 50.0 * np.arange(12),
+    ...                         "x": 50.0 * np.arange(12)})
+    >>> res = hotspots_of_run(ds, "prey", band_m=110.0, persistent=False)
+    >>> bool(res.hot[3, 8]), bool(res.hot[10, 1])
+    (True, False)
+    """
+    from preyscape.store import data_mask, frames, grid_of
 
     if species not in ds:
         raise ValueError(f"no variable {species!r} in the results dataset")
     grid = grid_of(ds)
     band = default_band_m(grid) if band_m is None else float(band_m)
-    var = ds[species]
-    n = var.sizes["time"]
+    mask = data_mask(ds)
+    acc = np.zeros(grid.shape)
+    n = 0
+    for _, f in frames(ds, species, mask=mask):
+        acc += f
+        n += 1
     if n == 0:
         raise ValueError("the results dataset holds no snapshots")
-    first = 1 if n > 1 else 0
-    mask = grid.mask
-
-    def frames():
-        for k in range(first, n):
-            yield np.asarray(var.isel(time=k).values, dtype=np.float64)
-
-    acc = np.zeros(grid.shape)
-    for f in frames():
-        acc += np.where(mask & np.isfinite(f), f, 0.0)
-    mean = np.where(mask, acc / (n - first), np.nan)
-    res = hotspots(mean, mask, grid.dx, grid.dy, band, alpha)
-    data = mask & np.isfinite(res["z"])
-    cls = np.where(res["hot"], 1, np.where(res["cold"], -1, 0)).astype(np.int8)
-    cls[~data] = -128
-    coords = {"y": ds["y"].values, "x": ds["x"].values}
-    dims = ("y", "x")
-    out = xr.Dataset(
-        {
-            "mean": (dims, mean, {"units": "km-2", "long_name": f"time-mean {species} density"}),
-            "gi_star": (dims, res["z"], {"long_name": "Getis-Ord Gi* z-score"}),
-            "p_value": (dims, res["p"], {"long_name": "two-sided normal p-value of Gi*"}),
-            "hot": (dims, res["hot"], {"long_name": "significant hotspot (FDR)"}),
-            "cold": (dims, res["cold"], {"long_name": "significant coldspot (FDR)"}),
-            "hotspot_class": (dims, cls, {
-                "long_name": "hotspot class", "flag_values": np.array([-128, -1, 0, 1], np.int8),
-                "flag_meanings": "no_data cold neither hot"}),
-        },
-        coords=coords,
-        attrs={"species": species, "band_m": band, "alpha": float(alpha),
-               "snapshots": n - first},
-    )
+    mean = np.where(mask, acc / n, np.nan)
+    res = hotspots(mean, mask, grid.dx, grid.dy, band, alpha=alpha)
+    frac = None
     if persistent:
-        frac = persistent_hotspots(frames(), mask, grid.dx, grid.dy, band, alpha)
-        out["persistence"] = (dims, frac, {
-            "long_name": "share of snapshots with a significant hotspot", "units": "1"})
-    return out
+        # frames(...) gives 0 off the mask; the raw snapshots mark no data as NaN, which
+        # persistent_hotspots needs to know where there is no data
+        raw = (f for _, f in frames(ds, species, raw=True))
+        frac = persistent_hotspots(raw, mask, grid.dx, grid.dy, band, alpha=alpha)
+    return HotspotResult(species, band, float(alpha), n, mean, res["z"], res["p"],
+                         res["hot"], res["cold"], frac)

@@ -108,6 +108,17 @@ def fisher_speed(r: float, D: float) -> float:
     return 2.0 * math.sqrt(max(r, 0.0) * D)
 
 
+def predator_growth_at_capacity(inter: Interaction, K: float, m: float) -> float:
+    """Per-capita growth rate of rare predators in prey at density ``K``, 1/yr.
+
+    ``e a K / (1 + a h K) - m`` (Holling type II; ``h = 0`` for Lotka–Volterra;
+    the Beddington–DeAngelis interference term vanishes for rare predators).
+    ``K`` in animals/km², ``m`` in 1/yr.
+    """
+    a, h, e = inter.attack_rate, inter.h, inter.efficiency
+    return e * a * K / (1.0 + a * h * K) - m
+
+
 def predator_speed(inter: Interaction, K: float, m: float, D_P: float) -> float:
     """Minimal speed of predators invading prey at capacity, km/yr.
 
@@ -116,8 +127,7 @@ def predator_speed(inter: Interaction, K: float, m: float, D_P: float) -> float:
     """
     if not math.isfinite(K):
         return math.nan
-    a, h, e = inter.attack_rate, inter.h, inter.efficiency
-    growth = e * a * K / (1.0 + a * h * K) - m
+    growth = predator_growth_at_capacity(inter, K, m)
     return 2.0 * math.sqrt(D_P * growth) if growth > 0 else 0.0
 
 

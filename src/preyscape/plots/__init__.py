@@ -71,14 +71,23 @@ def _axes_labels(ax, grid: Grid) -> None:
 
 def map_figure(grid: Grid, values: np.ndarray, title: str, cmap, *, norm=None,
                vmin: float | None = None, vmax: float | None = None,
-               units: str | None = None, extend: str = "neither"):
-    """Start a map of one raster: no-data grey, axes in km, title, colour bar if ``units``.
+               units: str | None = None, extend: str = "neither",
+               outlines=None, underlay: np.ndarray | None = None):
+    """Start a map of one raster: the one helper every map uses.
+
+    No-data cells are grey, axes in km, a title, a colour bar if ``units``.
+    ``outlines`` (:class:`~preyscape.landscape.placed.Outline`) draws the
+    measures of the run shown, with a legend; ``underlay`` (a habitat layer)
+    is drawn faintly beneath values that are NaN on data cells.
 
     Returns ``(fig, ax, image)``; finish with :func:`finish_map`. ``cmap`` is a
     colour map name or object; ``norm`` or ``vmin``/``vmax`` set its scale.
     """
     fig = _new()
     ax = fig.add_subplot()
+    if underlay is not None:
+        ax.imshow(_shown(grid, underlay), extent=_extent_km(grid), cmap="Greys",
+                  alpha=0.25, interpolation="nearest")
     im = ax.imshow(_shown(grid, values), extent=_extent_km(grid), cmap=_cmap(cmap), norm=norm,
                    vmin=vmin, vmax=vmax, interpolation="nearest")
     ax.set_facecolor(NO_DATA)
@@ -86,6 +95,10 @@ def map_figure(grid: Grid, values: np.ndarray, title: str, cmap, *, norm=None,
     ax.set_title(title, fontsize=10)
     if units is not None:
         fig.colorbar(im, ax=ax, shrink=0.85, label=units, extend=extend)
+    if outlines:
+        handles = draw_outlines(ax, outlines, grid)
+        if handles:
+            ax.legend(handles=handles, loc="lower left", fontsize=7, framealpha=0.8)
     return fig, ax, im
 
 
@@ -100,6 +113,7 @@ def density_map(
     values: np.ndarray,
     title: str,
     path: Path,
+    *,
     cmap: str = "viridis",
     vmax: float | None = None,
     units: str = "animals per km²",
@@ -126,77 +140,65 @@ MEASURE_STYLE = {  # ours: line colour and style per kind of measure
 }
 
 
-def draw_measures(ax, folder: Path, measures: list[dict], grid: Grid) -> list:
+def draw_outlines(ax, outlines, grid: Grid) -> list:
     """Draw measures on a map axis (km): fence lines, corridor and refuge outlines.
 
-    ``measures`` are the records of ``run.json`` (files relative to ``folder``).
-    Returns legend handles.
-    """
-    import json
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        A map axis in km.
+    outlines : sequence of preyscape.landscape.placed.Outline
+        The measures as plain lines (metres), cells and faces.
+    grid : Grid
+        The grid of the map.
 
+    Returns
+    -------
+    list
+        Legend handles, one per measure drawn.
+    """
     from matplotlib.lines import Line2D
 
     handles = []
-    x = grid.x / 1e3
-    y = grid.y / 1e3
-    for m in measures or []:
-        st = MEASURE_STYLE.get(m["kind"], MEASURE_STYLE["fence"])
+    for m in outlines or []:
+        st = MEASURE_STYLE.get(m.kind, MEASURE_STYLE["fence"])
         drawn = False
-        if m["kind"] == "fence" and m.get("geometry_file"):
-            doc = json.loads((folder / m["geometry_file"]).read_text())
-            for f in doc["features"]:
-                for line in _lines_of(f["geometry"]):
-                    xs, ys = zip(*[(p[0] / 1e3, p[1] / 1e3) for p in line], strict=True)
-                    ax.plot(xs, ys, color=st["color"], lw=st["lw"], ls=st["ls"])
-                    drawn = True
-        elif m.get("cells_file"):
-            import rasterio
-
-            with rasterio.open(folder / m["cells_file"]) as src:
-                cells = src.read(1) == 1
+        if m.kind == "fence" and m.lines:
+            for line in m.lines:
+                ax.plot(line[:, 0] / 1e3, line[:, 1] / 1e3, color=st["color"], lw=st["lw"],
+                        ls=st["ls"])
+            drawn = True
+        elif m.cells is not None:
             k = thin(grid)
-            ax.contour(x[::k], y[::k], cells[::k, ::k].astype(float), levels=[0.5],
+            ax.contour(grid.x[::k] / 1e3, grid.y[::k] / 1e3,
+                       np.asarray(m.cells)[::k, ::k].astype(float), levels=[0.5],
                        colors=[st["color"]], linewidths=st["lw"], linestyles=st["ls"])
             drawn = True
-        elif m.get("faces_file"):  # a fence from a raster: the outline of its cells
-            with np.load(folder / m["faces_file"]) as z:
-                fx, fy = z["between_columns"], z["between_rows"]
-            xe = (grid.x0 + np.arange(grid.nx + 1) * grid.dx) / 1e3
-            ye = (grid.y0 - np.arange(grid.ny + 1) * grid.dy) / 1e3
-            for i, k in zip(*np.nonzero(fx), strict=True):
-                ax.plot([xe[k], xe[k]], [ye[i], ye[i + 1]], color=st["color"], lw=st["lw"])
-            for i, j in zip(*np.nonzero(fy), strict=True):
-                ax.plot([xe[j], xe[j + 1]], [ye[i], ye[i]], color=st["color"], lw=st["lw"])
+        elif m.faces is not None:  # a fence from a raster: the outline of its cells
+            _draw_faces(ax, grid, m.faces, st)
             drawn = True
         if drawn:
             handles.append(Line2D([], [], color=st["color"], lw=st["lw"], ls=st["ls"],
-                                  label=f"{m['kind']}: {m['name']}"))
+                                  label=f"{m.kind}: {m.name}"))
     return handles
 
 
-def _lines_of(geom: dict) -> list:
-    t = geom["type"]
-    c = geom.get("coordinates")
-    if t == "LineString":
-        return [c]
-    if t == "MultiLineString":
-        return list(c)
-    if t == "Polygon":
-        return list(c)
-    if t == "MultiPolygon":
-        return [ring for poly in c for ring in poly]
-    if t == "GeometryCollection":
-        return [ln for g in geom["geometries"] for ln in _lines_of(g)]
-    return []
+def _draw_faces(ax, grid: Grid, faces, st: dict) -> None:
+    fx, fy = faces
+    xe = (grid.x0 + np.arange(grid.nx + 1) * grid.dx) / 1e3
+    ye = (grid.y0 - np.arange(grid.ny + 1) * grid.dy) / 1e3
+    for i, k in zip(*np.nonzero(fx), strict=True):
+        ax.plot([xe[k], xe[k]], [ye[i], ye[i + 1]], color=st["color"], lw=st["lw"])
+    for i, j in zip(*np.nonzero(fy), strict=True):
+        ax.plot([xe[j], xe[j + 1]], [ye[i], ye[i]], color=st["color"], lw=st["lw"])
 
 
 def habitat_map(grid: Grid, habitat: np.ndarray, classes: dict[int, str] | None,
-                title: str, path: Path, folder: Path | None = None,
-                measures: list[dict] | None = None) -> Path:
+                title: str, path: Path, *, outlines=None) -> Path:
     """Draw the habitat layer: class codes with a legend, or suitability 0–1.
 
-    With ``measures`` (records of ``run.json``, files relative to ``folder``)
-    the fences, corridors and refuges are drawn on top.
+    With ``outlines`` (:class:`~preyscape.landscape.placed.Outline`) the
+    fences, corridors and refuges are drawn on top.
     """
     fig = _new()
     ax = fig.add_subplot()
@@ -214,16 +216,16 @@ def habitat_map(grid: Grid, habitat: np.ndarray, classes: dict[int, str] | None,
         ax.imshow(idx, extent=_extent_km(grid), cmap=cm, norm=norm, interpolation="nearest")
         handles = [Patch(color=colours[k], label=f"{c} {classes[c]}") for k, c in enumerate(codes)]
         handles.append(Patch(color=NO_DATA, label="no data"))
-        if measures:
-            handles += draw_measures(ax, folder, measures, grid)
+        if outlines:
+            handles += draw_outlines(ax, outlines, grid)
         ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1), fontsize=8,
                   frameon=False)
     else:
         im = ax.imshow(data, extent=_extent_km(grid), cmap=_cmap("cividis"), vmin=0, vmax=1,
                        interpolation="nearest")
         fig.colorbar(im, ax=ax, shrink=0.85, label="suitability (0–1)")
-        if measures:
-            hs = draw_measures(ax, folder, measures, grid)
+        if outlines:
+            hs = draw_outlines(ax, outlines, grid)
             if hs:
                 ax.legend(handles=hs, loc="lower left", fontsize=7)
     ax.set_facecolor(NO_DATA)
@@ -273,50 +275,3 @@ def snapshot_panels(grid: Grid, times: np.ndarray, frames: list[np.ndarray], spe
     fig.suptitle(f"{species} ({name}) density, animals per km²; axes in km", fontsize=9)
     fig.colorbar(im, ax=fig.axes, shrink=0.9, pad=0.01)
     return _save(fig, path)
-
-
-def draw_run(folder: Path, sc, grid: Grid, habitat: np.ndarray, means: dict,
-             finals: dict, measures: list[dict] | None = None) -> list[Path]:
-    """Draw the standard maps of a finished run into ``folder/maps``.
-
-    Parameters
-    ----------
-    folder : pathlib.Path
-        The (temporary) run folder holding ``results.nc``.
-    sc : Scenario
-        The scenario (names, class table, run length).
-    grid : Grid
-        The run grid.
-    habitat : numpy.ndarray
-        Habitat classes or suitability on the grid.
-    means, finals : dict
-        Time-mean and final densities per species, animals/km².
-    measures : list of dict, optional
-        Measure records (``run.json``), drawn on the habitat map.
-    """
-    import xarray as xr
-
-    maps = folder / "maps"
-    names = {"prey": sc.prey.name, "predator": sc.predator.name}
-    classes = ({c.code: c.name or str(c.code) for c in sc.landscape.classes}
-               if sc.landscape.values == "classes" else None)
-    title = f"Habitat: {sc.title or sc.path.stem}"
-    if getattr(sc, "variant", "baseline") != "baseline":
-        title += f" [{sc.variant}]"
-    out = [habitat_map(grid, habitat, classes, title, maps / "habitat.png", folder, measures)]
-    for sp in ("prey", "predator"):
-        nm = names[sp] or sp
-        out.append(density_map(grid, means[sp], f"Time-mean {sp} ({nm})",
-                               maps / f"{sp}_mean.png", SPECIES_CMAP[sp]))
-        out.append(density_map(grid, finals[sp], f"Final {sp} ({nm}), t = {sc.run.years:g} yr",
-                               maps / f"{sp}_final.png", SPECIES_CMAP[sp]))
-    with xr.open_dataset(folder / "results.nc", decode_times=False) as ds:
-        t = ds["time"].values
-        out.append(totals_plot(t, ds["prey_total"].values, ds["predator_total"].values, names,
-                               maps / "totals.png"))
-        pick = np.unique(np.linspace(0, len(t) - 1, 5).round().astype(int))
-        for sp in ("prey", "predator"):
-            frames = [ds[sp].isel(time=int(k)).values for k in pick]
-            out.append(snapshot_panels(grid, t[pick], frames, sp, names[sp] or sp,
-                                       maps / f"{sp}_snapshots.png"))
-    return out

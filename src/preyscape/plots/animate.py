@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
 
 import numpy as np
@@ -127,21 +127,30 @@ def _palette(cmaps: Sequence[str]) -> list[int]:
 
 
 def animate_run(
-    results_nc: Path,
+    grid,
+    times: Sequence[float],
+    frame_of: Callable[[str, int], np.ndarray],
     path: Path,
+    *,
     fps: int = 6,
     max_frames: int = 120,
     species: Sequence[str] = ("prey", "predator"),
     names: dict[str, str] | None = None,
     title: str = "",
 ) -> Path:
-    """Write an animated GIF of the densities in a ``results.nc``.
+    """Write an animated GIF of the densities of a run, one frame per snapshot shown.
 
     Parameters
     ----------
-    results_nc : pathlib.Path
-        A results file written by :class:`preyscape.store.ResultWriter`
-        (densities in animals per km², time in years).
+    grid : Grid
+        The run grid (metres, data mask).
+    times : sequence of float
+        Snapshot times, years.
+    frame_of : callable
+        ``frame_of(species, index)`` returns the density of ``species`` at
+        snapshot ``index`` (animals per km², shape of the grid); called once
+        per species and frame in each of two passes, so only one snapshot is
+        in memory at a time.
     path : pathlib.Path
         The GIF to write (replaced if it exists; written under a temporary
         name, then renamed).
@@ -151,7 +160,7 @@ def animate_run(
         At most this many frames; longer runs show snapshots spread evenly
         over the run, always including the first and the last.
     species : sequence of str, optional
-        Density variables to show side by side.
+        Densities to show side by side.
     names : dict, optional
         Common names per species for the panel titles, e.g.
         ``{"prey": "field vole"}``.
@@ -166,104 +175,89 @@ def animate_run(
     Raises
     ------
     InputError
-        If the file cannot be read, a species is not in it, or it holds no
-        snapshot.
+        If there is no snapshot.
     """
-    import xarray as xr
     from PIL import Image
-
-    from preyscape.store import grid_of
 
     if fps < 1 or max_frames < 1:
         raise ValueError("fps and max_frames must be at least 1")
-    results_nc, path = Path(results_nc), Path(path)
+    path = Path(path)
     names = names or {}
     species = list(species)
     if not species:
         raise ValueError("give at least one species to animate")
+    times = np.asarray(times, dtype=float)
+    if times.size == 0:
+        raise InputError("the run holds no snapshot")
+    pick = _frame_indices(times.size, max_frames)
+    k = _stride(grid.ny, grid.nx)
+    shown_mask = grid.mask[::k, ::k]
+
+    def frame(sp: str, i: int) -> np.ndarray:
+        # one snapshot in memory at a time, thinned to what the frame can show
+        v = np.asarray(frame_of(sp, int(i)), dtype=np.float32)[::k, ::k]
+        return np.where(shown_mask, v, np.nan)
+
+    # pass 1: one colour scale per species for the whole animation
+    vmax = {}
+    above = {}
+    for sp in species:
+        q = _StreamingQuantile()
+        for i in pick:
+            q.add(frame(sp, i))
+        top = q.quantile(VMAX_PERCENTILE)
+        vmax[sp] = top if top > 0 else (q.max if q.max > 0 else 1.0)
+        above[sp] = q.max > vmax[sp]
+
+    # the figure is built once; frames only swap image data and the stamp
+    n = len(species)
+    fig = _new(figsize=(3.7 * n + 0.5, 3.75))
+    extent = _extent_km(grid)
+    images = []
+    for j, sp in enumerate(species):
+        ax = fig.add_subplot(1, n, j + 1)
+        cm = _cmap(SPECIES_CMAP.get(sp, "viridis"))
+        im = ax.imshow(np.ma.masked_invalid(frame(sp, pick[0])), extent=extent, cmap=cm,
+                       vmin=0.0, vmax=vmax[sp], interpolation="nearest")
+        ax.set_facecolor(NO_DATA)
+        _axes_labels(ax, grid)
+        ax.tick_params(labelsize=7)
+        ax.xaxis.label.set_size(8)
+        ax.yaxis.label.set_size(8)
+        nm = names.get(sp)
+        ax.set_title(f"{sp} ({nm})" if nm and nm != sp else sp, fontsize=9)
+        cb = fig.colorbar(im, ax=ax, shrink=0.85, extend="max" if above[sp] else "neither")
+        cb.set_label(UNITS, fontsize=8)
+        cb.ax.tick_params(labelsize=7)
+        images.append(im)
+    fig.text(0.01, 0.985, title or "Population density", ha="left", va="top",
+             fontsize=10, weight="bold")
+    fmt = _stamp_format(times[pick])
+    stamp = fig.text(0.99, 0.985, fmt.format(times[pick[0]]), ha="right", va="top",
+                     fontsize=10, family="monospace")
+    fig.tight_layout(rect=(0, 0, 1, 0.95))  # once: later frames keep this layout
+
+    palette = Image.new("P", (1, 1))
+    palette.putpalette(_palette([SPECIES_CMAP.get(sp, "viridis") for sp in species]))
+
+    def frames():
+        for i in pick:
+            for sp, im in zip(species, images, strict=True):
+                im.set_data(np.ma.masked_invalid(frame(sp, i)))
+            stamp.set_text(fmt.format(times[i]))
+            fig.canvas.draw()
+            rgb = Image.frombuffer("RGBA", fig.canvas.get_width_height(),
+                                   fig.canvas.buffer_rgba()).convert("RGB")
+            yield rgb.quantize(palette=palette, dither=Image.Dither.NONE)
+
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name("." + path.name + ".tmp.gif")
     try:
-        ds = xr.open_dataset(results_nc, decode_times=False)
-    except (OSError, ValueError) as err:
-        raise InputError(f"cannot read the results file ({err})", str(results_nc)) from err
-    with ds:
-        have = sorted(str(v) for v in ds.data_vars if ds[v].dims == ("time", "y", "x"))
-        missing = [sp for sp in species if sp not in have]
-        if missing:
-            raise InputError(f"no density variable {', '.join(missing)}; the file has "
-                             f"{', '.join(have) or 'none'}", str(results_nc))
-        times = np.asarray(ds["time"].values, dtype=float)
-        if times.size == 0:
-            raise InputError("the results file holds no snapshot", str(results_nc))
-        grid = grid_of(ds)
-        pick = _frame_indices(times.size, max_frames)
-        k = _stride(grid.ny, grid.nx)
-        shown_mask = grid.mask[::k, ::k]
-
-        def frame(sp: str, i: int) -> np.ndarray:
-            # one snapshot in memory at a time, thinned to what the frame can show
-            v = np.asarray(ds[sp].isel(time=int(i)).values, dtype=np.float32)[::k, ::k]
-            return np.where(shown_mask, v, np.nan)
-
-        # pass 1: one colour scale per species for the whole animation
-        vmax = {}
-        above = {}
-        for sp in species:
-            q = _StreamingQuantile()
-            for i in pick:
-                q.add(frame(sp, i))
-            top = q.quantile(VMAX_PERCENTILE)
-            vmax[sp] = top if top > 0 else (q.max if q.max > 0 else 1.0)
-            above[sp] = q.max > vmax[sp]
-
-        # the figure is built once; frames only swap image data and the stamp
-        n = len(species)
-        fig = _new(figsize=(3.7 * n + 0.5, 3.75))
-        extent = _extent_km(grid)
-        images = []
-        for j, sp in enumerate(species):
-            ax = fig.add_subplot(1, n, j + 1)
-            cm = _cmap(SPECIES_CMAP.get(sp, "viridis"))
-            im = ax.imshow(np.ma.masked_invalid(frame(sp, pick[0])), extent=extent, cmap=cm,
-                           vmin=0.0, vmax=vmax[sp], interpolation="nearest")
-            ax.set_facecolor(NO_DATA)
-            _axes_labels(ax, grid)
-            ax.tick_params(labelsize=7)
-            ax.xaxis.label.set_size(8)
-            ax.yaxis.label.set_size(8)
-            nm = names.get(sp)
-            ax.set_title(f"{sp} ({nm})" if nm and nm != sp else sp, fontsize=9)
-            cb = fig.colorbar(im, ax=ax, shrink=0.85, extend="max" if above[sp] else "neither")
-            cb.set_label(UNITS, fontsize=8)
-            cb.ax.tick_params(labelsize=7)
-            images.append(im)
-        fig.text(0.01, 0.985, title or "Population density", ha="left", va="top",
-                 fontsize=10, weight="bold")
-        fmt = _stamp_format(times[pick])
-        stamp = fig.text(0.99, 0.985, fmt.format(times[pick[0]]), ha="right", va="top",
-                         fontsize=10, family="monospace")
-        fig.tight_layout(rect=(0, 0, 1, 0.95))  # once: later frames keep this layout
-
-        palette = Image.new("P", (1, 1))
-        palette.putpalette(_palette([SPECIES_CMAP.get(sp, "viridis") for sp in species]))
-
-        def frames():
-            for i in pick:
-                for sp, im in zip(species, images, strict=True):
-                    im.set_data(np.ma.masked_invalid(frame(sp, i)))
-                stamp.set_text(fmt.format(times[i]))
-                fig.canvas.draw()
-                rgb = Image.frombuffer("RGBA", fig.canvas.get_width_height(),
-                                       fig.canvas.buffer_rgba()).convert("RGB")
-                yield rgb.quantize(palette=palette, dither=Image.Dither.NONE)
-
-        path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_name("." + path.name + ".tmp.gif")
-        try:
-            it = frames()
-            first = next(it)
-            first.save(tmp, format="GIF", save_all=True, append_images=it,
-                       duration=max(20, round(1000 / fps)), loop=0, optimize=False)
-            os.replace(tmp, path)
-        finally:
-            tmp.unlink(missing_ok=True)
+        it = frames()
+        first = next(it)
+        first.save(tmp, format="GIF", save_all=True, append_images=it,
+                   duration=max(20, round(1000 / fps)), loop=0, optimize=False)
+        os.replace(tmp, path)
+    finally:
+        tmp.unlink(missing_ok=True)
     return path

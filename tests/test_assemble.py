@@ -1,4 +1,4 @@
-"""Tests for preyscape.pipeline: the initial state, derived numbers, the step."""
+"""Tests for preyscape.assemble: the initial state, derived numbers, the step."""
 
 from __future__ import annotations
 
@@ -23,8 +23,9 @@ from conftest import (
     habitat_array,
 )
 
+from preyscape.assemble import derived, prepare
 from preyscape.errors import InputError
-from preyscape.pipeline import derived, prepare, simulate
+from preyscape.runfolder import simulate
 from preyscape.scenario import load_scenario
 
 

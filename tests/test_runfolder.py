@@ -15,10 +15,11 @@ import numpy as np
 import pytest
 from conftest import BASE, DX, RELEASE_COL, RELEASE_ROW, SHAPE, X0, Y0, apply_overrides, to_toml
 
+from preyscape.assemble import epoch_state, prepare
 from preyscape.errors import InputError
 from preyscape.model.movement import build_movement
 from preyscape.model.reactions import Interaction
-from preyscape.pipeline import assemble, prepare, simulate, simulate_variants
+from preyscape.runfolder import simulate, simulate_variants
 from preyscape.scenario import load_scenario
 from preyscape.solve.run import integrate_epochs
 from preyscape.solve.stepper import Stepper, StepStats
@@ -236,7 +237,7 @@ def test_overlapping_fences_act_in_series(write_scenario, tmp_path):
          "permeability": {"prey": 0.4, "predator": 1.0}}]}
     sc = load_scenario(write_scenario(over))
     setup = prepare(sc)
-    plain = assemble(setup, ())[1]
+    plain = epoch_state(setup, ())[1]
     both = setup.prey_movement
     ratio = both.cx[:, FENCE_COL] / plain.cx[:, FENCE_COL]
     assert np.allclose(ratio[plain.cx[:, FENCE_COL] > 0], 0.2)

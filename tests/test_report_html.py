@@ -23,7 +23,7 @@ from matplotlib.figure import Figure
 from PIL import Image
 
 from preyscape.errors import InputError
-from preyscape.report import CAUTIONS, CSP, Report
+from preyscape.report.html import CAUTIONS, CSP, Report
 
 SCRIPT = "<script>alert(1)</script>"
 IMG = '"><img src=x onerror=alert(1)>'

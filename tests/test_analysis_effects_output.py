@@ -1,4 +1,4 @@
-"""Effects of measures written from run folders: ``preyscape.products.effects``.
+"""Effects of measures written from run folders: ``preyscape.analysis.effects_output``.
 
 The runs use the tiny test landscape of ``conftest.py`` (24 x 30 cells of 100 m,
 open ground west of column 18, woodland east of it): a baseline with a prey
@@ -29,11 +29,14 @@ from conftest import (
     utm_grid,
     write_habitat,
 )
-from test_pipeline_measures import box, geojson
+from test_runfolder import box, geojson
 
-from preyscape.errors import InputError
-from preyscape.pipeline import simulate, simulate_variants
-from preyscape.products.effects import transect_faces, transect_flux, write_effects
+from preyscape.analysis.effects import transect_faces, transect_flux
+from preyscape.analysis.effects_output import write_effects
+from preyscape.analysis.results import RunResults
+from preyscape.analysis.settings import AnalysisSettings
+from preyscape.errors import FileProblem, InputError
+from preyscape.runfolder import simulate, simulate_variants
 from preyscape.store import grid_of, load_operators
 
 REFUGE_BOX = (3, 9, 2, 8)  # rows 3..8, cols 2..7: 36 cells, all with data
@@ -60,7 +63,7 @@ def folder_state(folder: Path) -> dict[str, bytes]:
 # transect_faces: the sign convention
 # ---------------------------------------------------------------------------
 def test_line_drawn_northwards_counts_west_to_east_flow_as_positive():
-    # design requirement (products/effects.py): the positive direction is from the left of
+    # design requirement (analysis/effects.py): the positive direction is from the left of
     # the line to its right, walking from its first point to its last
     grid = utm_grid()
     fx, fy, sx, sy = transect_faces(NORTHWARDS, grid)
@@ -127,8 +130,8 @@ def test_flux_across_a_diagonal_line_is_the_change_on_its_right(tmp_path):
     b = (X0 + 19.7 * DX, Y0 + 200.0)
     with xr.open_dataset(run / "results.nc", decode_times=False) as ds:
         grid = grid_of(ds)
-        times, flow = transect_flux(run, ds, [a, b], "prey")
-        back_times, back = transect_flux(run, ds, [b, a], "prey")
+        times, flow = transect_flux(ds, ops, [a, b], "prey")
+        back_times, back = transect_flux(ds, ops, [b, a], "prey")
         u = np.nan_to_num(ds["prey"].values.astype(np.float64))
     fx, fy, _, _ = transect_faces([a, b], grid)
     assert fx.any() and fy.any()
@@ -149,8 +152,8 @@ def test_flux_across_a_diagonal_line_is_the_change_on_its_right(tmp_path):
 def test_flux_of_a_run_without_operators_is_refused(tmp_path):
     # runs made before operators were saved cannot give fluxes: a clear message, not a crash
     (tmp_path / "operators").mkdir()
-    with pytest.raises(InputError, match="operators"):
-        transect_flux(tmp_path, None, NORTHWARDS, "prey")
+    with pytest.raises(FileProblem, match="operators"):
+        RunResults(tmp_path, {}).operators()
 
 
 # ---------------------------------------------------------------------------
@@ -181,9 +184,18 @@ def runs(tmp_path_factory) -> dict:
     base, without = made["baseline"], made["no-refuge"]
     with_without = write_effects(base, folder / "effects", without=without)
     lines = [{"name": "north", "points": NORTHWARDS}, {"name": "south", "points": SOUTHWARDS}]
-    alone = write_effects(base, folder / "effects-alone", transects=lines)
-    return {"folder": folder, "base": base, "without": without, "rec": with_without,
-            "out": folder / "effects", "alone": alone, "out_alone": folder / "effects-alone"}
+    alone = write_effects(base, folder / "effects-alone",
+                          settings=AnalysisSettings(transects=lines))
+    assert with_without.without == without and alone.without is None
+    assert {f.name for f in with_without.files} <= {p.name for p in with_without.folder.iterdir()}
+
+    def record(out) -> dict:
+        return {**json.loads((out.folder / "effects.json").read_text()),
+                "folder": str(out.folder)}
+
+    return {"folder": folder, "base": base, "without": without, "rec": record(with_without),
+            "out": folder / "effects", "alone": record(alone),
+            "out_alone": folder / "effects-alone"}
 
 
 def direct_region_stats(results: Path, cells: np.ndarray, species: str) -> dict[str, float]:

@@ -36,28 +36,14 @@ from collections.abc import Iterable, Sequence
 from datetime import UTC, datetime
 from pathlib import Path
 
+from preyscape.cautions import CAUTIONS
 from preyscape.errors import InputError
+from preyscape.names import slug
 
 __all__ = ["CAUTIONS", "CSP", "Report", "Section"]
 
 CSP = "default-src 'none'; img-src data:; style-src 'unsafe-inline'"
 """Content-Security-Policy of every report: data: images and inline styles only."""
-
-CAUTIONS: list[str] = [
-    "A model is not a field survey. These maps show what the model predicts from the "
-    "habitat raster and the parameters given; they are not counts of animals. Check "
-    "important conclusions against observations on the ground.",
-    "Fences and corridors affect more than the two species modelled here: other wildlife "
-    "that is not in the model, people's access to the land, grazing, farming and other "
-    "livelihoods. Weigh those effects before proposing any measure.",
-    "Follow local regulations and defer to the responsible wildlife authority and to "
-    "licensed professionals before acting on these results: releasing, moving, "
-    "controlling or fencing animals is regulated in most places.",
-    "Results from invented demonstration data (such as the bundled demo landscape) show "
-    "how the tool works and must not be used for conclusions about any real place or "
-    "population.",
-]
-"""The standard cautions every report shows before its content."""
 
 _ANCHOR = re.compile(r"[A-Za-z][A-Za-z0-9_-]{0,63}")
 _RESERVED = frozenset({"top", "contents", "cautions", "main", "content"})
@@ -169,9 +155,9 @@ def _image_info(data: bytes) -> tuple[str, int, int] | None:
     return None
 
 
-def _slug(text: str) -> str:
-    s = re.sub(r"[^a-z0-9]+", "-", text.lower()).strip("-")[:48].strip("-")
-    return s if s and s[0].isalpha() else f"s-{s}".rstrip("-")
+def _anchor(text: str) -> str:
+    s = slug(text, max_length=48, empty="s")
+    return s if s[0].isalpha() else f"s-{s}"
 
 
 class Section:
@@ -387,7 +373,7 @@ class Report:
             if anchor in taken:
                 raise ValueError(f"section anchor {anchor!r} is already used")
         else:
-            base = _slug(str(title))
+            base = _anchor(str(title))
             anchor, k = base, 2
             while anchor in taken:
                 anchor, k = f"{base}-{k}", k + 1

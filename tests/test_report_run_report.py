@@ -1,4 +1,4 @@
-"""The report of a run: ``preyscape.products.run_report``.
+"""The report of a run: ``preyscape.report.run_report``.
 
 One baseline with a prey refuge and a variant without it are run once for the
 module on the tiny test landscape of ``conftest.py`` (half a year), and one
@@ -19,13 +19,14 @@ import pytest
 import xarray as xr
 from browser import load_in_browser
 from conftest import BASE, DX, SHAPE, X0, Y0, apply_overrides, to_toml, write_habitat
-from test_pipeline_measures import box, geojson
+from test_runfolder import box, geojson
 
-from preyscape.analysis.effects import refuge_effect
+from preyscape.analysis.effects_output import find_without_refuge
+from preyscape.analysis.refuges import refuge_effect
 from preyscape.errors import InputError
-from preyscape.pipeline import simulate_variants
-from preyscape.products.run_report import find_without_refuge, write_report
-from preyscape.report import CAUTIONS
+from preyscape.report.html import CAUTIONS
+from preyscape.report.run_report import write_report
+from preyscape.runfolder import simulate_variants
 
 TITLE = "Moor <script>alert(1)</script> test"
 PREY = 'Fen & "marsh" vole'
@@ -91,7 +92,8 @@ def decay_length_text(made: dict) -> str:
         cells = src.read(1) == 1
     with xr.open_dataset(base / "results.nc", decode_times=False) as ds, \
             xr.open_dataset(without / "results.nc", decode_times=False) as dw:
-        ell = refuge_effect(ds, cells, dw, "prey", 1.0)["decay_length_km"]
+        ell = refuge_effect(ds, cells, ds_without=dw, species="prey",
+                            presence=1.0).decay_length_km
     assert math.isfinite(ell) and ell > 0
     return f"{ell:.4g} km"
 
@@ -145,7 +147,7 @@ def test_report_holds_cautions_and_sections(made):
     for c in CAUTIONS:
         assert html.escape(c) in doc
     for title in ("Scenario and run", "Maps", "Hotspots", "Travelling waves", "Refuges",
-                  "Change: baseline (baseline) → no-refuge (no-refuge)", "Methods and sources"):
+                  "Change: baseline → no-refuge", "Methods and sources"):
         assert f">{html.escape(title)}</h2>" in doc, title
 
 
@@ -196,7 +198,7 @@ def test_browser_shows_key_numbers_and_user_strings_as_text(seen, made):
     assert decay_length_text(made) in text
     assert predator_speed_text(made) in text
     for title in ("Hotspots", "Travelling waves", "Refuges",
-                  "Change: baseline (baseline) → no-refuge (no-refuge)"):
+                  "Change: baseline → no-refuge"):
         assert title in text
     assert CAUTIONS[0] in text
     g = made["info"]["grid"]

@@ -1,0 +1,526 @@
+"""From a scenario to the plain values a run needs: grid, fields, movement, epochs.
+
+:func:`prepare` reads the habitat raster and the measures of a validated
+:class:`~preyscape.scenario.Scenario` and returns an immutable
+:class:`Setup`: the grid, per-cell fields, movement operators, initial
+densities, the step, the measures placed on the grid and the epochs (spans
+of time between measure switches). :func:`derived` gives the numbers
+``check`` prints. Nothing here writes files; the run folder is written by
+:mod:`preyscape.runfolder`.
+
+Examples
+--------
+``scenario_path`` is a scenario file (such as ``landscapes/veldrun_moor.toml``):
+
+>>> from preyscape.scenario import load_scenario
+>>> setup = prepare(load_scenario(scenario_path))
+>>> setup.N0.shape == setup.grid.shape and setup.dt > 0
+True
+>>> derived(setup)["prey_front_speed"] > 0
+True
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from preyscape.errors import InputError
+from preyscape.landscape.grid import Grid
+from preyscape.landscape.placed import PlacedMeasure, combine
+from preyscape.model import theory
+from preyscape.model.fields import (
+    Fields,
+    build_fields,
+    multipliers_from_classes,
+    multipliers_from_suitability,
+)
+from preyscape.model.movement import Movement, build_movement
+from preyscape.model.reactions import Interaction
+from preyscape.scenario import MeasureSpec, Scenario
+from preyscape.solve.stepper import Stepper, StepStats, auto_step
+
+__all__ = ["Epoch", "Setup", "check_variant_measures", "derived", "epoch_state",
+           "interaction_of", "measure_epochs", "place_measures", "place_targets", "prepare"]
+
+Epoch = tuple[float, float, tuple[str, ...]]
+"""``(t0, t1, names of the measures acting in [t0, t1))``, years."""
+
+
+@dataclass(frozen=True, eq=False)
+class Setup:
+    """Everything a run needs, as plain values (immutable; build by keyword).
+
+    Attributes
+    ----------
+    scenario : Scenario
+        The validated settings (for the run record and :func:`derived`).
+    grid : Grid
+        The run grid (metres).
+    habitat : numpy.ndarray
+        Class codes or suitability on the grid.
+    multipliers : dict
+        Habitat multiplier maps before measures (float32), to build each epoch.
+    fields : Fields
+        Per-cell parameters of epoch 0.
+    prey_movement, predator_movement : Movement
+        Movement operators of epoch 0 (1/yr).
+    refuge : numpy.ndarray or None
+        Share of prey shielded from predation per cell (0–1) in epoch 0.
+    interaction : Interaction
+        Local interaction.
+    N0, P0 : numpy.ndarray
+        Initial densities, animals/km².
+    dt : float
+        Step, years.
+    measures : tuple of PlacedMeasure
+        The measures of this variant on the grid.
+    epochs : tuple of Epoch
+        Spans between measure switches, consecutive from 0 to the run length.
+    """
+
+    scenario: Scenario
+    grid: Grid
+    habitat: np.ndarray
+    multipliers: dict
+    fields: Fields
+    prey_movement: Movement
+    predator_movement: Movement
+    refuge: np.ndarray | None
+    interaction: Interaction
+    N0: np.ndarray
+    P0: np.ndarray
+    dt: float
+    measures: tuple[PlacedMeasure, ...] = ()
+    epochs: tuple[Epoch, ...] = ()
+
+    @property
+    def layers(self) -> tuple[PlacedMeasure, ...]:
+        """The placed measures (another name for :attr:`measures`)."""
+        return self.measures
+
+    def without_build_arrays(self) -> Setup:
+        """A copy without the arrays only needed to build a run (memory during the run).
+
+        Keeps what steppers use (growth, inverse capacity, mortality, the
+        operators of epoch 0, the multipliers when there are later epochs);
+        :func:`derived` needs a fresh :func:`prepare`.
+        """
+        f = self.fields
+        empty = np.zeros((0, 0), dtype=np.float32)
+        return replace(self, fields=Fields(empty, f.r, f.inv_K, f.m, empty, empty),
+                       N0=np.zeros((0, 0)), P0=np.zeros((0, 0)),
+                       multipliers=self.multipliers if len(self.epochs) > 1 else {})
+
+    def epoch_stepper(self, k: int, stats: StepStats | None = None) -> Stepper:
+        """A fresh :class:`Stepper` for epoch ``k`` (measures switched at its start)."""
+        stats = stats if stats is not None else StepStats()
+        if k == 0:
+            f, mv_n, mv_p, refuge = (self.fields, self.prey_movement, self.predator_movement,
+                                     self.refuge)
+        else:
+            f, mv_n, mv_p, refuge = epoch_state(self, self.epochs[k][2])
+        return Stepper(self.grid.mask, mv_n, mv_p, f.r, f.inv_K, f.m, self.interaction,
+                       self.dt, refuge=refuge, scheme=self.scenario.run.scheme, stats=stats)
+
+    def stepper(self, stats: StepStats | None = None) -> Stepper:
+        """The :class:`Stepper` of the start of the run (epoch 0)."""
+        return self.epoch_stepper(0, stats)
+
+
+def _source(sc: Scenario, key: str) -> str:
+    return f"{sc.path}: {key}"
+
+
+def interaction_of(sc: Scenario) -> Interaction:
+    """The :class:`Interaction` a scenario describes."""
+    i = sc.interaction
+    return Interaction(i.form, i.attack_rate, i.handling_time, i.efficiency, i.interference)
+
+
+def _multipliers(sc: Scenario, grid: Grid, habitat: np.ndarray) -> tuple[dict, np.ndarray]:
+    """Habitat multiplier maps (float32) and the habitat layer kept for output."""
+    ls = sc.landscape
+    if ls.values == "classes":
+        table = {c.code: c.model_dump() for c in ls.classes}
+        try:
+            mult = multipliers_from_classes(habitat, grid.mask, table)
+        except KeyError as exc:
+            code = exc.args[0]
+            n = int((habitat[grid.mask] == code).sum())
+            raise InputError(
+                f"habitat code {code} occurs in {n} cells of '{ls.habitat}' but has no row "
+                f"in the class table; add a [[landscape.classes]] entry with code = {code} "
+                f"(codes in the table: {sorted(table)})",
+                _source(sc, "landscape.classes"),
+            ) from None
+    else:
+        mult = multipliers_from_suitability(habitat, grid.mask)
+        habitat = habitat.astype(np.float32)  # kept for output only
+    return {k: np.asarray(v, dtype=np.float32) for k, v in mult.items()}, habitat
+
+
+def prepare(sc: Scenario) -> Setup:
+    """Load the landscape and build fields, operators and the initial state.
+
+    Parameters
+    ----------
+    sc : Scenario
+        A validated scenario (:func:`preyscape.scenario.load_scenario`).
+
+    Returns
+    -------
+    Setup
+
+    Raises
+    ------
+    InputError
+        For unreadable rasters, habitat codes without a table row, release
+        points outside the landscape, or invalid initial densities.
+    """
+    from preyscape.landscape.io import read_habitat
+
+    ls = sc.landscape
+    grid, habitat = read_habitat(
+        sc.resolve(ls.habitat), ls.values, ls.cell_size,
+        source=_source(sc, f"landscape.habitat ({ls.habitat})"))
+    mult, habitat = _multipliers(sc, grid, habitat)
+    measures = place_measures(sc, grid)
+    epochs = measure_epochs(sc, measures)
+    inter = interaction_of(sc)
+    setup = Setup(scenario=sc, grid=grid, habitat=habitat, multipliers=mult, fields=None,
+                  prey_movement=None, predator_movement=None, refuge=None, interaction=inter,
+                  N0=np.zeros((0, 0)), P0=np.zeros((0, 0)), dt=0.0, measures=measures,
+                  epochs=epochs)
+    fields, mv_n, mv_p, refuge = epoch_state(setup, epochs[0][2])
+    N0, P0 = _initial_state(sc, grid, fields)
+    dt = _step(sc, setup, fields, inter, P0)
+    return replace(setup, fields=fields, prey_movement=mv_n, predator_movement=mv_p,
+                   refuge=refuge, N0=N0, P0=P0, dt=dt)
+
+
+def _initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray, np.ndarray]:
+    """Initial prey and predator densities, animals/km² (float64, C order, 0 off data)."""
+    from preyscape.landscape.io import read_layer_onto
+
+    st = sc.start
+    mask = grid.mask
+    if st.prey == "capacity":
+        N0 = fields.K.astype(float)
+    elif st.prey == "uniform":
+        N0 = np.where(mask, float(st.prey_density), 0.0)
+    else:
+        layer = read_layer_onto(
+            sc.resolve(st.prey_raster), grid, "average",
+            source=_source(sc, f"start.prey_raster ({st.prey_raster})"),
+        )
+        layer = np.where(mask, np.nan_to_num(layer, nan=0.0), 0.0)
+        if np.any(layer < 0):
+            r, c = np.argwhere(layer < 0)[0]
+            raise InputError(
+                f"negative prey density {layer[r, c]:g} at row {r}, col {c}; densities "
+                "must be ≥ 0 animals/km²", _source(sc, "start.prey_raster"),
+            )
+        N0 = layer
+    P0 = np.where(mask, st.predator_density, 0.0)
+    for k, rel in enumerate(st.releases):
+        if not grid.contains(rel.x, rel.y):
+            left, bottom, right, top = grid.bounds
+            raise InputError(
+                f"release point ({rel.x:g}, {rel.y:g}) m lies outside the landscape or on a "
+                f"no-data cell; the landscape spans x {left:g}–{right:g} m, "
+                f"y {bottom:g}–{top:g} m in its CRS",
+                _source(sc, f"start.releases[{k}]"),
+            )
+        disc = (grid.distance_to(rel.x, rel.y) <= rel.radius) & mask
+        disc[grid.rowcol(rel.x, rel.y)] = True  # at least the cell holding the point
+        target = N0 if rel.species == "prey" else P0
+        target[disc] += rel.density
+    if st.noise > 0:
+        rng = np.random.default_rng(sc.run.seed)
+        N0 *= 1.0 + st.noise * rng.uniform(-1, 1, N0.shape)
+        P0 *= 1.0 + st.noise * rng.uniform(-1, 1, P0.shape)
+    return (np.ascontiguousarray(np.where(mask, N0, 0.0)),
+            np.ascontiguousarray(np.where(mask, P0, 0.0)))
+
+
+def _step(sc: Scenario, setup: Setup, fields: Fields, inter: Interaction,
+          P0: np.ndarray) -> float:
+    """The time step, years: the scenario's, or the shortest any epoch needs."""
+    if sc.run.step == "auto":
+        dt = _auto_dt(sc, fields, inter, P0)
+        for _, _, names in setup.epochs[1:]:  # a corridor may raise growth or capacity
+            dt = min(dt, _auto_dt(sc, epoch_state(setup, names)[0], inter, P0))
+        return dt
+    dt = float(sc.run.step)
+    n = sc.run.save_every / dt
+    if abs(n - round(n)) > 1e-9 * n:
+        raise InputError(
+            f"step {dt:g} yr does not divide save_every {sc.run.save_every:g} yr into whole "
+            f"steps; choose a step such as {sc.run.save_every / max(1, math.ceil(n)):g}",
+            _source(sc, "run.step"),
+        )
+    return dt
+
+
+def _placed(sc: Scenario, m: MeasureSpec, cells, faces, shapes) -> PlacedMeasure:
+    return PlacedMeasure(
+        name=m.name, kind=m.kind, cells=cells, faces=faces, shapes=tuple(shapes),
+        start_year=m.start_year, end_year=m.end_year, baseline=m.baseline,
+        source=m.geometry or m.raster or "",
+        permeability=m.permeability.model_dump() if m.permeability else {},
+        gaps=tuple(g.model_dump() for g in m.gaps),
+        protected_fraction=m.protected_fraction, closed_to_predators=m.closed_to_predators,
+        sets=m.sets() if m.kind == "corridor" else {})
+
+
+def place_measures(sc: Scenario, grid: Grid) -> tuple[PlacedMeasure, ...]:
+    """Read the geometry or raster of each measure of the scenario's variant onto ``grid``.
+
+    Raises
+    ------
+    InputError
+        For unreadable files, geometries outside the landscape, or a measure
+        that covers no cell with data (or crosses no face).
+    """
+    if not sc.active_measures():
+        return ()
+    from preyscape.landscape import measures as lm
+
+    out = []
+    for m in sc.active_measures():
+        k = sc.measures.index(m)
+        key = f"measures[{k}].{'geometry' if m.geometry else 'raster'}"
+        src = _source(sc, f"{key} ({m.geometry or m.raster})")
+        shapes: list = []
+        cells = faces = None
+        if m.geometry:
+            shapes = lm.read_geometry(sc.resolve(m.geometry), grid, crs=m.crs, source=src)
+        if m.kind == "fence":
+            if m.geometry:
+                faces = lm.fence_faces(shapes, grid, gaps=[(g.x, g.y, g.width) for g in m.gaps])
+            else:
+                faces = lm.outline_faces(lm.cells_from_raster(sc.resolve(m.raster), grid, src)
+                                         & grid.mask)
+            if not (faces[0].any() or faces[1].any()):
+                raise InputError("the fence crosses no cell face inside the landscape; check "
+                                 "its coordinates and CRS", src)
+        else:
+            if m.geometry:
+                cells = lm.cells_covered(shapes, grid, buffer_m=m.buffer)
+            else:
+                cells = lm.cells_from_raster(sc.resolve(m.raster), grid, src)
+            cells = cells & grid.mask
+            if not cells.any():
+                raise InputError(f"the {m.kind} covers no cell with habitat data; check its "
+                                 "coordinates and CRS", src)
+            if m.kind == "refuge" and m.closed_to_predators:
+                faces = lm.outline_faces(cells)
+        out.append(_placed(sc, m, cells, faces, shapes))
+    return tuple(out)
+
+
+def place_targets(sc: Scenario, grid: Grid) -> list[tuple[str, np.ndarray]]:
+    """The target patches of ``[analysis]`` on the grid: ``(name, cells)`` pairs.
+
+    Raises
+    ------
+    InputError
+        For unreadable files or a target with no cell with data.
+    """
+    out: list[tuple[str, np.ndarray]] = []
+    if not sc.analysis.targets:
+        return out
+    from preyscape.landscape import measures as lm
+
+    for k, t in enumerate(sc.analysis.targets):
+        key = f"analysis.targets[{k}].{'geometry' if t.geometry else 'raster'}"
+        src = _source(sc, f"{key} ({t.geometry or t.raster})")
+        if t.geometry:
+            cells = lm.cells_covered(lm.read_geometry(sc.resolve(t.geometry), grid, crs=t.crs,
+                                                      source=src), grid)
+        else:
+            cells = lm.cells_from_raster(sc.resolve(t.raster), grid, src)
+        cells = cells & grid.mask
+        if not cells.any():
+            raise InputError("the target covers no cell with habitat data", src)
+        out.append((t.name, cells))
+    return out
+
+
+def measure_epochs(sc: Scenario, measures) -> tuple[Epoch, ...]:
+    """Split the run at the times measures switch on or off.
+
+    Returns ``(t0, t1, names of the measures acting in [t0, t1))`` in years,
+    consecutive from 0 to ``run.years``; neighbouring spans with the same
+    measures are merged.
+    """
+    years = sc.run.years
+    cuts = {0.0, years}
+    for m in measures:
+        for t in (m.start_year, m.end_year):
+            if t is not None and 0.0 < t < years:
+                cuts.add(float(t))
+    times = sorted(cuts)
+    out: list[Epoch] = []
+    for t0, t1 in zip(times[:-1], times[1:], strict=True):
+        names = tuple(m.name for m in measures if m.active(t0, t1))
+        if out and out[-1][2] == names:
+            out[-1] = (out[-1][0], t1, names)
+        else:
+            out.append((t0, t1, names))
+    return tuple(out)
+
+
+def epoch_state(setup: Setup, names: tuple[str, ...]) -> tuple[
+        Fields, Movement, Movement, np.ndarray | None]:
+    """Fields, movement operators and refuge share with the named measures acting.
+
+    The rules for measures acting together are
+    :func:`preyscape.landscape.placed.combine`.
+    """
+    sc, grid = setup.scenario, setup.grid
+    on = combine([m for m in setup.measures if m.name in names], setup.multipliers)
+    fields = build_fields(
+        on.multipliers, grid.mask, sc.prey.growth, sc.prey.capacity, sc.predator.mortality,
+        sc.prey.move_coefficient, sc.predator.move_coefficient, setup.interaction.logistic,
+    )
+    ls = sc.landscape
+    mvs = [
+        build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge, ls.nodata,
+                       perm_x=on.permeability[sp][0], perm_y=on.permeability[sp][1])
+        for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
+                               ("predator", fields.predator_move, sc.predator))
+    ]
+    return fields, mvs[0], mvs[1], on.refuge
+
+
+def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
+    """Best-habitat parameter values (maximum capacity over the landscape)."""
+    mask = fields.K > 0
+    K = float(fields.K.max()) if mask.any() else (sc.prey.capacity or math.nan)
+    return {"r": sc.prey.growth, "K": K, "m": sc.predator.mortality,
+            "D_N": sc.prey.move_coefficient, "D_P": sc.predator.move_coefficient}
+
+
+def _auto_dt(sc: Scenario, fields: Fields, inter: Interaction, P0: np.ndarray) -> float:
+    b = _best(sc, fields)
+    K_arg = b["K"] if inter.logistic else None
+    n_eq, p_eq = theory.equilibrium(inter, b["r"], K_arg, b["m"])
+    p_scale = max(float(P0.max()), p_eq if math.isfinite(p_eq) else 0.0)
+    K = b["K"] if math.isfinite(b["K"]) else 0.0
+    rates = [
+        float(np.abs(fields.r).max()),
+        float(fields.m.max()),
+        inter.attack_rate * p_scale,  # per-capita predation on rare prey
+        theory.predator_growth_at_capacity(inter, K, 0.0),  # predator gain at capacity
+    ]
+    period = theory.local_stability(inter, b["r"], K_arg, b["m"])["period"]
+    return auto_step(rates, period, sc.run.save_every)
+
+
+def predictions(setup: Setup) -> dict:
+    """The published predictions a report sets results against (from :func:`derived`)."""
+    d = derived(setup)
+    keys = ("equilibrium", "stable", "period_years", "hopf_capacity", "lv_period_years",
+            "prey_front_speed", "predator_front_speed", "best_habitat")
+    out = {k: d[k] for k in keys}
+    out["equilibrium"] = [None if not math.isfinite(v) else v for v in out["equilibrium"]]
+    out["predator_growth_at_capacity"] = d["predator_growth_at_capacity"]
+    sc = setup.scenario
+    out["growth"] = sc.prey.growth
+    out["prey_movement"] = sc.prey.move_coefficient
+    out["predator_movement"] = sc.predator.move_coefficient
+    return out
+
+
+def derived(setup: Setup) -> dict:
+    """Numbers that describe a scenario before it runs (printed by ``check``).
+
+    Returns a dict with the grid, the step, per-species movement numbers
+    (cells crossed per step), best-habitat equilibria and stability, the
+    Rosenzweig–MacArthur Hopf capacity, predicted front speeds, critical patch
+    sizes, and estimates of memory and disk use.
+    """
+    sc, g, inter = setup.scenario, setup.grid, setup.interaction
+    b = _best(sc, setup.fields)
+    K_arg = b["K"] if inter.logistic else None
+    stab = theory.local_stability(inter, b["r"], K_arg, b["m"])
+    n_snap = round(sc.run.years / sc.run.save_every) + 1
+    h_km2 = (min(g.dx, g.dy) / 1000.0) ** 2
+    cells = g.ny * g.nx
+    growth_P = (theory.predator_growth_at_capacity(inter, b["K"], b["m"])
+                if math.isfinite(b["K"]) else None)
+    return {
+        "grid": {
+            "rows": g.ny, "cols": g.nx, "cells_with_data": g.n_cells,
+            "cell_size_m": (g.dx, g.dy), "extent_km": (g.width_m / 1e3, g.height_m / 1e3),
+        },
+        "step_years": setup.dt,
+        "steps": round(sc.run.years / setup.dt),
+        "scheme": sc.run.scheme,
+        "movement_per_step": {"prey": b["D_N"] * setup.dt / h_km2,
+                              "predator": b["D_P"] * setup.dt / h_km2},
+        "best_habitat": b,
+        "equilibrium": stab["equilibrium"],
+        "stable": stab["stable"],
+        "period_years": stab["period"],
+        "hopf_capacity": theory.hopf_capacity(inter, b["m"]) if inter.h > 0 else None,
+        "lv_period_years": theory.lv_period(b["r"], b["m"]),
+        "prey_front_speed": theory.fisher_speed(b["r"], b["D_N"]),
+        "predator_front_speed": theory.predator_speed(inter, b["K"], b["m"], b["D_P"]),
+        "predator_growth_at_capacity": growth_P,
+        "critical_patch_prey": theory.critical_patch(b["r"], b["D_N"]),
+        "critical_patch_predator": theory.critical_patch(
+            growth_P if growth_P is not None else math.nan, b["D_P"]),
+        # per cell during the run: state and transposed work (32 B), reaction fields (12),
+        # per species faces and weights in two orientations (24) and pivots (32), unit
+        # weights (8), habitat (4), start and output buffers: ~180 B; plus ~250 MB for
+        # Python and the libraries (measured: benchmarks/run.py --only memory)
+        "memory_mb": 250 + cells * 180 / 1e6,
+        "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
+        "snapshots": n_snap,
+        "measures": [m.summary(g.cell_area_km2) for m in setup.measures],
+        "variants": [
+            {"name": v.name, "add": list(v.add), "remove": list(v.remove), "set": dict(v.set)}
+            for v in sc.variants
+        ],
+    }
+
+
+def check_variant_measures(scenarios: list[Scenario]) -> list[dict]:
+    """Place every variant's measures and targets on the grid once, before any run.
+
+    A measure that only a variant adds is otherwise read when that variant
+    starts, after the earlier variants have run; this finds its mistakes first.
+
+    Returns
+    -------
+    list of dict
+        Summaries (:meth:`PlacedMeasure.summary`) of the measures that are not
+        in the baseline, each with ``variants``: the variants that use it.
+
+    Raises
+    ------
+    InputError
+        For the first measure or target that cannot be placed.
+    """
+    from preyscape.landscape.io import read_habitat
+
+    if not scenarios:
+        return []
+    sc = scenarios[0]
+    ls = sc.landscape
+    grid, _ = read_habitat(sc.resolve(ls.habitat), ls.values, ls.cell_size,
+                           source=_source(sc, f"landscape.habitat ({ls.habitat})"))
+    extra: dict[str, dict] = {}
+    for v in scenarios:
+        for m in place_measures(v, grid):
+            if not m.baseline:
+                rec = extra.setdefault(m.name, {**m.summary(grid.cell_area_km2),
+                                                "variants": []})
+                rec["variants"].append(v.variant)
+        place_targets(v, grid)
+    return list(extra.values())
