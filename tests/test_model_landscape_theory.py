@@ -380,17 +380,3 @@ def test_bramson_correction_brings_the_window_mean_closer():
     # the secant form: c* - (3/2) sqrt(D/r) ln(t1/t0)/(t1 - t0)
     sec = theory.mean_front_speed(2.0, 1.0, 10.0, 20.0)
     assert sec.correction == pytest.approx(1.5 * math.log(2.0) / 10.0)
-
-
-def test_bramson_correction_for_a_slow_landscape():
-    # A landscape growth of 0.045 /yr and diffusivity 250 km²/yr (invented example):
-    # c* = 2 sqrt(11.25) = 6.71 km/yr, lambda* = sqrt(0.045/250) = 0.0134 /km; fitted
-    # over 20-40 years the front lags by (3/2)(74.5 km) ln 2 / 20 yr = 3.87 km/yr.
-    c_star = theory.fisher_speed(0.045, 250.0)
-    w = theory.mean_front_speed(c_star, math.sqrt(0.045 / 250.0), 20.0, 40.0)
-    assert c_star == pytest.approx(6.708, rel=1e-3)
-    assert w.correction == pytest.approx(3.875, rel=1e-3)
-    assert w.mean == pytest.approx(2.833, rel=1e-3)
-    assert w.far_from_asymptotic and w.fraction > 0.5
-    with pytest.raises(ValueError):
-        theory.mean_front_speed(c_star, 0.01, 0.0, 10.0)
