@@ -78,3 +78,24 @@ def test_speeds_and_patch_sizes():
     assert cp["disc_radius"] == pytest.approx(2.404825557695773 / 2)
     # the discrete decay rate tends to the continuum pi^2 D / L^2 as h -> 0
     assert theory.grid_decay_rate(1.0, 1e-4, 1.0) == pytest.approx(math.pi**2, rel=1e-7)
+
+
+def test_bramson_correction_for_a_slow_landscape():
+    # A landscape growth of 0.045 /yr and diffusivity 250 km²/yr (invented example):
+    # c* = 2 sqrt(11.25) = 6.71 km/yr, lambda* = sqrt(0.045/250) = 0.0134 /km; fitted
+    # over 20-40 years the front lags by (3/2)(74.5 km) ln 2 / 20 yr = 3.87 km/yr.
+    c_star = theory.fisher_speed(0.045, 250.0)
+    w = theory.mean_front_speed(c_star, math.sqrt(0.045 / 250.0), 20.0, 40.0)
+    assert c_star == pytest.approx(6.708, rel=1e-3)
+    assert w.correction == pytest.approx(3.875, rel=1e-3)
+    assert w.mean == pytest.approx(2.833, rel=1e-3)
+    assert w.far_from_asymptotic and w.fraction > 0.5
+    with pytest.raises(ValueError):
+        theory.mean_front_speed(c_star, 0.01, 0.0, 10.0)
+    # with sample times: the slope a least-squares line through c* t - (3/(2 lambda*)) ln t
+    # would have (reference library: numpy.polyfit)
+    t = np.linspace(20.0, 40.0, 11)
+    lam = math.sqrt(0.045 / 250.0)
+    slope = np.polyfit(t, c_star * t - 1.5 / lam * np.log(t), 1)[0]
+    assert theory.mean_front_speed(c_star, lam, 0, 0, times=t).mean == pytest.approx(
+        slope, rel=1e-10)

@@ -7,6 +7,8 @@ speeds km/yr.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -155,3 +157,101 @@ def grid_decay_rate(D: float, h: float, L: float) -> float:
     difference matrix; e.g. LeVeque 2007, Finite Difference Methods, §2.10).
     """
     return 4.0 * D / h**2 * math.sin(math.pi * h / (2.0 * L)) ** 2
+
+
+# ---------------------------------------------------------------------------
+# finite-time front speed
+# ---------------------------------------------------------------------------
+FAR_FROM_ASYMPTOTIC = 0.10
+"""Bramson correction, as a share of the asymptotic speed, above which a window is flagged.
+
+Common practice, no source. The expansion drops terms that decay like
+``t^(-3/2)`` in the speed (Ebert & van Saarloos 2000, Physica D 146:1), and
+they grow faster than the logarithmic term as the window moves earlier. In the
+test suite a Fisher front (r = D = 1) fitted over 10–20 years (correction
+5 % of ``c*``) matches the corrected mean speed to 0.5 %, over 5–15 years
+(8 %) only to 4 %: beyond 10 % even the corrected value is indicative only.
+"""
+
+
+@dataclass(frozen=True)
+class WindowSpeed:
+    """Mean front speed expected over a fitting window (see :func:`mean_front_speed`).
+
+    Attributes
+    ----------
+    asymptotic : float
+        Speed the front approaches, km/yr.
+    mean : float
+        Mean speed predicted over the window, km/yr.
+    correction : float
+        ``asymptotic - mean``, km/yr (positive: fronts from a compact start lag).
+    fraction : float
+        ``correction / asymptotic`` (dimensionless).
+    far_from_asymptotic : bool
+        True when ``fraction`` exceeds :data:`FAR_FROM_ASYMPTOTIC`.
+    """
+
+    asymptotic: float
+    mean: float
+    correction: float
+    fraction: float
+    far_from_asymptotic: bool
+
+
+def mean_front_speed(
+    c_star: float,
+    decay_rate: float,
+    t0: float,
+    t1: float,
+    times: Sequence[float] | None = None,
+    threshold: float = FAR_FROM_ASYMPTOTIC,
+) -> WindowSpeed:
+    """Mean speed of a pulled front over a finite window, with Bramson's correction.
+
+    A front started from a compact release lies at
+    ``x(t) = c* t - (3 / (2 lambda*)) ln t + const + o(1)`` (Bramson 1983,
+    Mem AMS 44(285); Ebert & van Saarloos 2000, Physica D 146:1), where
+    ``lambda*`` is the decay rate of the front's leading edge: ``sqrt(r/D)``
+    for Fisher–KPP, so the lag is ``(3/2) sqrt(D/r) ln t``. In a periodic
+    medium the coefficient is the same with the periodic ``lambda*``
+    (Hamel, Nolen, Roquejoffre & Ryzhik 2016, J Eur Math Soc 18:465; from
+    memory). The mean speed between ``t0`` and ``t1`` is then
+    ``c* - (3 / (2 lambda*)) ln(t1/t0) / (t1 - t0)``; with ``times``, the
+    slope of a least-squares line through the positions at those times is
+    used instead, which is what a regression of front positions measures.
+
+    Parameters
+    ----------
+    c_star : float
+        Asymptotic (minimal) speed, km/yr.
+    decay_rate : float
+        ``lambda*``, 1/km (for Fisher–KPP ``c*/(2D) = sqrt(r/D)``).
+    t0, t1 : float
+        Window, years since the release (``0 < t0 < t1``).
+    times : sequence of float, optional
+        Times of the positions a regression was fitted to, years since the
+        release; overrides ``t0`` and ``t1``.
+    threshold : float
+        Share of ``c*`` above which the window is flagged as far from the
+        asymptotic regime.
+
+    Returns
+    -------
+    WindowSpeed
+    """
+    if times is not None:
+        t = np.asarray(times, dtype=float)
+        if t.size < 2 or np.any(t <= 0):
+            raise ValueError("times must hold at least two positive values (years)")
+        tc = t - t.mean()
+        slope_log = float(np.sum(tc * np.log(t)) / np.sum(tc * tc))
+    else:
+        if not 0 < t0 < t1:
+            raise ValueError("the window needs 0 < t0 < t1 (years since the release)")
+        slope_log = math.log(t1 / t0) / (t1 - t0)
+    if not (c_star > 0 and decay_rate > 0):
+        return WindowSpeed(max(c_star, 0.0), max(c_star, 0.0), 0.0, 0.0, False)
+    corr = 1.5 / decay_rate * slope_log
+    frac = corr / c_star
+    return WindowSpeed(c_star, c_star - corr, corr, frac, bool(frac > threshold))
