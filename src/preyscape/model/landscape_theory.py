@@ -43,6 +43,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
+from preyscape.model import theory
 from preyscape.model.fields import MULTIPLIERS
 from preyscape.model.reactions import Interaction
 
@@ -215,9 +216,8 @@ def low_density_growth(
             raise ValueError("a density-limited form needs a carrying capacity")
         K = capacity * mult("prey_capacity")
         r_prey = np.where(K > 0, g, -g)  # zero capacity: a sink (as in build_fields)
-        a, h, e = inter.attack_rate, inter.h, inter.efficiency
-        f = a * K / (1.0 + a * h * K)
-        r_pred = e * f - mortality * mult("predator_mortality")
+        r_pred = theory.predator_growth_at_capacity(inter, K,
+                                                    mortality * mult("predator_mortality"))
     else:
         r_prey = g
         r_pred = np.full(n, math.nan)  # prey grow without bound: no capacity to grow on
