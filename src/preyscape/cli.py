@@ -104,6 +104,9 @@ def _parser() -> argparse.ArgumentParser:
     rp.add_argument("--out", type=Path, help="HTML file to write (default: RUN/report.html)")
     rp.add_argument("--overwrite", action="store_true", help="replace an existing report")
     rp.add_argument("--no-animation", action="store_true", help="leave out the animated GIF")
+    from preyscape import cli_landscape  # command groups in the new shape (handler=...)
+
+    cli_landscape.add_parsers(sub)
     return p
 
 
@@ -230,6 +233,8 @@ def main(argv: list[str] | None = None) -> int:
     from preyscape.errors import InputError
 
     try:
+        if getattr(args, "handler", None):
+            return args.handler(args)
         if args.command == "check":
             from preyscape.pipeline import check_variant_measures, derived, prepare
             from preyscape.scenario import load_scenario

@@ -59,9 +59,9 @@ def refuse_existing(path: str | os.PathLike[str], overwrite: bool, what: str = "
     """
     p = Path(path)
     if p.is_dir():
-        raise InputError(f"{what} {p} is a folder; give a file name", str(p))
+        raise InputError(f"{what} path is a folder; give a file name", str(p))
     if p.exists() and not overwrite:
-        raise InputError(f"{what} {p} exists; pass --overwrite to replace it", str(p))
+        raise InputError(f"{what} exists; pass --overwrite to replace it", str(p))
     if not p.parent.is_dir():
         raise InputError(f"folder {p.parent} does not exist; create it first or give another "
                          "path", str(p))
@@ -308,7 +308,7 @@ def write_habitat(
         arr = np.asarray(values)
         top = int(arr[mask].max()) if mask.any() else 0
         dtype = "int16" if top <= np.iinfo(np.int16).max else "int32"
-        out = np.where(mask, arr, CLASS_NODATA).astype(dtype)
+        out = np.where(mask, arr.astype(np.int64), CLASS_NODATA).astype(dtype)
         write_geotiff(path, grid, out, nodata=CLASS_NODATA, dtype=dtype)
     else:
         out = np.where(mask, np.asarray(values, dtype=np.float64), np.nan).astype(np.float32)

@@ -176,7 +176,7 @@ def landscape_metrics(
         names = {1: f"habitat (suitability >= {threshold:g})",
                  0: f"other (suitability < {threshold:g})"}
     elif kind == "classes":
-        cl = np.where(mask, np.asarray(values), -1)
+        cl = np.where(mask, np.asarray(values).astype(np.int64), -1)
     else:
         raise ValueError(f"kind must be 'classes' or 'suitability', not {kind!r}")
     per_class = class_metrics(cl, grid.dx, grid.dy, mask, names)

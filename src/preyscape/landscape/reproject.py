@@ -174,7 +174,9 @@ def reproject_habitat(
             raise InputError(f"class codes must be non-negative whole numbers; row {r}, col {c} "
                              f"holds {raw[r, c]!r} (use --values suitability for values in "
                              "[0, 1])", name)
-        data = np.where(valid, raw, CLASS_NODATA).astype(np.int32)
+        # fill, then copy: np.where would turn -1 into 255 in a uint8 array
+        data = np.full(raw.shape, CLASS_NODATA, dtype=np.int32)
+        data[valid] = raw[valid]
         fill: float = CLASS_NODATA
     else:
         vals = raw.astype(np.float64)
