@@ -82,9 +82,9 @@ def add_parsers(sub) -> None:
                     help="fractal: Hurst exponent 0-1, from rough (0) to smooth (1); default "
                          "0.5")
     mk.add_argument("--marked", type=float, default=0.45, metavar="P",
-                    help="clusters: share of cells marked in the first step, 0-1; small "
-                         "values give many small patches, values near 0.59 large irregular "
-                         "ones; default 0.45")
+                    help="clusters: share of cells marked in the first step, 0-1; near "
+                         "0.59 patches are large and irregular, around 0.2-0.3 the map is "
+                         "most fragmented, small values give compact blobs; default 0.45")
     mk.add_argument("--overwrite", action="store_true", help="replace existing files")
     mk.set_defaults(handler=_make)
 

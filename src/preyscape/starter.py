@@ -384,6 +384,17 @@ def starter_text(raster, habitat_rel: str, pair: Pair, source_name: str) -> str:
     return "\n".join(lines)
 
 
+def _habitat_path(raster: Path, scenario: Path) -> str:
+    """The raster's path as the scenario names it: relative to the scenario's folder when
+    that is short (at most two levels up), else absolute."""
+    target = raster.resolve()
+    try:
+        rel = Path(os.path.relpath(target, scenario.resolve().parent))
+    except ValueError:  # another drive
+        return target.as_posix()
+    return rel.as_posix() if rel.parts[:3].count("..") <= 2 else target.as_posix()
+
+
 def write_starter(
     raster_path: str | os.PathLike[str],
     out: str | os.PathLike[str] | None = None,
@@ -432,8 +443,7 @@ def write_starter(
     out = Path(out) if out is not None else raster_path.with_suffix(".toml")
     files.refuse_existing(out, overwrite, "scenario file")
     raster = files.read_raster(raster_path, values)  # type: ignore[arg-type]
-    rel = os.path.relpath(raster_path.resolve(), out.resolve().parent)
-    text = starter_text(raster, Path(rel).as_posix(), PAIRS[pair], raster_path.name)
+    text = starter_text(raster, _habitat_path(raster_path, out), PAIRS[pair], raster_path.name)
     parse_scenario(tomllib.loads(text), out.resolve(), check_files=False)
     with files.staged([out], overwrite, "scenario file") as (tmp,):
         tmp.write_text(text, encoding="utf-8")

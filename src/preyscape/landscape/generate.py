@@ -413,10 +413,11 @@ def cluster_field(
     shape : tuple of int
         ``(rows, cols)``.
     marked : float
-        Share of cells marked in step 1, in (0, 1). Small values give many
-        small, compact patches; values near the percolation threshold
-        (0.5927) give large patches with irregular edges; above it, one
-        cluster fills most of the map.
+        Share p of cells marked in step 1, in (0, 1). Near the percolation
+        threshold (0.5927) the marked clusters, and so the patches, are large
+        with irregular edges; above it one cluster fills most of the map. At
+        p ≈ 0.2–0.3 the map is most fragmented (most edge); at small p the
+        few marked cells grow into compact blobs of about 1/p cells.
     seed : int or None, optional
         Seed for :func:`numpy.random.default_rng`.
 

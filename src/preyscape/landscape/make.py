@@ -181,8 +181,7 @@ def make_landscape(
     if pattern == "fractal" and not 0.0 <= hurst <= 1.0:
         raise InputError(f"--hurst must lie in [0, 1] (0 rough, 1 smooth), not {hurst!r}", src)
     if pattern == "clusters" and not 0.0 < marked < 1.0:
-        raise InputError(f"--marked must lie between 0 and 1 (exclusive), not {marked!r}; "
-                         "values below the percolation threshold 0.5927 give separate patches",
+        raise InputError(f"--marked must lie between 0 and 1 (exclusive), not {marked!r}",
                          src)
     if suitability and fractions is not None:
         raise InputError("give either class fractions or suitability, not both", src)
