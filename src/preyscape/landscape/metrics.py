@@ -230,16 +230,16 @@ def format_metrics(m: dict) -> str:
         s = m["suitability"]
         lines.append(f"suitability mean {s['mean']:.3f}, quartiles "
                      + ", ".join(f"{x:.3f}" for x in s["quartiles"]))
-    head = (f"{'code':>5}  {'class':<28} {'cells':>9} {'share':>7} {'patches':>8} "
+    head = (f"{'code':>5}  {'class':<32} {'cells':>9} {'share':>7} {'patches':>8} "
             f"{'largest km²':>12} {'mean km²':>10} {'edge m/ha':>10}  spans")
     lines += ["", head]
     for c in m["classes"]:
         span = ("N-S and W-E" if c["spans_north_south"] and c["spans_west_east"]
                 else "N-S" if c["spans_north_south"] else "W-E" if c["spans_west_east"]
                 else "no")
-        name = c["name"] if len(c["name"]) <= 28 else c["name"][:27] + "…"
+        name = c["name"] if len(c["name"]) <= 32 else c["name"][:31] + "…"
         lines.append(
-            f"{c['code']:>5}  {name:<28} {c['cells']:>9} {100 * c['fraction']:6.2f}% "
+            f"{c['code']:>5}  {name:<32} {c['cells']:>9} {100 * c['fraction']:6.2f}% "
             f"{c['patches']:>8} {_g(c['largest_patch_km2']):>12} {_g(c['mean_patch_km2']):>10} "
             f"{c['edge_density_m_per_ha']:>10.3g}  {span}")
     return "\n".join(lines)
