@@ -151,7 +151,7 @@ def read_habitat(
 
     with _open(path, src_name) as ds:
         crs = ds.crs
-        _check_crs(crs, src_name, need_metres=True, path=path, bounds=tuple(ds.bounds))
+        _check_crs(crs, src_name, need_metres=True, path=path, bounds=_bounds(ds))
         transform = ds.transform
         _check_transform(transform, src_name, path)
         raw, valid = _read_band1(ds, src_name)
@@ -252,7 +252,7 @@ def read_layer_onto(
 
     with _open(path, src_name) as ds:
         src_crs = ds.crs
-        _check_crs(src_crs, src_name, need_metres=False, path=path, bounds=tuple(ds.bounds))
+        _check_crs(src_crs, src_name, need_metres=False, path=path, bounds=_bounds(ds))
         src_transform = ds.transform
         _check_transform(src_transform, src_name, path)
         raw, valid = _read_band1(ds, src_name)
@@ -352,6 +352,14 @@ def write_geotiff(
 
 
 # --- helpers ---------------------------------------------------------------
+def _bounds(ds: rasterio.DatasetReader) -> tuple[float, float, float, float]:
+    """(left, bottom, right, top) of a raster in its CRS, from its four corners."""
+    t, w, h = ds.transform, ds.width, ds.height
+    xs = [t.c + t.a * c + t.b * r for c, r in ((0, 0), (w, 0), (0, h), (w, h))]
+    ys = [t.f + t.d * c + t.e * r for c, r in ((0, 0), (w, 0), (0, h), (w, h))]
+    return min(xs), min(ys), max(xs), max(ys)
+
+
 def _grid_transform(grid: Grid) -> Affine:
     """North-up affine transform of ``grid`` (metres)."""
     return Affine(grid.dx, 0.0, grid.x0, 0.0, -grid.dy, grid.y0)

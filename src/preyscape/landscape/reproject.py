@@ -190,7 +190,8 @@ def reproject_habitat(
     if not valid.any():
         raise InputError("the raster has no cells with data", name)
 
-    corners = [s_tf * (c, r) for c, r in ((0, 0), (width, 0), (0, height), (width, height))]
+    corners = [(s_tf.a * c + s_tf.b * r + s_tf.c, s_tf.d * c + s_tf.e * r + s_tf.f)
+               for c, r in ((0, 0), (width, 0), (0, height), (width, height))]
     xs, ys = zip(*corners, strict=True)
     s_bounds = (min(xs), min(ys), max(xs), max(ys))
     try:
