@@ -174,3 +174,22 @@ def test_edits_never_overwrite_unless_asked(tmp_path: Path):
 def test_snippet_for_polygons_has_no_buffer():
     text = measure_snippet("corridor", "wood edge", "w.geojson", None, "classes")
     assert "buffer" not in text and 'name = "wood edge"' in text
+
+
+def test_narrow_diagonal_roads_get_a_note_and_wide_ones_are_unbroken(tmp_path: Path):
+    # geometry of the lattice: cell centres within w/2 of a diagonal line form an unbroken
+    # 4-neighbour band only if w >= sqrt(2) h (design requirement; patch count by
+    # scipy.ndimage.label, reference library)
+    from scipy import ndimage
+
+    src = write_habitat(tmp_path / "h.tif")
+    diag = [f"{X0},{Y0}", f"{X0 + 2400.0},{Y0 - 2400.0}"]  # 45°, through cell corners
+    thin = edit_raster(src, "road", out=tmp_path / "t.tif", line=diag, width=60.0)
+    wide = edit_raster(src, "road", out=tmp_path / "w.tif", line=diag, width=150.0)
+    assert thin["note"] and "√2" in thin["note"] and wide["note"] is None
+    four = ndimage.generate_binary_structure(2, 1)
+    for name, pieces in (("t.tif", lambda n: n > 1), ("w.tif", lambda n: n == 1)):
+        grid, cl = read_habitat(tmp_path / name, "classes")
+        road = (cl == 3)
+        road[~grid.mask] = False
+        assert pieces(ndimage.label(road, four)[1]), name

@@ -199,7 +199,8 @@ def test_spanning_probability_crosses_one_half_at_the_percolation_threshold():
     # random landscapes estimates p_c. L = 128, 200 landscapes: the threshold scatters with
     # s.d. ~0.013 (width ∝ L^(-1/nu), nu = 4/3), so the median's standard error is ~0.0012;
     # the finite-size shift of the crossing point is smaller than 0.003 at this size
-    # (measured: 0.5934, 0.5951, 0.5924 at L = 64, 128, 256). Tolerance 0.01.
+    # (measured medians 0.5934, 0.5951, 0.5924 at L = 64, 128, 256 with 300 landscapes
+    # each; 0.5954 with the 200 here). Tolerance 0.01.
     thresholds = [spanning_threshold(random_field((128, 128), s)) for s in range(200)]
     assert np.median(thresholds) == pytest.approx(SITE_PERCOLATION_THRESHOLD, abs=0.01)
     # and the crossing is sharp: almost never spans 0.05 below, almost always 0.05 above

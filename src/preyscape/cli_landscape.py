@@ -284,6 +284,8 @@ def _edit(args) -> int:
                     overwrite=args.overwrite)
     what = ("made no-data" if args.edit == "lake" else f"set to {r['value']:g}")
     print(f"{args.edit}: {r['cells']} cells ({r['area_km2']:.4g} km²) {what}")
+    if r["note"]:
+        print(f"note: {r['note']}")
     if r["out"] is not None:
         print(f"raster:  {r['out']}")
         print(f"metrics: {r['metrics_file']}")

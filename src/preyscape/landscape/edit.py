@@ -315,7 +315,16 @@ def edit_raster(
     if raster.kind == "classes" and edit != "lake" and int(set_to) not in names:
         names[int(set_to)] = edit
         quality.setdefault(int(set_to), 1.0 if edit == "corridor" else 0.05)
-    result: dict = {"edit": edit, "cells": int(changed.sum()),
+    note = None
+    cell = max(grid.dx, grid.dy)
+    if edit != "lake" and width is not None and width < math.sqrt(2.0) * cell and any(
+            g.geom_type not in ("Polygon", "MultiPolygon") for g in shapes):
+        # cells within w/2 of a diagonal line touch only at corners unless w >= √2 h
+        note = (f"the {edit} is narrower than √2 cells ({math.sqrt(2.0) * cell:.0f} m): where "
+                "it runs diagonally its cells may touch only at corners, leaving gaps that "
+                "animals moving between neighbouring cells pass through; use --width "
+                f"{math.ceil(math.sqrt(2.0) * cell)} or more for an unbroken {edit}")
+    result: dict = {"edit": edit, "cells": int(changed.sum()), "note": note,
                     "area_km2": int(changed.sum()) * grid.cell_area_km2,
                     "value": set_to, "kind": raster.kind, "out": None, "measure": None,
                     "snippet": None, "metrics": None, "metrics_file": None}
