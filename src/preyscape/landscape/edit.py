@@ -225,8 +225,9 @@ def measure_snippet(edit: str, name: str, geojson: str, width: float | None,
                 if kind == "suitability" else
                 "prey_capacity = 0.05       # little cover on and beside the road (example "
                 "values: edit)\nprey_movement = 0.3\npredator_mortality = 2.0   # road kill")
+    kind_line = 'kind = "corridor"'
     return (f"[[measures]]\nname = {json.dumps(name, ensure_ascii=False)}\n"
-            f"kind = \"corridor\"         # sets habitat values on the cells it covers\n"
+            f"{kind_line:<27}# sets habitat values on the cells it covers\n"
             f"geometry = {json.dumps(geojson, ensure_ascii=False)}\n{buffer}{sets}\n"
             "baseline = false           # a proposal: add it in a [[variants]] entry\n")
 
