@@ -443,7 +443,11 @@ def write_starter(
     out = Path(out) if out is not None else raster_path.with_suffix(".toml")
     files.refuse_existing(out, overwrite, "scenario file")
     raster = files.read_raster(raster_path, values)  # type: ignore[arg-type]
-    text = starter_text(raster, _habitat_path(raster_path, out), PAIRS[pair], raster_path.name)
+    try:
+        text = starter_text(raster, _habitat_path(raster_path, out), PAIRS[pair],
+                            raster_path.name)
+    except InputError as exc:
+        raise InputError(exc.message, exc.source or str(raster_path)) from None
     parse_scenario(tomllib.loads(text), out.resolve(), check_files=False)
     with files.staged([out], overwrite, "scenario file") as (tmp,):
         tmp.write_text(text, encoding="utf-8")

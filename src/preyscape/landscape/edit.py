@@ -305,9 +305,14 @@ def edit_raster(
     for t in targets:
         files.refuse_existing(t, overwrite)
     raster = files.read_raster(src, values)
-    shapes = read_shapes(raster, line=line, at=at, shape=shape)
-    new_values, new_mask, set_to = apply_edit(raster, edit, shapes, width=width,
-                                              radius=radius, value=value)
+    try:
+        shapes = read_shapes(raster, line=line, at=at, shape=shape)
+        new_values, new_mask, set_to = apply_edit(raster, edit, shapes, width=width,
+                                                  radius=radius, value=value)
+    except InputError as exc:  # name the raster being edited
+        if exc.source is None:
+            raise InputError(exc.message, str(src)) from None
+        raise
     grid = raster.grid.with_mask(new_mask)
     changed = (new_mask != raster.grid.mask) | (
         new_mask & (new_values != raster.values))

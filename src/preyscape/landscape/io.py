@@ -86,9 +86,10 @@ def reproject_hint(path: str | os.PathLike[str] | None, crs: CRS | None = None,
     name = Path(path) if path is not None else Path("in.tif")
     out = name.with_name(f"{name.stem}_metres{name.suffix or '.tif'}")
     assign = " --source-crs EPSG:XXXX" if source_crs else ""
-    where = "" if code.endswith("XX") else " (the UTM zone of the raster's centre)"
-    return (f"reproject it to a projected CRS in metres, e.g. the UTM zone of the area{where}, "
-            f"with: preyscape landscape reproject {name} {out}{assign} --crs {code}")
+    which = ("the UTM zone of the area (EPSG:326zz north of the equator, 327zz south)"
+             if code.endswith("XX") else "the UTM zone of the raster's centre")
+    return (f"reproject it to a projected CRS in metres, for example {which}, with: "
+            f"preyscape landscape reproject {name} {out}{assign} --crs {code}")
 
 
 # --- public API ------------------------------------------------------------
