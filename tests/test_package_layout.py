@@ -24,7 +24,7 @@ RANK = {
     "model": 2,
     "solve": 3,
     "store": 4,
-    "assemble": 5, "plots": 5,
+    "assemble": 5, "plots": 5, "starter": 5,
     "analysis": 6,
     "runfolder": 7,
     "report": 8,

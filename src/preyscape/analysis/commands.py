@@ -7,12 +7,14 @@ the run report includes it. Its options either override a shared setting
 named by the flag the user typed) or are inputs of its ``write`` function.
 The command line builds a sub-command from each entry of :data:`ANALYSES`
 and the report runs the ones marked ``in_report``; neither knows any
-analysis by name. Adding an analysis adds one line to :data:`ANALYSES`.
+analysis by name. Adding an analysis adds one :class:`Entry` to :data:`REGISTRY`.
 
 Examples
 --------
->>> [c.name for c in commands()]
+>>> [e.name for e in REGISTRY]
 ['hotspots', 'waves', 'effects', 'compare']
+>>> all(c.name == e.name and c.help == e.help for c, e in zip(commands(), REGISTRY))
+True
 >>> command("hotspots").runs
 'one'
 """
@@ -25,15 +27,34 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Literal
 
-__all__ = ["ANALYSES", "Command", "Option", "command", "commands", "writer"]
+__all__ = ["ANALYSES", "REGISTRY", "Command", "Entry", "Option", "command", "commands",
+           "writer"]
 
-ANALYSES: tuple[str, ...] = (
-    "preyscape.analysis.hotspots_output",
-    "preyscape.analysis.waves_output",
-    "preyscape.analysis.effects_output",
-    "preyscape.analysis.compare_output",
+@dataclass(frozen=True)
+class Entry:
+    """One registered analysis: its command name, one line of help, its writer module.
+
+    The command line lists these without importing the writers (so ``--help`` stays
+    fast); the name and help must equal the writer's ``COMMAND`` (tested).
+    """
+
+    name: str
+    help: str
+    module: str
+
+
+REGISTRY: tuple[Entry, ...] = (
+    Entry("hotspots", "Getis–Ord Gi* hotspots of both species",
+          "preyscape.analysis.hotspots_output"),
+    Entry("waves", "arrival times, front speeds and periodic waves",
+          "preyscape.analysis.waves_output"),
+    Entry("effects", "refuge, corridor and transect effects", "preyscape.analysis.effects_output"),
+    Entry("compare", "map where run B differs from run A", "preyscape.analysis.compare_output"),
 )
-"""Writer modules of the analyses, in the order the command line lists them."""
+"""The analyses, in the order the command line lists them."""
+
+ANALYSES: tuple[str, ...] = tuple(e.module for e in REGISTRY)
+"""Writer modules of the analyses, in registry order."""
 
 
 @dataclass(frozen=True)
@@ -111,11 +132,10 @@ def command(name: str) -> Command:
 
 
 def module_of(name: str):
-    """The writer module of the analysis named ``name``."""
-    for m in ANALYSES:
-        mod = writer(m)
-        if mod.COMMAND.name == name:
-            return mod
+    """The writer module of the analysis named ``name`` (imported only now)."""
+    for e in REGISTRY:
+        if e.name == name:
+            return writer(e.module)
     raise KeyError(f"no analysis named {name!r}")
 
 

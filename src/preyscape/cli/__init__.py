@@ -18,9 +18,9 @@ from preyscape.cautions import CAUTION
 
 __all__ = ["CAUTION", "main"]
 
-def _parser() -> argparse.ArgumentParser:
+def _parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
     from preyscape import __version__
-    from preyscape.cli import analyse, check, run
+    from preyscape.cli import analyse, check, landscape, run
 
     p = argparse.ArgumentParser(
         prog="preyscape",
@@ -29,14 +29,15 @@ def _parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--version", action="version", version=f"preyscape {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    for module in (run, check, analyse):
+    for module in (run, check, landscape):
         module.add_parsers(sub)
+    analyse.add_parsers(sub, argv)
     return p
 
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit status."""
-    args = _parser().parse_args(argv)
+    args = _parser(sys.argv[1:] if argv is None else argv).parse_args(argv)
     from preyscape.errors import PreyscapeError
 
     try:

@@ -10,15 +10,29 @@ the writer. The command prints the output's summary lines.
 
 from __future__ import annotations
 
+import argparse
 from pathlib import Path
 
 
-def add_parsers(sub) -> None:
-    """Register one sub-command per registered analysis, and ``report``."""
-    from preyscape.analysis.commands import commands
+def add_parsers(sub, argv: list[str] | None = None) -> None:
+    """Register one sub-command per registered analysis, and ``report``.
 
-    for cmd in commands():
-        q = sub.add_parser(cmd.name, help=cmd.help)
+    Only the analysis chosen in ``argv`` (its first word) has its writer imported
+    for its options: listing the commands imports no numerical library.
+    """
+    import sys
+
+    from preyscape.analysis.commands import REGISTRY, module_of
+
+    argv = sys.argv[1:] if argv is None else argv
+    chosen = next((a for a in argv if not a.startswith("-")), None)  # the sub-command
+    for entry in REGISTRY:
+        q = sub.add_parser(entry.name, help=entry.help)
+        q.set_defaults(handler=analyse, analysis=entry.name)
+        if entry.name != chosen:
+            q.add_argument("rest", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
+            continue
+        cmd = module_of(entry.name).COMMAND
         if cmd.runs == "one":
             q.add_argument("runs", type=Path, nargs=1, metavar="RUN", help="run folder")
         else:
@@ -29,7 +43,6 @@ def add_parsers(sub) -> None:
         q.add_argument("--overwrite", action="store_true", help="replace an existing --out")
         for o in cmd.options:
             q.add_argument(o.flag, dest=o.dest, type=o.type, metavar=o.metavar, help=o.help)
-        q.set_defaults(handler=analyse, analysis=cmd.name)
 
     rp = sub.add_parser("report", help="one self-contained HTML report of a run")
     rp.add_argument("run", type=Path, metavar="RUN", help="run folder")

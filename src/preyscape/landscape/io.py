@@ -32,7 +32,7 @@ from rasterio.warp import Resampling, reproject
 from preyscape.errors import InputError
 from preyscape.landscape.grid import Grid
 
-__all__ = ["read_habitat", "read_layer_onto", "write_geotiff"]
+__all__ = ["read_habitat", "read_layer_onto", "reproject_hint", "utm_epsg", "write_geotiff"]
 
 HabitatKind = Literal["classes", "suitability"]
 
@@ -50,10 +50,46 @@ _RESAMPLING = {
 # float noise, and resampling onto an identical grid would only cost time.
 _SIZE_RTOL = 1e-9
 
-_REPROJECT_HINT = (
-    "reproject it to a projected CRS in metres, e.g. the UTM zone of the area "
-    "(gdalwarp -t_srs EPSG:326XX in.tif out.tif)"
-)
+
+
+def utm_epsg(lon: float, lat: float) -> int:
+    """EPSG code of the WGS 84 UTM zone holding a point (degrees).
+
+    Zones are 6° of longitude wide from 180° W; 326zz north of the equator,
+    327zz south of it (the exceptions around Norway and Svalbard are ignored).
+    """
+    zone = int(math.floor(((lon + 180.0) % 360.0) / 6.0)) + 1
+    zone = min(max(zone, 1), 60)
+    return (32600 if lat >= 0 else 32700) + zone
+
+
+def reproject_hint(path: str | os.PathLike[str] | None, crs: CRS | None = None,
+                   bounds: tuple[float, float, float, float] | None = None,
+                   source_crs: bool = False) -> str:
+    """How to reproject a raster with preyscape's own command, as one clause.
+
+    Names the UTM zone of the raster's centre when ``crs`` and ``bounds``
+    (left, bottom, right, top in ``crs``) allow it, else ``EPSG:326XX``.
+    """
+    code = "EPSG:326XX"
+    if crs is not None and bounds is not None:
+        try:
+            from rasterio.warp import transform as warp_points
+
+            cx, cy = (bounds[0] + bounds[2]) / 2.0, (bounds[1] + bounds[3]) / 2.0
+            lon, lat = ([cx], [cy]) if crs.is_geographic else warp_points(
+                crs, "EPSG:4326", [cx], [cy])
+            if math.isfinite(lon[0]) and math.isfinite(lat[0]):
+                code = f"EPSG:{utm_epsg(lon[0], lat[0])}"
+        except (CRSError, RasterioError, ValueError):
+            pass
+    name = Path(path) if path is not None else Path("in.tif")
+    out = name.with_name(f"{name.stem}_metres{name.suffix or '.tif'}")
+    assign = " --source-crs EPSG:XXXX" if source_crs else ""
+    which = ("the UTM zone of the area (EPSG:326zz north of the equator, 327zz south)"
+             if code.endswith("XX") else "the UTM zone of the raster's centre")
+    return (f"reproject it to a projected CRS in metres, for example {which}, with: "
+            f"preyscape landscape reproject {name} {out}{assign} --crs {code}")
 
 
 # --- public API ------------------------------------------------------------
@@ -116,9 +152,9 @@ def read_habitat(
 
     with _open(path, src_name) as ds:
         crs = ds.crs
-        _check_crs(crs, src_name, need_metres=True)
+        _check_crs(crs, src_name, need_metres=True, path=path, bounds=_bounds(ds))
         transform = ds.transform
-        _check_transform(transform, src_name)
+        _check_transform(transform, src_name, path)
         raw, valid = _read_band1(ds, src_name)
 
     if not valid.any():
@@ -217,9 +253,9 @@ def read_layer_onto(
 
     with _open(path, src_name) as ds:
         src_crs = ds.crs
-        _check_crs(src_crs, src_name, need_metres=False)
+        _check_crs(src_crs, src_name, need_metres=False, path=path, bounds=_bounds(ds))
         src_transform = ds.transform
-        _check_transform(src_transform, src_name)
+        _check_transform(src_transform, src_name, path)
         raw, valid = _read_band1(ds, src_name)
 
     # A one-cell no-data frame: GDAL's average and mode take at least one
@@ -317,6 +353,14 @@ def write_geotiff(
 
 
 # --- helpers ---------------------------------------------------------------
+def _bounds(ds: rasterio.DatasetReader) -> tuple[float, float, float, float]:
+    """(left, bottom, right, top) of a raster in its CRS, from its four corners."""
+    t, w, h = ds.transform, ds.width, ds.height
+    xs = [t.c + t.a * c + t.b * r for c, r in ((0, 0), (w, 0), (0, h), (w, h))]
+    ys = [t.f + t.d * c + t.e * r for c, r in ((0, 0), (w, 0), (0, h), (w, h))]
+    return min(xs), min(ys), max(xs), max(ys)
+
+
 def _grid_transform(grid: Grid) -> Affine:
     """North-up affine transform of ``grid`` (metres)."""
     return Affine(grid.dx, 0.0, grid.x0, 0.0, -grid.dy, grid.y0)
@@ -345,18 +389,22 @@ def _open(path: str | os.PathLike[str], src_name: str) -> rasterio.DatasetReader
     return ds
 
 
-def _check_crs(crs: CRS | None, src_name: str, need_metres: bool) -> None:
+def _check_crs(crs: CRS | None, src_name: str, need_metres: bool,
+               path: str | os.PathLike[str] | None = None,
+               bounds: tuple[float, float, float, float] | None = None) -> None:
     """Refuse a missing or geographic CRS and, if asked, non-metre units."""
     if crs is None or not crs.to_wkt():
         raise InputError(
-            f"the raster has no coordinate reference system (CRS); assign its projected "
-            f"CRS in metres, e.g. gdal_edit -a_srs EPSG:326XX, or {_REPROJECT_HINT}",
+            "the raster has no coordinate reference system (CRS); name the CRS its "
+            "coordinates are in (--source-crs) and a projected CRS in metres for the copy "
+            "(--crs, the same one if the coordinates already are in such a CRS): "
+            + reproject_hint(path, source_crs=True).split("with: ", 1)[1],
             src_name,
         )
     if crs.is_geographic:
         raise InputError(
             f"the raster is in a geographic CRS with degree coordinates ({_crs_name(crs)}); "
-            f"cell sizes must be in metres, so {_REPROJECT_HINT}",
+            f"cell sizes must be in metres, so {reproject_hint(path, crs, bounds)}",
             src_name,
         )
     if not need_metres:
@@ -370,7 +418,7 @@ def _check_crs(crs: CRS | None, src_name: str, need_metres: bool) -> None:
     ):
         raise InputError(
             f"the raster's CRS ({_crs_name(crs)}) has linear unit {unit!r}, not metres; "
-            f"{_REPROJECT_HINT}",
+            f"{reproject_hint(path, crs, bounds)}",
             src_name,
         )
 
@@ -384,13 +432,16 @@ def _crs_name(crs: CRS) -> str:
     return f"{auth[0]}:{auth[1]}" if auth else crs.to_string()[:80]
 
 
-def _check_transform(transform: Affine, src_name: str) -> None:
+def _check_transform(transform: Affine, src_name: str,
+                     path: str | os.PathLike[str] | None = None) -> None:
     """Refuse rotated or sheared (non axis-aligned) rasters."""
     if transform.b != 0.0 or transform.d != 0.0:
+        name = Path(path) if path is not None else Path("in.tif")
         raise InputError(
             "the raster has a rotated or sheared geotransform "
             f"(row/column rotation terms {transform.b}, {transform.d}); warp it to a "
-            "north-up grid first (gdalwarp in.tif out.tif)",
+            f"north-up grid first with: preyscape landscape reproject {name} "
+            f"{name.with_name(name.stem + '_north_up' + (name.suffix or '.tif'))}",
             src_name,
         )
     if transform.a == 0.0 or transform.e == 0.0:
