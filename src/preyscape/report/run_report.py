@@ -206,11 +206,10 @@ def _analysis_parts(run, others, work: Path) -> list[Part]:
     for mod in mods:
         if mod.COMMAND.runs == "one":
             parts += mod.write([run], settings, work / mod.COMMAND.name).report_parts()
-    for k, other in enumerate(others):
-        for mod in mods:
-            if mod.COMMAND.runs == "several":
-                out = mod.write([run, other], settings, work / f"{mod.COMMAND.name}-{k}")
-                parts += out.report_parts()
+    for mod in mods if others else ():  # all other runs in one call: one ranking
+        if mod.COMMAND.runs == "several":
+            parts += mod.write([run, *others], settings, work / mod.COMMAND.name).report_parts()
+    for other in others:
         parts += _colonisation_parts(other)
     return parts
 
