@@ -124,8 +124,9 @@ def topology_lines(d: dict) -> list[str]:
                 what += "; open " + ("end" if len(ends) == 1 else "ends") + " at " + "; ".join(
                     f"{place_text(e['x'], e['y'])} (way round {metres_text(e['way_round_m'])}"
                     + (", a gate)" if e["at_gap"] else ")") for e in ends)
+            who = "prey" if t["species"] == "prey" else "predators"
             lines.append(f"fence topology      {t['kind']} '{t['name']}' [{variant}], stops "
-                         f"{'prey' if t['species'] == 'prey' else 'predators'}: {_km(t['length_m'])}, {t['faces']} faces; {what}")
+                         f"{who}: {_km(t['length_m'])}, {t['faces']} faces; {what}")
             if t.get("warning") and (t["name"], t["species"], t["warning"]) not in seen:
                 seen.add((t["name"], t["species"], t["warning"]))
                 warnings.append(f"WARNING             {t['warning']}")
