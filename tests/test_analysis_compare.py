@@ -457,3 +457,14 @@ def test_no_net_flow_through_an_impassable_fence_and_the_gap_carries_it_all(fenc
                             times, op["predator_cx"], op["predator_cy"], op["predator_w"],
                             gate, np.zeros_like(fy), sx, sy, gated.grid.cell_area_km2)
     np.testing.assert_allclose(flow, through_gate, rtol=1e-12, atol=0)
+
+
+def test_run_record_holds_each_fence_topology(fence_runs):
+    # design requirement (issue 10): the same facts as `check` go into run.json
+    full = json.loads((fence_runs["full"] / "run.json").read_text())["fence_topology"]
+    short = json.loads((fence_runs["short"] / "run.json").read_text())["fence_topology"]
+    assert [t["name"] for t in full] == ["full line"] and full[0]["separates"]
+    assert full[0]["open_ends"] == [] and full[0]["warning"] is None
+    assert short[0]["open_ends"][0]["way_round_m"] == 300.0
+    assert "'short line'" in short[0]["warning"]
+    assert json.loads((fence_runs["baseline"] / "run.json").read_text())["fence_topology"] == []

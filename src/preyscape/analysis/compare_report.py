@@ -46,6 +46,17 @@ def _area(x) -> str:
     return "n/a" if x is None else f"{x:.2g} km²" if x < 10 else f"{x:.3g} km²"
 
 
+def _delay_text(v) -> str:
+    """A change of colonisation time in words (years)."""
+    if v == "inf":
+        return "never"
+    if v is None or not math.isfinite(v):
+        return "n/a"
+    if abs(v) < 0.005:
+        return "as before"
+    return f"{abs(v):.2g} yr {'later' if v > 0 else 'earlier'}"
+
+
 def _pair(a: float, b: float) -> str:
     return f"{a:.3g} / {b:.3g}"
 
@@ -53,6 +64,12 @@ def _pair(a: float, b: float) -> str:
 def _name(out, sp: str) -> str:
     n = (out.record.get("species") or {}).get(sp) or sp
     return n if n != sp else sp
+
+
+def _many(out, sp: str) -> str:
+    """The species' name in the plural, for sentences ("least weasels", "prey")."""
+    n = _name(out, sp)
+    return n if n == "prey" or n.endswith("s") else n + "s"
 
 
 def _num(x) -> float:
@@ -87,7 +104,7 @@ def _alternative_sentence(out, r: dict) -> str:
     """One plain sentence about what an alternative changes, where and how much."""
     bits = []
     for sp in ("predator", "prey"):
-        name = _name(out, sp)
+        name = _many(out, sp)
         gain, loss, gone = r[f"{sp}_gain_km2"], r[f"{sp}_loss_km2"], r[f"{sp}_gone_km2"]
         if gain < 0.01 and loss < 0.01:
             bits.append(f"no clear change of {name} anywhere")
@@ -95,14 +112,21 @@ def _alternative_sentence(out, r: dict) -> str:
         part = []
         if loss >= 0.01:
             part.append(f"fewer {name} on {_area(loss)}"
-                        + (f" (none left on {_area(gone)})" if gone >= 0.01 else ""))
+                        + (" (none left there)" if gone >= 0.99 * loss else
+                           f" (none left on {_area(gone)})" if gone >= 0.01 else ""))
         if gain >= 0.01:
             part.append(f"more {name} on {_area(gain)}")
         bits.append(" and ".join(part))
-    total = _signed(r["predator_window_change_pct"], "%")
+    sure = [_num(r[k]) for k in ("predator_clarity", "prey_clarity") if r.get(k) is not None]
+    if sure:
+        top = max(sure)
+        bits.append("these changes are " + ("far beyond" if top > 3 else "beyond")
+                    + " what a shift in the timing of the cycles could produce"
+                    + (f" (typically {top:.2g} times that margin)" if math.isfinite(top) else ""))
     return (f"'{r['alternative']}' against '{out.base}': " + "; ".join(bits)
-            + f"; {_name(out, 'predator')} in the whole landscape {total}, "
-            f"{_name(out, 'prey')} {_signed(r['prey_window_change_pct'], '%')}.")
+            + f"; in the whole landscape {_many(out, 'predator')} "
+            f"{_signed(r['predator_window_change_pct'], '%')}, {_many(out, 'prey')} "
+            f"{_signed(r['prey_window_change_pct'], '%')}.")
 
 
 def headlines(out) -> list[str]:
@@ -118,7 +142,7 @@ def headlines(out) -> list[str]:
         first, last = rows[0], rows[-1]
         lines.append(
             f"Ranked by '{goal}' over {when}: '{first['alternative']}' does best "
-            f"({_name(out, sp)} {_signed(first[f'{sp}_window_change_pct'], '%')} in the "
+            f"({_many(out, sp)} {_signed(first[f'{sp}_window_change_pct'], '%')} in the "
             f"whole landscape), '{last['alternative']}' least "
             f"({_signed(last[f'{sp}_window_change_pct'], '%')}).")
     lines += [_alternative_sentence(out, r) for r in rows]
@@ -132,25 +156,28 @@ def headlines(out) -> list[str]:
 
 
 def _ranking_table(out) -> Table:
-    cols = [("rank", "rank"), ("alternative", "alternative"), ("measures", "measures"),
-            ("prey_window_change_pct", "prey total (%)"),
-            ("predator_window_change_pct", "predator total (%)"),
-            ("prey_gain_km2", "prey more (km²)"), ("prey_loss_km2", "prey fewer (km²)"),
-            ("predator_gain_km2", "predators more (km²)"),
-            ("predator_loss_km2", "predators fewer (km²)"),
-            ("predator_median_delay_yr", "predator arrival delay, median (yr)"),
-            ("predator_persistence_change", "predator persistence change"),
-            ("fence_length_m", "fence length (m)"), ("open_ends", "open ends")]
+    names = {sp: _name(out, sp) for sp in ("prey", "predator")}
     targets = [k for k in (out.ranking[0] if out.ranking else {})
                if k.startswith("predator_delay_at_")]
-    cols += [(k, "predators reach " + k[len("predator_delay_at_"):-3].replace("_", " ")
-              + ": delay (yr)") for k in targets]
+    header = ["rank", "alternative", f"{names['prey']}: total", f"{names['predator']}: total",
+              f"{names['prey']}: more / fewer (km²)",
+              f"{names['predator']}: more / fewer (km²)"]
+    header += [f"{names['predator']} reach {k[len('predator_delay_at_'):-3].replace('_', ' ')}"
+               for k in targets]
+    header += ["fence (km)", "open ends"]
     rows = []
     for r in out.ranking:
-        rows.append(tuple("never" if r.get(k) == "inf" else r.get(k) for k, _ in cols))
-    return Table(tuple(h for _, h in cols), tuple(rows),
-                 caption="One row per alternative; changes against "
-                 f"'{out.base}' in the window (full columns in ranking.csv)")
+        row = ["" if r["rank"] is None else r["rank"], r["alternative"],
+               _signed(r["prey_window_change_pct"], "%"),
+               _signed(r["predator_window_change_pct"], "%"),
+               _pair(r["prey_gain_km2"], r["prey_loss_km2"]),
+               _pair(r["predator_gain_km2"], r["predator_loss_km2"])]
+        row += [_delay_text(r.get(k)) for k in targets]
+        row += [r["fence_length_m"] / 1000.0, r["open_ends"]]
+        rows.append(tuple(row))
+    return Table(tuple(header), tuple(rows),
+                 caption=f"Changes against '{out.base}' in the window; every column is in "
+                 "ranking.csv")
 
 
 def report_parts(out) -> list[Part]:

@@ -32,8 +32,8 @@ from preyscape.analysis.change import (
 from preyscape.analysis.settings import GOALS, AnalysisSettings
 from preyscape.store import SPECIES
 
-__all__ = ["change_maps", "fence_table", "fence_warnings", "rank", "ranking_table",
-           "time_warnings", "zone_tables"]
+__all__ = ["change_maps", "cycle_length", "fence_table", "fence_warnings", "rank",
+           "ranking_table", "time_warnings", "zone_tables"]
 
 
 # --- maps --------------------------------------------------------------------------------
@@ -172,13 +172,33 @@ def time_warnings(runs: Sequence, labels: Sequence[str], window) -> list[str]:
     if asked is not None and asked > window.end + 1e-9:
         out.append(f"The window asked for ends at {asked:g} years, but the runs share "
                    f"snapshots only up to {window.end:g} years; compared up to there.")
-    period = (runs[0].predictions or {}).get("period_years")
-    if period and math.isfinite(period) and window.years < period:
+    period = cycle_length(runs[0])
+    if period and window.years < period:
         out.append(f"The window ({window.years:g} years) is shorter than one population cycle "
-                   f"(the local period is about {period:.2g} years in the best habitat): a "
-                   "change in the timing of the cycles cannot be told from a change in their "
-                   "level here, and counts as a change.")
+                   f"(about {period:.2g} years in '{labels[0]}'): a change in the timing of the "
+                   "cycles cannot be told from a change in their level here, and counts as a "
+                   "change.")
     return out
+
+
+def cycle_length(run) -> float | None:
+    """About how long one population cycle lasts in a run, years (None: no cycle seen).
+
+    The longer of the local period predicted for small cycles (``run.json``
+    predictions; large cycles last longer) and the spacing of the first two
+    clear peaks of the run's landscape total of predators (peaks standing out
+    by at least a tenth of the total's range: common practice, no source).
+    """
+    from scipy.signal import find_peaks
+
+    guess = [float((run.predictions or {}).get("period_years") or math.nan)]
+    tot = run.totals("predator")
+    if tot.size > 2 and np.ptp(tot) > 0:
+        peaks, _ = find_peaks(tot, prominence=0.1 * float(np.ptp(tot)))
+        if peaks.size >= 2:
+            guess.append(float(run.times[peaks[1]] - run.times[peaks[0]]))
+    good = [g for g in guess if math.isfinite(g) and g > 0]
+    return max(good) if good else None
 
 
 # --- zones and sides ----------------------------------------------------------------------------
@@ -262,7 +282,11 @@ def ranking_table(runs: Sequence, labels: Sequence[str], per_run: Sequence[dict]
     the start, %), ``{sp}_window_change_pct`` (the same in the window),
     ``{sp}_gain_km2`` and ``{sp}_loss_km2`` (area where the level rose or fell
     beyond the margin, :mod:`preyscape.analysis.change`), ``{sp}_gone_km2``
-    (area where it is no longer present), ``{sp}_persistence_change``
+    (area where it is no longer present), ``{sp}_clarity`` (median of
+    |difference| / margin over the changed cells: how far beyond what timing
+    and the threshold allow the changes typically are; > 1 by construction,
+    infinite where a species vanishes from a steady cell),
+    ``{sp}_persistence_change``
     (landscape mean, −1 to 1), ``{sp}_median_delay_yr`` (median arrival
     delay where it arrives in both runs), ``{sp}_never_km2`` (area it reaches
     only without the alternative), and ``{sp}_delay_at_<target>_yr`` (change
@@ -304,6 +328,8 @@ def _species_columns(base, run, k: int, sp: str, whole, window, maps, area: floa
     status = maps[f"{sp}_arrival_status"].sel(alternative=label).values
     delay = maps[f"{sp}_arrival_delay"].sel(alternative=label).values
     pers = maps[f"{sp}_persistence_difference"].sel(alternative=label).values
+    ratio = np.abs(maps[f"{sp}_ratio"].sel(alternative=label).values)
+    changed = (cls != 0) & (cls != NO_DATA) & np.isfinite(ratio)
     mask = base.mask
     return {
         f"{sp}_total_change_pct": _pct(float(ta[list(whole.indices[k])].mean()),
@@ -313,6 +339,7 @@ def _species_columns(base, run, k: int, sp: str, whole, window, maps, area: floa
         f"{sp}_gain_km2": float(np.count_nonzero(cls > 0) * area),
         f"{sp}_loss_km2": float(np.count_nonzero((cls < 0) & (cls != NO_DATA)) * area),
         f"{sp}_gone_km2": float(np.count_nonzero(cls == -2) * area),
+        f"{sp}_clarity": float(np.median(ratio[changed])) if changed.any() else math.nan,
         f"{sp}_persistence_change": float(np.nanmean(pers[mask])),
         f"{sp}_median_delay_yr": (float(np.nanmedian(delay)) if np.isfinite(delay).any()
                                   else math.nan),

@@ -44,6 +44,8 @@ SOURCES = [
     "Garlick et al. 2011, Bull Math Biol 73:2088.",
     "Getis–Ord Gi*: Getis & Ord 1992, Geogr Anal 24:189; Ord & Getis 1995, Geogr Anal "
     "27:286. False discovery rate: Benjamini & Hochberg 1995, J R Stat Soc B 57:289.",
+    "Change between runs beyond the timing of population cycles: the adjusted range of "
+    "cumulative departures, Hurst 1951, Trans Am Soc Civ Eng 116:770 (from memory).",
     "Numerical method: Strang 1968, SIAM J Numer Anal 5:506; Peaceman & Rachford 1955, "
     "J SIAM 3:28; Hundsdorfer & Verwer 2003, Numerical Solution of Time-Dependent "
     "Advection-Diffusion-Reaction Equations, Springer.",
