@@ -379,7 +379,8 @@ def compare(base, alternatives, *, settings: AnalysisSettings | None = None,
     maps = ranking.change_maps(runs[0].grid, per_run, labels, settings, window)
     fences = ranking.fence_table(runs[1:], labels[1:])
     tables = ranking.zone_tables(zonings, per_run, labels, runs[0].grid, settings.presence)
-    warn = ranking.time_warnings(runs, labels, window) + ranking.fence_warnings(fences)
+    warn = (ranking.time_warnings(runs, labels, window, settings.years)
+            + ranking.fence_warnings(fences))
     table = ranking.ranking_table(runs, labels, per_run, maps, window, fences, settings)
     return Comparison(labels[0], tuple(labels[1:]), window, maps, table, tables["zones"],
                       tables["sides"], fences, tuple(warn), settings)

@@ -158,7 +158,8 @@ def fence_warnings(fences) -> list[str]:
     return out
 
 
-def time_warnings(runs: Sequence, labels: Sequence[str], window) -> list[str]:
+def time_warnings(runs: Sequence, labels: Sequence[str], window,
+                  years: tuple[float, float | None] | None = None) -> list[str]:
     """Plain warnings about the snapshot times compared and the window's length."""
     out = []
     if not window.same_times:
@@ -167,14 +168,14 @@ def time_warnings(runs: Sequence, labels: Sequence[str], window) -> list[str]:
         out.append(f"The runs have different lengths or snapshot times ({each}). They are "
                    f"compared at their {window.upto.size} common times only, up to "
                    f"{window.upto[-1]:g} years.")
-    years = runs[0].settings().years
     asked = None if years is None else years[1]
     if asked is not None and asked > window.end + 1e-9:
         out.append(f"The window asked for ends at {asked:g} years, but the runs share "
                    f"snapshots only up to {window.end:g} years; compared up to there.")
     period = cycle_length(runs[0])
     if period and window.years < period:
-        out.append(f"The window ({window.years:g} years) is shorter than one population cycle "
+        out.append(f"The window ({window.years:g} year{'' if window.years == 1 else 's'}) is "
+                   "shorter than one population cycle "
                    f"(about {period:.2g} years in '{labels[0]}'): a change in the timing of the "
                    "cycles cannot be told from a change in their level here, and counts as a "
                    "change.")
