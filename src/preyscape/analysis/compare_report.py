@@ -155,25 +155,32 @@ def headlines(out) -> list[str]:
     return lines
 
 
+def _fence_text(r: dict) -> str:
+    if not r["fence_length_m"]:
+        return "none"
+    ends = r["open_ends"]
+    return (f"{r['fence_length_m'] / 1000:.3g} km, "
+            + ("closed" if not ends else f"{ends} open end{'s' if ends > 1 else ''}"))
+
+
 def _ranking_table(out) -> Table:
-    names = {sp: _name(out, sp) for sp in ("prey", "predator")}
+    names = {sp: _many(out, sp) for sp in ("prey", "predator")}
     targets = [k for k in (out.ranking[0] if out.ranking else {})
                if k.startswith("predator_delay_at_")]
-    header = ["rank", "alternative", f"{names['prey']}: total", f"{names['predator']}: total",
-              f"{names['prey']}: more / fewer (km²)",
-              f"{names['predator']}: more / fewer (km²)"]
+    header = ["rank", "alternative", f"landscape total: {names['predator']} / {names['prey']}",
+              f"{names['predator']}: more / fewer (km²)", f"{names['prey']}: more / fewer (km²)"]
     header += [f"{names['predator']} reach {k[len('predator_delay_at_'):-3].replace('_', ' ')}"
                for k in targets]
-    header += ["fence (km)", "open ends"]
+    header.append("fence")
     rows = []
     for r in out.ranking:
         row = ["" if r["rank"] is None else r["rank"], r["alternative"],
-               _signed(r["prey_window_change_pct"], "%"),
-               _signed(r["predator_window_change_pct"], "%"),
-               _pair(r["prey_gain_km2"], r["prey_loss_km2"]),
-               _pair(r["predator_gain_km2"], r["predator_loss_km2"])]
+               f"{_signed(r['predator_window_change_pct'], '%')} / "
+               f"{_signed(r['prey_window_change_pct'], '%')}",
+               _pair(r["predator_gain_km2"], r["predator_loss_km2"]),
+               _pair(r["prey_gain_km2"], r["prey_loss_km2"])]
         row += [_delay_text(r.get(k)) for k in targets]
-        row += [r["fence_length_m"] / 1000.0, r["open_ends"]]
+        row.append(_fence_text(r))
         rows.append(tuple(row))
     return Table(tuple(header), tuple(rows),
                  caption=f"Changes against '{out.base}' in the window; every column is in "
