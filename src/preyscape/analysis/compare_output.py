@@ -83,6 +83,7 @@ LEVEL_LABELS = {-2: "gone (present before, absent now)", -1: "fewer", 1: "more",
                 2: "new (absent before, present now)"}
 ONLY_COLOURS = {1: "#2b2b2b", 2: "#1b7837", 3: "#f3efe4"}  # arrival status (ours)
 NO_CHANGE = "#f3efe4"  # cells without a clear change: light, unlike the grey of no data
+MEANINGFUL_DELAY = 1e-3  # years (about nine hours): shorter delays get no map
 
 
 @dataclass(frozen=True)
@@ -350,7 +351,9 @@ def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
                          key=f"{alt}:arrival_delay"),
               FileRecord(f"{rel}_arrival_status.tif", "raster", f"{who}: where it arrives",
                          sp, key=f"{alt}:arrival_status")]
-    if np.isin(status, (0, 1, 2)).any():
+    delay = np.abs(get("arrival_delay"))
+    big = bool(np.any(delay[np.isfinite(delay)] >= MEANINGFUL_DELAY))
+    if big or np.isin(status, (1, 2)).any():
         delay_map(grid, get("arrival_delay"), status, f"{who}: arrival delay\n{head}",
                   tmp / f"{rel}_arrival_delay.png", lim=lims[sp, "arrival_delay"],
                   outlines=outlines, underlay=habitat, open_ends=ends)

@@ -162,6 +162,9 @@ def _settings_section(rep, run) -> None:
     if run.measures:
         sec.table(["measure", "kind", "years", "size", "settings"], _measure_rows(run.measures),
                   caption="Measures in this run")
+        for t in info.get("fence_topology") or []:  # leaky fences, checked before the run
+            if t.get("warning"):
+                sec.paragraph(t["warning"])
     else:
         sec.paragraph("This run has no corridors, fences or refuges.")
 
