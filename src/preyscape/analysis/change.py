@@ -86,7 +86,7 @@ TIME_TOLERANCE = 1e-9
 
 
 # --- windows -----------------------------------------------------------------------------
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Window:
     """The snapshots two or more runs are compared on.
 
@@ -176,7 +176,7 @@ def window_of(times: Sequence[np.ndarray], years: tuple[float, float | None] | N
 
 
 # --- per-cell statistics of one run ------------------------------------------------------------
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class WindowStatistics:
     """Per-cell statistics of one species in one run over a window.
 
@@ -263,7 +263,7 @@ def window_statistics(frames: Iterable[np.ndarray] | Callable[[], Iterable[np.nd
 
 
 # --- level ----------------------------------------------------------------------------------
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class LevelChange:
     """Change of the level of one species between runs A and B, per cell.
 
@@ -329,7 +329,7 @@ def level_change(a: WindowStatistics, b: WindowStatistics, *, threshold: float,
 
 
 # --- timing ---------------------------------------------------------------------------------
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class ArrivalDelay:
     """When a species arrives in B compared with A, per cell.
 

@@ -228,7 +228,7 @@ def zone_table(
 # ---------------------------------------------------------------------------
 # the comparison of alternatives
 # ---------------------------------------------------------------------------
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Zoning:
     """One way of cutting the landscape into zones for the tables.
 
@@ -254,7 +254,7 @@ class Zoning:
     alternatives: tuple[str, ...] = ()
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Comparison:
     """What each alternative changes against the reference run (see :func:`compare`).
 
@@ -413,7 +413,7 @@ def _zonings(runs: Sequence[RunResults], labels: list[str], zones: Path | None,
     return out + list(sides.values())
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class RunSpecies:
     """One run's statistics of one species: the window, arrival times and target times."""
 
