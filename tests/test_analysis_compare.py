@@ -1,7 +1,8 @@
-"""Comparing two runs: preyscape.analysis.compare and preyscape.analysis.compare_output.
+"""Comparing alternatives with a reference run: preyscape.analysis.compare, .ranking,
+.compare_output and .compare_report.
 
-Two small synthetic runs are written with the real ResultWriter. Units: animals
-per km², km², years.
+Small synthetic runs are written with the real ResultWriter; the fence cases run the
+model on the tiny landscape of ``conftest.py``. Units: animals per km², km², years.
 """
 
 from __future__ import annotations
@@ -10,21 +11,16 @@ import csv
 import json
 from pathlib import Path
 
+import conftest as ct
 import numpy as np
 import pytest
 import rasterio
 import xarray as xr
 from rasterio.crs import CRS
 
-from preyscape.analysis.compare import (
-    change_classes,
-    check_same_grid,
-    compare_runs,
-    difference,
-    relative_change,
-    zone_table,
-)
-from preyscape.analysis.results import cell_statistics as run_statistics
+from preyscape.analysis.change import level_change, window_statistics
+from preyscape.analysis.compare import check_same_grid, compare, run_labels, zone_table
+from preyscape.analysis.results import open_run
 from preyscape.analysis.settings import AnalysisSettings
 from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
@@ -61,7 +57,7 @@ def frames(seed: int, n: int = len(TIMES), shape=SHAPE) -> tuple[np.ndarray, np.
 
 
 def write_run(folder: Path, prey, pred, times=TIMES, grid: Grid | None = None,
-              title="run", habitat=None) -> Path:
+              title="run", habitat=None, variant=None) -> Path:
     grid = grid or make_grid()
     folder.mkdir(parents=True)
     w = ResultWriter(folder / "results.nc", grid, {"prey": "bank vole", "predator": "stoat"},
@@ -70,7 +66,8 @@ def write_run(folder: Path, prey, pred, times=TIMES, grid: Grid | None = None,
         w.write(t, n, p)
     w.close()
     (folder / "run.json").write_text(json.dumps(
-        {"title": title, "species": {"prey": "bank vole", "predator": "stoat"}}))
+        {"title": title, "species": {"prey": "bank vole", "predator": "stoat"},
+         "variant": variant, "classes": {"1": "meadow", "2": "scrub"}}))
     return folder
 
 
@@ -87,70 +84,6 @@ def runs(tmp_path_factory):
     b = write_run(base / "b", *fb, title="Fernhollow with hedgerows")
     return {"base": base, "a": a, "b": b, "frames_a": fa, "frames_b": fb,
             "ds_a": open_results(a), "ds_b": open_results(b)}
-
-
-# ---------------------------------------------------------------------------
-# per-cell statistics and differences
-# ---------------------------------------------------------------------------
-def test_run_statistics_match_numpy_over_snapshots_after_start(runs):
-    # design requirement: statistics over the snapshots after t = 0, as store.time_means
-    prey = runs["frames_a"][0][1:]
-    mask = make_grid().mask
-    s = run_statistics(runs["ds_a"], "prey", presence=10.0)
-    assert s.snapshots == len(TIMES) - 1
-    for key, expect in (("mean", prey.mean(axis=0)), ("minimum", prey.min(axis=0)),
-                        ("maximum", prey.max(axis=0)),
-                        ("persistence", (prey >= 10.0).mean(axis=0))):
-        got = getattr(s, key)
-        assert got.dtype == np.float32
-        np.testing.assert_array_equal(got[mask], expect[mask].astype(np.float32), err_msg=key)
-        assert np.isnan(got[0, 0])
-
-
-def test_difference_maps_are_exactly_b_minus_a(runs):
-    # design requirement: difference maps are exactly B − A of the runs' own statistics
-    mask = make_grid().mask
-    sa = run_statistics(runs["ds_a"], "prey", presence=5.0)
-    sb = run_statistics(runs["ds_b"], "prey", presence=5.0)
-    d = difference(sa, sb)
-    pa, pb = runs["frames_a"][0][1:], runs["frames_b"][0][1:]
-    exact_mean = pb.mean(axis=0) - pa.mean(axis=0)  # exact: quarters, four snapshots
-    exact_pers = (pb >= 5.0).mean(axis=0) - (pa >= 5.0).mean(axis=0)
-    np.testing.assert_array_equal(d["mean"][mask], exact_mean[mask])
-    np.testing.assert_array_equal(d["persistence"][mask], exact_pers[mask])
-    assert np.isnan(d["mean"][0, 0]) and np.isnan(d["persistence"][0, 0])
-    cmp = compare_runs(runs["ds_a"], runs["ds_b"], presence=5.0)
-    np.testing.assert_array_equal(cmp["prey_mean_difference"].values[mask], exact_mean[mask])
-    assert cmp.attrs["same_times"] == 1
-
-
-def test_relative_change_is_nan_below_presence():
-    # design requirement: (B − A)/A where A >= presence, NaN elsewhere
-    a = np.array([10.0, 1.0, 0.99, np.nan, 4.0])
-    b = np.array([12.0, 0.5, 5.0, 1.0, 4.0])
-    rel = relative_change(a, b, presence=1.0)
-    np.testing.assert_allclose(rel[[0, 1, 4]], [0.2, -0.5, 0.0], rtol=1e-7)
-    assert np.isnan(rel[2]) and np.isnan(rel[3])
-
-
-def test_change_classes_at_the_threshold_edges():
-    # design requirement: changed when |B − A| > threshold·A (strictly) where A >= presence;
-    # when A < presence, changed only if B >= presence; encoding 0/1/2/3, −1 no data
-    #               exact 10%  >10%   -10%   < -10%  appears below  both below at presence
-    a = np.array([10.0, 10.0, 10.0, 10.0, 0.5, 0.5, 0.2, 1.0, 10.0])
-    b = np.array([11.0, 11.5, 9.0, 8.9, 1.0, 0.99, 0.9, 1.2, np.nan])
-    prey_changed = [False, True, False, True, True, False, False, True]
-    steady = np.full(a.shape, 20.0)
-    c = change_classes(a, b, steady, steady, threshold=0.10, presence=1.0)
-    assert c.dtype == np.int8
-    np.testing.assert_array_equal(c[:-1], np.where(prey_changed, 1, 0))
-    assert c[-1] == -1
-    # the same cases as predator: code 2; both species changing: 3
-    c2 = change_classes(steady, steady, a, b, threshold=0.10, presence=1.0)
-    np.testing.assert_array_equal(c2[:-1], np.where(prey_changed, 2, 0))
-    c3 = change_classes(a, b, a, b, threshold=0.10, presence=1.0)
-    np.testing.assert_array_equal(c3[:-1], np.where(prey_changed, 3, 0))
-    assert c2[-1] == -1 and c3[-1] == -1
 
 
 # ---------------------------------------------------------------------------
@@ -216,21 +149,98 @@ def test_mismatched_grids_are_refused(tmp_path, runs, kind, expect):
     assert "Fernhollow" in msg and "Ashby Fen" in msg and expect in msg
 
 
-def test_different_snapshot_times_are_allowed(tmp_path, runs):
-    # design requirement: each run's statistics over its own snapshots
-    prey, pred = frames(7, n=3)
-    other = write_run(tmp_path / "short", prey, pred, times=[0.0, 0.5, 1.0])
-    cmp = compare_runs(runs["ds_a"], open_results(other))
-    assert cmp.attrs["same_times"] == 0
-    assert cmp.attrs["prey_snapshots_b"] == 2
+def test_different_lengths_are_compared_at_common_times_with_a_warning(tmp_path, runs):
+    # design requirement (issue 10): runs of different lengths or snapshot times are
+    # compared at their common times only, and the comparison says so
+    prey, pred = frames(7, n=4)
+    other = write_run(tmp_path / "short", prey, pred, times=[0.0, 0.5, 1.0, 2.0])
+    result = compare(runs["a"], [other])
+    np.testing.assert_allclose(result.window.times, [1.0, 2.0])
+    assert any("different lengths or snapshot times" in w and "2 years" in w
+               for w in result.warnings)
     mask = make_grid().mask
-    np.testing.assert_allclose(cmp["prey_mean_b"].values[mask], prey[1:].mean(0)[mask])
+    got = result.maps["prey_mean"].sel(alternative="short").values
+    np.testing.assert_allclose(got[mask], prey[[2, 3]].mean(0)[mask], rtol=1e-6)
+    base = result.maps["prey_mean_base"].values
+    np.testing.assert_allclose(base[mask], runs["frames_a"][0][[1, 2]].mean(0)[mask],
+                               rtol=1e-6)
+
+
+def test_runs_on_different_grids_are_refused_by_compare(tmp_path, runs):
+    grid = make_grid(x0=X0 + 50.0)
+    prey, pred = frames(5)
+    other = write_run(tmp_path / "shifted", prey, pred, grid=grid, variant="shifted line")
+    with pytest.raises(InputError) as err:
+        compare(runs["a"], [runs["b"], other])
+    assert "'shifted line'" in str(err.value) and "west edge" in str(err.value)
 
 
 # ---------------------------------------------------------------------------
-# the product
+# the comparison of alternatives (synthetic runs)
 # ---------------------------------------------------------------------------
-def read_zones_csv(path: Path) -> list[dict]:
+def test_compare_maps_are_the_change_statistics_of_each_alternative(runs, tmp_path):
+    # design requirement: the maps hold, per alternative, exactly the statistics of
+    # preyscape.analysis.change computed from the runs' own snapshots
+    prey, pred = frames(9)
+    third = write_run(tmp_path / "c", prey, pred, variant="hedges")
+    settings = AnalysisSettings(presence=2.0, change_threshold=0.1)
+    result = compare(runs["a"], [runs["b"], third], settings=settings)
+    assert result.base == "a" and result.alternatives == ("b", "hedges")
+    assert result.maps["prey_level_change"].dims == ("alternative", "y", "x")
+    mask = make_grid().mask
+    base = runs["frames_a"]
+    for label, fr in (("b", runs["frames_b"]), ("hedges", (prey, pred))):
+        for k, sp in enumerate(("prey", "predator")):
+            sa = window_statistics(list(base[k][1:]), presence=2.0, mask=mask)
+            sb = window_statistics(list(fr[k][1:]), presence=2.0, mask=mask)
+            lc = level_change(sa, sb, threshold=0.1, presence=2.0)
+            got = result.maps[f"{sp}_level_change"].sel(alternative=label).values
+            np.testing.assert_array_equal(got, lc.classes)
+            diff = result.maps[f"{sp}_difference"].sel(alternative=label).values
+            np.testing.assert_allclose(diff[mask], (fr[k][1:].mean(0) - base[k][1:].mean(0))
+                                       [mask], rtol=1e-6, atol=1e-6)
+    assert list(result.ranking["alternative"]) == ["b", "hedges"]
+    assert result.ranking["rank"].isna().all()  # no goal: the order given
+
+
+@pytest.mark.parametrize("sp", ["prey", "predator"])
+def test_zone_rows_are_named_by_class_and_add_up_to_the_totals(runs, sp):
+    # design requirement: habitat classes carry their names; zones covering every data
+    # cell add up to the landscape totals written by the solver
+    result = compare(runs["a"], [runs["b"]])
+    rows = result.zones[result.zones["species"] == sp]
+    assert list(rows["zone"]) == ["meadow", "scrub"]
+    total = runs["ds_a"][f"{sp}_total"].values[1:].mean()
+    assert rows["mean_animals_base"].sum() == pytest.approx(total, rel=1e-6)
+    total_b = runs["ds_b"][f"{sp}_total"].values[1:].mean()
+    assert rows["mean_animals"].sum() == pytest.approx(total_b, rel=1e-6)
+
+
+def test_runs_are_named_by_variant_and_never_twice_the_same(tmp_path):
+    # design requirement (issue 10): never two identical labels
+    class Run:
+        def __init__(self, label, name):
+            self.label, self.path = label, Path(tmp_path / name)
+
+    labels = run_labels([Run("baseline", "x"), Run("fence", "y"), Run("fence", "z")])
+    assert labels == ["baseline", "fence (y)", "fence (z)"]
+    assert len(set(run_labels([Run("a", "x"), Run("a", "x")]))) == 2
+
+
+def test_years_and_goal_settings_are_validated():
+    s = AnalysisSettings.build({"years": [0, 4], "goal": "fewer-predators"})
+    assert s.years == (0.0, 4.0) and s.goal == "fewer-predators"
+    assert AnalysisSettings.build(None, {"years": "4:"}).years == (4.0, None)
+    with pytest.raises(InputError, match="--years: must be a window of years"):
+        AnalysisSettings.build(None, {"years": "four"}, {"years": "--years"})
+    with pytest.raises(InputError, match="--goal: must be one of fewer-predators"):
+        AnalysisSettings.build(None, {"goal": "fewer-weasels"}, {"goal": "--goal"})
+
+
+# ---------------------------------------------------------------------------
+# the written folder
+# ---------------------------------------------------------------------------
+def read_csv(path: Path) -> list[dict]:
     with open(path, newline="") as fh:
         return list(csv.DictReader(fh))
 
@@ -239,51 +249,46 @@ def test_write_comparison_end_to_end(runs):
     from preyscape.analysis.compare_output import write_comparison
 
     out = runs["base"] / "cmp"
-    summary = write_comparison(runs["a"], runs["b"], out,
+    summary = write_comparison(runs["a"], [runs["b"]], out,
                                settings=AnalysisSettings(change_threshold=0.1, presence=1.0))
-    for name in ("prey_mean_difference", "predator_mean_difference",
-                 "prey_persistence_difference", "predator_persistence_difference"):
-        assert (out / f"{name}.tif").is_file() and (out / f"{name}.png").is_file()
-    for name in ("prey_relative_change.tif", "predator_relative_change.tif", "change.tif",
-                 "change.png", "zones.csv", "totals.png", "comparison.json"):
+    for name in ("ranking.csv", "zones.csv", "sides.csv", "fences.csv", "totals.png",
+                 "comparison.json"):
         assert (out / name).is_file(), name
+    for sp in ("prey", "predator"):
+        for name in ("level_change.tif", "level_change.png", "difference.tif",
+                     "difference.png", "ratio.tif", "persistence_difference.tif",
+                     "arrival_delay.tif", "arrival_status.tif"):
+            assert (out / "b" / f"{sp}_{name}").is_file(), (sp, name)
     assert not list(out.parent.glob(".cmp.partial-*"))
-    grid = make_grid()
-    # design requirement: the rasters hold the analysis maps, on the run grid
-    cmp = compare_runs(runs["ds_a"], runs["ds_b"], threshold=0.1, presence=1.0)
-    with rasterio.open(out / "change.tif") as src:
+    # the rasters hold the maps, on the run grid, with the no-data code
+    result = compare(runs["a"], [runs["b"]],
+                     settings=AnalysisSettings(change_threshold=0.1, presence=1.0))
+    with rasterio.open(out / "b" / "predator_level_change.tif") as src:
         assert src.crs.to_epsg() == 32633
         assert src.transform.c == X0 and src.transform.f == Y0
-        assert src.nodata == -1
-        np.testing.assert_array_equal(src.read(1), cmp["change"].values)
-    with rasterio.open(out / "prey_mean_difference.tif") as src:
-        np.testing.assert_array_equal(src.read(1)[grid.mask],
-                                      cmp["prey_mean_difference"].values[grid.mask])
+        assert src.nodata == -128
+        np.testing.assert_array_equal(
+            src.read(1), result.maps["predator_level_change"].sel(alternative="b").values)
     rec = json.loads((out / "comparison.json").read_text())
-    assert sum(rec["changed_cells"].values()) == grid.n_cells
-    assert rec["changed_cells"] == summary.changed_cells
-    assert rec["changed_area_km2"]["both"] == pytest.approx(rec["changed_cells"]["both"] * 0.01)
-    assert rec["settings"]["zone_source"] == "habitat classes"
-    assert rec["zones"] == ["class 1", "class 2"]
-    # zone table: default zones are the habitat classes; they add up to the totals
-    rows = read_zones_csv(out / "zones.csv")
-    assert [(r["zone"], r["species"]) for r in rows] == [
-        ("class 1", "prey"), ("class 1", "predator"), ("class 2", "prey"),
-        ("class 2", "predator")]
-    for sp in ("prey", "predator"):
-        mine = [r for r in rows if r["species"] == sp]
-        for run, ds in (("a", runs["ds_a"]), ("b", runs["ds_b"])):
-            got = sum(float(r[f"mean_animals_{run}"]) for r in mine)
-            assert got == pytest.approx(ds[f"{sp}_total"].values[1:].mean(), rel=1e-5)
-        for r in mine:  # the CSV keeps 6 significant digits
-            a, b = float(r["mean_density_a"]), float(r["mean_density_b"])
-            assert float(r["mean_density_b_minus_a"]) == pytest.approx(b - a, rel=1e-4, abs=1e-4)
+    assert rec["base"] == "a" and rec["alternatives"] == ["b"]
+    assert rec["window"]["snapshots"] == 4 and rec["window"]["same_times"]
+    assert set(rec["files"]) >= {"ranking.csv", "b/prey_level_change.png"}
+    rows = read_csv(out / "ranking.csv")
+    assert [r["alternative"] for r in rows] == ["b"]
+    assert summary.ranking[0]["alternative"] == "b"
+    assert summary.summary_lines()[0].startswith("comparison of 1 alternative with a")
+    # the report's parts: the ranking and the change maps are the answer
+    parts = summary.report_parts()
+    assert parts[0].title == "Ranking of the alternatives" and parts[0].place == "answer"
+    assert any(p.title == "Change: a → b" and p.place == "answer" for p in parts)
+    assert summary.headlines() and all(h.endswith(".") for h in summary.headlines())
     # an existing folder is refused unless overwrite is asked for
     with pytest.raises(InputError, match="already exists"):
         write_comparison(runs["a"], runs["b"], out)
     write_comparison(runs["a"], runs["b"], out, settings=AnalysisSettings(change_threshold=0.5),
                      overwrite=True)
-    assert json.loads((out / "comparison.json").read_text())["settings"]["threshold"] == 0.5
+    assert json.loads((out / "comparison.json").read_text())["settings"][
+        "change_threshold"] == 0.5
 
 
 def test_write_comparison_refuses_bad_input(runs, tmp_path):
@@ -296,28 +301,25 @@ def test_write_comparison_refuses_bad_input(runs, tmp_path):
                          settings=AnalysisSettings(presence=0.0))
     with pytest.raises(InputError, match="zone file not found"):
         write_comparison(runs["a"], runs["b"], tmp_path / "o3", zones=tmp_path / "nope.tif")
-    assert not (tmp_path / "o1").exists() and not (tmp_path / "o3").exists()
+    with pytest.raises(InputError, match="no common snapshot lies in years 10–12"):
+        write_comparison(runs["a"], runs["b"], tmp_path / "o4",
+                         settings=AnalysisSettings(years=(10.0, 12.0)))
+    assert not any((tmp_path / f"o{k}").exists() for k in range(1, 5))
 
 
-def test_write_comparison_with_raster_zones(runs, tmp_path):
-    from preyscape.analysis.compare_output import write_comparison
-
+def test_compare_with_raster_zones(runs, tmp_path):
     grid = make_grid()
     z = np.full(SHAPE, 7, dtype=np.uint8)
     z[3:, :] = 9  # north and south halves
     write_geotiff(tmp_path / "zones.tif", grid, z, nodata=0, dtype="uint8")
-    out = tmp_path / "cmp"
-    summary = write_comparison(runs["a"], runs["b"], out, zones=tmp_path / "zones.tif")
-    assert summary.record["zones"] == ["zone 7", "zone 9"]
-    rows = read_zones_csv(out / "zones.csv")
-    north = [r for r in rows if r["zone"] == "zone 7" and r["species"] == "prey"][0]
+    rows = compare(runs["a"], runs["b"], zones=tmp_path / "zones.tif").zones
+    north = rows[(rows["zone"] == "zone 7") & (rows["species"] == "prey")].iloc[0]
     # 3 rows x 8 cols minus the no-data corner, cells of 0.01 km²
     assert float(north["area_km2"]) == pytest.approx(23 * 0.01)
+    assert north["zoning"] == "zone"
 
 
-def test_write_comparison_with_polygon_zones(runs, tmp_path):
-    from preyscape.analysis.compare_output import write_comparison
-
+def test_compare_with_polygon_zones(runs, tmp_path):
     # two invented parcels: the western and eastern halves of the grid
     def square(x0, x1):
         return [[[x0, Y0], [x1, Y0], [x1, Y0 - 600], [x0, Y0 - 600], [x0, Y0]]]
@@ -332,14 +334,137 @@ def test_write_comparison_with_polygon_zones(runs, tmp_path):
           ]}
     path = tmp_path / "parcels.geojson"
     path.write_text(json.dumps(fc))
-    out = tmp_path / "cmp"
-    summary = write_comparison(runs["a"], runs["b"], out, zones=path, zone_field="parcel")
-    assert sorted(summary.record["zones"]) == ["High Leys", "Low Copse"]
-    assert summary.record["settings"]["zone_source"] == "polygons"
-    rows = [r for r in read_zones_csv(out / "zones.csv") if r["species"] == "prey"]
+    zones = compare(runs["a"], runs["b"], zones=path, zone_field="parcel").zones
+    rows = [r for r in zones.to_dict("records") if r["species"] == "prey"]
     area = {r["zone"]: float(r["area_km2"]) for r in rows}
     assert area["Low Copse"] == pytest.approx(23 * 0.01)  # 6 x 4 cells less the corner
     assert area["High Leys"] == pytest.approx(24 * 0.01)
-    got = sum(float(r["mean_animals_a"]) for r in rows)
+    got = sum(float(r["mean_animals_base"]) for r in rows)
     # design requirement: zones covering the landscape add up to the totals
     assert got == pytest.approx(runs["ds_a"]["prey_total"].values[1:].mean(), rel=1e-5)
+
+
+# ---------------------------------------------------------------------------
+# fences in real runs of the tiny landscape
+# ---------------------------------------------------------------------------
+FENCE_COL = 15  # along the face line between columns 14 and 15
+
+
+def fence_line(y_end: float) -> dict:
+    x = ct.X0 + FENCE_COL * ct.DX
+    return {"type": "LineString", "coordinates": [[x, ct.Y0 + 500.0], [x, y_end]]}
+
+
+@pytest.fixture(scope="module")
+def fence_runs(tmp_path_factory):
+    """Baseline and three predator fences at column 15: complete, 3 cells short, gated."""
+    from preyscape.runfolder import simulate_variants
+
+    folder = tmp_path_factory.mktemp("fences")
+    ct.make_landscape(folder)
+    crs = {"type": "name", "properties": {"name": "urn:ogc:def:crs:EPSG::32633"}}
+    for name, geom in (("complete", fence_line(ct.Y0 - 3000.0)),
+                       ("short", fence_line(ct.Y0 - 21 * ct.DX))):
+        (folder / f"{name}.geojson").write_text(json.dumps(
+            {"type": "FeatureCollection", "crs": crs, "features": [
+                {"type": "Feature", "properties": {}, "geometry": geom}]}))
+    perm = {"prey": 1.0, "predator": 0.0}
+    gap = [{"x": ct.X0 + FENCE_COL * ct.DX, "y": ct.Y0 - 4.5 * ct.DX, "width": 40.0}]
+    over = {
+        "measures": [
+            {"name": "full line", "kind": "fence", "geometry": "complete.geojson",
+             "permeability": perm, "baseline": False},
+            {"name": "short line", "kind": "fence", "geometry": "short.geojson",
+             "permeability": perm, "baseline": False},
+            {"name": "gated line", "kind": "fence", "geometry": "complete.geojson",
+             "permeability": perm, "baseline": False, "gaps": gap},
+        ],
+        "variants": [{"name": "full", "add": ["full line"]},
+                     {"name": "short", "add": ["short line"]},
+                     {"name": "gated", "add": ["gated line"]}],
+        # a denser, slower and faster-growing predator than the base scenario's, so its
+        # front reaches the fence within the run
+        "start.releases.0.density": 200.0, "predator.diffusivity": 0.3,
+        "prey.capacity": 3000.0,
+        "run.years": 1.5, "run.save_every": 0.125, "run.step": 0.0125,
+        "analysis": {"predator_threshold": 1.0, "goal": "fewer-predators"},
+    }
+    path = folder / "fences.toml"
+    path.write_text(ct.to_toml(ct.apply_overrides(ct.BASE, over)))
+    return simulate_variants(path, folder / "runs", maps=False, progress=False)
+
+
+def test_fence_alternatives_are_ranked_and_the_leaky_one_is_named(fence_runs):
+    r = fence_runs
+    result = compare(r["baseline"], [r["short"], r["full"], r["gated"]])
+    rank = result.ranking.set_index("alternative")
+    assert rank.loc["full", "rank"] == 1  # the complete fence keeps most predators out
+    assert rank.loc["full", "predator_window_change_pct"] < rank.loc[
+        "short", "predator_window_change_pct"]
+    assert rank.loc["short", "open_ends"] == 1 and rank.loc["full", "open_ends"] == 0
+    assert rank.loc["short", "leaky"] == "short line"
+    assert rank.loc["gated", "open_ends"] == 0  # a drawn gate is not a leak
+    leak = [w for w in result.warnings if "'short line'" in w]
+    assert len(leak) == 1 and "300 m from the landscape edge" in leak[0]
+    # where predators are gone: only beyond the complete fence
+    gone = result.maps["predator_level_change"].sel(alternative="full").values == -2
+    assert gone.any() and not gone[:, :FENCE_COL].any()
+    # the sides of each fence: west and east, 15 columns each
+    sides = result.sides[(result.sides["alternative"] == "short")
+                         & (result.sides["species"] == "predator")]
+    assert sorted(sides["side"]) == ["east", "west"]
+    west = sides[sides["side"] == "west"].iloc[0]
+    assert west["area_km2"] == pytest.approx((24 * 15 - 3) * 0.01)  # less the no-data cells
+
+
+def test_arrival_delay_is_the_difference_of_the_arrival_maps(fence_runs):
+    # design requirement (issue 10): the delay map is exactly t_alternative − t_base where
+    # the species arrives in both, computed here independently from each run's file
+    from preyscape.analysis.waves import arrival_time_of_run
+
+    r = fence_runs
+    result = compare(r["baseline"], [r["short"]])
+    ta = arrival_time_of_run(open_run(r["baseline"]).ds, "predator", 1.0)
+    tb = arrival_time_of_run(open_run(r["short"]).ds, "predator", 1.0)
+    delay = result.maps["predator_arrival_delay"].sel(alternative="short").values
+    status = result.maps["predator_arrival_status"].sel(alternative="short").values
+    both = status == 0
+    assert both.sum() > 100
+    np.testing.assert_allclose(delay[both], (tb - ta)[both], rtol=0, atol=1e-6)
+    # the front goes round the open end: later east of the fence, not west of it
+    assert np.nanmean(delay[:, FENCE_COL + 2:]) > 0.05
+    assert np.nanmax(np.abs(delay[:, :FENCE_COL - 3])) < 0.02
+
+
+def test_no_net_flow_through_an_impassable_fence_and_the_gap_carries_it_all(fence_runs):
+    # conservation of animals (divergence theorem, textbook): with every face of the
+    # fence line closed to predators the net flow across the line is exactly 0 at every
+    # snapshot; with one gate, the flow across the whole line is the flow through the gate
+    from preyscape.analysis.effects import net_flux, transect_faces, transect_flux
+
+    line = [(ct.X0 + FENCE_COL * ct.DX, ct.Y0 + 500.0), (ct.X0 + FENCE_COL * ct.DX, ct.Y0 - 3000.0)]
+    full = open_run(fence_runs["full"])
+    _, flow = transect_flux(full.ds, full.operators(), line, "predator")
+    assert np.all(flow == 0.0)
+    gated = open_run(fence_runs["gated"])
+    times, flow = transect_flux(gated.ds, gated.operators(), line, "predator")
+    assert np.abs(flow).max() > 0
+    fx, fy, sx, sy = transect_faces(line, gated.grid)
+    gate = np.zeros_like(fx)
+    gate[4, FENCE_COL] = True
+    op = gated.operators()[0]
+    through_gate = net_flux((u for _, u in gated.frames("predator", range(times.size))),
+                            times, op["predator_cx"], op["predator_cy"], op["predator_w"],
+                            gate, np.zeros_like(fy), sx, sy, gated.grid.cell_area_km2)
+    np.testing.assert_allclose(flow, through_gate, rtol=1e-12, atol=0)
+
+
+def test_run_record_holds_each_fence_topology(fence_runs):
+    # design requirement (issue 10): the same facts as `check` go into run.json
+    full = json.loads((fence_runs["full"] / "run.json").read_text())["fence_topology"]
+    short = json.loads((fence_runs["short"] / "run.json").read_text())["fence_topology"]
+    assert [t["name"] for t in full] == ["full line"] and full[0]["separates"]
+    assert full[0]["open_ends"] == [] and full[0]["warning"] is None
+    assert short[0]["open_ends"][0]["way_round_m"] == 300.0
+    assert "'short line'" in short[0]["warning"]
+    assert json.loads((fence_runs["baseline"] / "run.json").read_text())["fence_topology"] == []

@@ -295,26 +295,63 @@ def test_check_prints_measures_and_variants(variant_runs, capsys):
     assert "measure             fence 'predator fence': 24 cell faces (in variants fenced)" in text
     assert "variant             fenced: +predator fence" in text
     assert "variant             no-refuge: -fen refuge" in text
+    # the fence's topology, checked before any run: edge to edge, it separates (15 columns
+    # of 24 cells on either side, less the no-data cells)
+    assert ("fence topology      fence 'predator fence' [fenced], stops predators: 2.4 km, "
+            "24 faces; separates the landscape into 3.58 and 3.57 km²") in text
+    assert "WARNING" not in text
 
 
-def test_compare_writes_folder_and_prints_changed_areas(variant_runs, capsys):
+def test_check_warns_when_a_fence_can_be_walked_round(write_scenario, capsys):
+    # design requirement (issue 10): a fence meant to stop predators that ends 300 m
+    # short of the southern edge is named, with where and how wide the way round is
+    from test_runfolder import geojson
+
+    folder = write_scenario().parent
+    x = X0 + FENCE_COL * DX
+    geojson(folder / "short.geojson", {"type": "LineString",
+                                       "coordinates": [[x, Y0 + 500.0], [x, Y0 - 2100.0]]})
+    path = write_scenario({"measures": [
+        {"name": "north spur", "kind": "fence", "geometry": "short.geojson",
+         "permeability": {"prey": 1.0, "predator": 0.0}}]}, name="short.toml")
+    assert main(["check", str(path)]) == 0
+    text = capsys.readouterr().out
+    where = "x 501\u2009500 m, y 4\u2009997\u2009900 m"  # thin spaces between thousands
+    assert f"does not separate the landscape; open end at {where} (way round 300 m)" in text
+    warning = next(line for line in text.splitlines() if line.startswith("WARNING"))
+    assert "Fence 'north spur' is meant to stop predators (weasel)" in warning
+    assert "300 m from the landscape edge" in warning
+    assert main(["check", str(path), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    end = d["fence_topology"][0]["open_ends"][0]
+    assert end["way_round_m"] == 300.0 and d["fence_topology"][0]["separates"] is False
+
+
+def test_compare_writes_folder_and_prints_the_ranking(variant_runs, capsys):
     out = variant_runs["out"]
-    a, b = out / "baseline", out / "fenced"
-    status = main(["compare", str(a), str(b)])
+    a, b, c = out / "baseline", out / "fenced", out / "no-refuge"
+    status = main(["compare", str(a), str(b), str(c), "--years", "0:0.5", "--goal",
+                   "fewer-predators"])
     text = capsys.readouterr().out
     assert status == 0
-    folder = out / "compare-baseline-fenced"  # the default: beside run B
-    assert f"comparison: {folder}" in text
-    for f in ("change.tif", "change.png", "zones.csv", "comparison.json"):
+    folder = out / "compare-baseline-fenced-no-refuge"  # the default: beside the first
+    assert text.startswith("comparison of 2 alternatives with baseline, years 0–0.5")
+    assert str(folder) in text.splitlines()[0]
+    for f in ("ranking.csv", "zones.csv", "sides.csv", "fences.csv", "comparison.json",
+              "fenced/predator_level_change.png", "no-refuge/prey_arrival_delay.tif"):
         assert (folder / f).is_file(), f
     rec = json.loads((folder / "comparison.json").read_text())
-    cells = rec["changed_cells"]
-    assert sum(cells.values()) == SHAPE[0] * SHAPE[1] - len(NODATA_CELLS)
-    for k, n in cells.items():
-        line = next(x for x in text.splitlines() if x.strip().startswith(k))
-        assert str(n) in line.split() and "km²" in line
-        # 100 m cells: 0.01 km² each
-        assert float(line.split()[-2]) == pytest.approx(n * 0.01, rel=1e-3)
+    assert [r["alternative"] for r in rec["ranking"]] == [
+        line.split()[1] for line in text.splitlines()[3:5]]
+    assert rec["settings"]["goal"] == "fewer-predators"
+
+
+def test_compare_bad_years_is_one_clean_error(variant_runs, capsys):
+    out = variant_runs["out"]
+    status = main(["compare", str(out / "baseline"), str(out / "fenced"), "--years", "3-4"])
+    cap = capsys.readouterr()
+    assert status == 2 and cap.err.count("preyscape: error:") == 1
+    assert "--years" in cap.err and "A:B" in cap.err and "Traceback" not in cap.err
 
 
 def write_transects(path: Path) -> Path:

@@ -1,8 +1,10 @@
 """End to end: ``preyscape demo`` runs, compares and reports the bundled Veldrun Moor.
 
 This is the one slow test module (the demo runs four 8-year variants on a
-400 x 400 grid, about a minute and a half): the demo is run once, through
-``preyscape.cli.main``, and every test reads its output.
+400 x 400 grid, about two minutes): the demo is run once, through
+``preyscape.cli.main``, and every test reads its output. ``check`` on the
+three-fence scenario (no runs) is tested here too, as it belongs to the bundled
+landscapes.
 """
 
 from __future__ import annotations
@@ -65,7 +67,7 @@ def test_demo_exits_0_and_prints_its_folders(demo):
     text = demo["stdout"]
     for name in VARIANTS:
         assert f"run folder: {out / name}" in text
-    assert f"comparison baseline → fence: {out / 'compare-fence'}" in text
+    assert f"comparison baseline → fence, corridor: {out / 'compare'}" in text
     assert f"report: {out / 'report.html'}" in text
     assert "Traceback" not in demo["stderr"]
 
@@ -75,13 +77,17 @@ def test_demo_writes_runs_comparisons_and_report(demo):
     for name in VARIANTS:
         assert (out / name / "results.nc").is_file() and (out / name / "run.json").is_file()
         assert json.loads((out / name / "run.json").read_text())["variant"] == name
-    for name in ("fence", "corridor"):
-        folder = out / f"compare-{name}"
-        for f in ("change.tif", "change.png", "zones.csv"):
-            assert (folder / f).is_file() and (folder / f).stat().st_size > 0, f
-        with open(folder / "zones.csv", newline="") as fh:
-            rows = list(csv.DictReader(fh))
-        assert {r["species"] for r in rows} == {"prey", "predator"}
+    folder = out / "compare"
+    for f in ("ranking.csv", "zones.csv", "sides.csv", "fences.csv", "totals.png",
+              "fence/predator_level_change.png", "fence/predator_arrival_delay.png",
+              "corridor/predator_level_change.png"):
+        assert (folder / f).is_file() and (folder / f).stat().st_size > 0, f
+    with open(folder / "zones.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert {r["species"] for r in rows} == {"prey", "predator"}
+    assert {r["zone"] for r in rows} >= {"open grassland", "forest"}  # classes by name
+    with open(folder / "ranking.csv", newline="") as fh:
+        assert [r["alternative"] for r in csv.DictReader(fh)] == ["fence", "corridor"]
     assert (out / "report.html").is_file()
     # no temporary folders left behind (runs, comparisons and the report's work folder)
     assert not [p.name for p in out.iterdir() if p.name.startswith(".")]
@@ -135,3 +141,70 @@ def test_demo_again_without_overwrite_is_refused(demo):
     assert stdout == ""
     assert sorted(p.name for p in out.iterdir()) == before
 
+
+
+def level_classes(out, alternative: str, sp: str) -> np.ndarray:
+    import rasterio
+
+    with rasterio.open(out / "compare" / alternative / f"{sp}_level_change.tif") as src:
+        return src.read(1)
+
+
+def test_demo_fence_no_longer_marks_almost_the_whole_landscape(demo):
+    # design requirement (issue 10): the old rule (time mean changed by more than 10 %)
+    # marked nearly every cell; the level change marks the side the weasels cannot
+    # reach (gone), and no more than half of the reserve
+    out = demo["out"]
+    with np.load(out / "fence" / "measures" / "eastfield-fence_faces.npz") as z:
+        fx, fy = z["between_columns"], z["between_rows"]
+    with xr.open_dataset(out / "baseline" / "results.nc", decode_times=False) as ds:
+        grid = grid_of(ds)
+        base = ds["predator"].values[1:].mean(axis=0)
+    with xr.open_dataset(out / "fence" / "results.nc", decode_times=False) as ds:
+        alt = ds["predator"].values[1:].mean(axis=0)
+    release = demo_scenario().start.releases[0]
+    labels = sides_of_fence(grid.mask, fx, fy)
+    east = grid.mask & (labels != labels[grid.rowcol(release.x, release.y)])
+    old = grid.mask & (np.abs(alt - base) > 0.1 * base)
+    assert old.sum() > 0.6 * grid.mask.sum()  # the old false alarm, for the record
+    for sp in ("prey", "predator"):
+        cls = level_classes(out, "fence", sp)
+        changed = grid.mask & (cls != 0)
+        assert changed.sum() < 0.5 * grid.mask.sum(), sp
+    gone = level_classes(out, "fence", "predator") == -2
+    assert np.array_equal(gone, east)  # weasels gone exactly where they cannot get
+
+
+def test_demo_corridor_changes_predators_along_the_rides(demo):
+    # the redesigned corridor: more weasels on more than 1 km², on and beside the rides
+    out = demo["out"]
+    cls = level_classes(out, "corridor", "predator")
+    area = 0.025 ** 2
+    assert (cls > 0).sum() * area > 1.0
+    import rasterio
+    from scipy.ndimage import distance_transform_edt
+
+    with rasterio.open(out / "corridor" / "measures" / "forest-rides.tif") as src:
+        rides = src.read(1) == 1
+    near = distance_transform_edt(~rides) * 25.0 <= 200.0  # metres
+    assert ((cls > 0) & near).sum() >= 0.9 * (cls > 0).sum()
+
+
+def test_report_answers_first_with_the_ranking(demo):
+    doc = (demo["out"] / "report.html").read_text(encoding="utf-8")
+    assert "Ranking of the alternatives" in doc
+    assert html.escape("Change: baseline → fence") in doc
+
+
+def test_check_of_three_fence_alignments_names_the_leaky_one():
+    # the bundled planning example (docs/planning.md): one of three alignments ends short
+    # of the southern rim, and check says where the weasels get round it
+    from preyscape.demo import landscapes_dir
+
+    status, stdout, _ = run_main(["check", str(landscapes_dir() / "veldrun_moor_fences.toml")])
+    assert status == 0
+    lines = [ln for ln in stdout.splitlines() if ln.startswith("WARNING")]
+    assert len(lines) == 1
+    assert "Fence 'eastfield short' is meant to stop predators (least weasel)" in lines[0]
+    assert "from the landscape edge" in lines[0]
+    assert sum("separates the landscape into" in ln for ln in stdout.splitlines()) == 2

@@ -19,6 +19,7 @@ _LAZY = {
     "prepare": "preyscape.assemble",
     "derived": "preyscape.assemble",
     "open_run": "preyscape.analysis.results",
+    "compare": "preyscape.analysis.compare",
     "AnalysisSettings": "preyscape.analysis.settings",
     "write_report": "preyscape.report.run_report",
     "PreyscapeError": "preyscape.errors",

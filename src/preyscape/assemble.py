@@ -43,7 +43,8 @@ from preyscape.scenario import MeasureSpec, Scenario
 from preyscape.solve.stepper import Stepper, StepStats, auto_step
 
 __all__ = ["Epoch", "Setup", "check_variant_measures", "derived", "epoch_state",
-           "interaction_of", "measure_epochs", "place_measures", "place_targets", "prepare"]
+           "fence_topology", "interaction_of", "measure_epochs", "place_measures",
+           "place_targets", "prepare", "variant_fence_topology"]
 
 Epoch = tuple[float, float, tuple[str, ...]]
 """``(t0, t1, names of the measures acting in [t0, t1))``, years."""
@@ -483,11 +484,47 @@ def derived(setup: Setup) -> dict:
         "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
         "snapshots": n_snap,
         "measures": [m.summary(g.cell_area_km2) for m in setup.measures],
+        "fence_topology": fence_topology(sc, g, setup.measures),
         "variants": [
             {"name": v.name, "add": list(v.add), "remove": list(v.remove), "set": dict(v.set)}
             for v in sc.variants
         ],
     }
+
+
+def fence_topology(sc: Scenario, grid: Grid, measures) -> list[dict]:
+    """Length, open ends and separation of each fence and closed refuge outline.
+
+    See :func:`preyscape.landscape.topology.measure_topologies`; the warnings
+    name the species as the scenario does.
+    """
+    from preyscape.landscape.topology import measure_topologies
+
+    who = {"prey": "prey", "predator": "predators"}
+    for sp, spec in (("prey", sc.prey), ("predator", sc.predator)):
+        who[sp] += f" ({spec.name})" if spec.name else ""
+    return measure_topologies(grid, measures, who)
+
+
+def variant_fence_topology(scenarios: list[Scenario]) -> dict[str, list[dict]]:
+    """:func:`fence_topology` of every variant's measures, before any run.
+
+    Returns variant name to its records; variants without fences or closed
+    refuges are left out.
+    """
+    from preyscape.landscape.io import read_habitat
+
+    if not scenarios:
+        return {}
+    ls = scenarios[0].landscape
+    grid, _ = read_habitat(scenarios[0].resolve(ls.habitat), ls.values, ls.cell_size,
+                           source=_source(scenarios[0], f"landscape.habitat ({ls.habitat})"))
+    out = {}
+    for v in scenarios:
+        recs = fence_topology(v, grid, place_measures(v, grid))
+        if recs:
+            out[v.variant] = recs
+    return out
 
 
 def check_variant_measures(scenarios: list[Scenario]) -> list[dict]:

@@ -30,8 +30,9 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
     Parameters
     ----------
     out : pathlib.Path
-        Folder to create: one run folder per variant, ``compare-<variant>``
-        folders and ``report.html``.
+        Folder to create: one run folder per variant, ``compare`` (the
+        ``fence`` and ``corridor`` variants against the baseline, in one
+        folder) and ``report.html``.
     overwrite : bool
         Replace an existing ``out``.
     progress : bool, optional
@@ -42,8 +43,9 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
     Returns
     -------
     dict
-        ``runs`` (variant → run folder), ``comparisons`` (variant → folder)
-        and ``report`` (the HTML file).
+        ``runs`` (variant → run folder), ``comparisons`` (the compared
+        variants, joined by ", " → the comparison folder) and ``report``
+        (the HTML file).
     """
     from preyscape.analysis.compare_output import write_comparison
     from preyscape.analysis.settings import AnalysisSettings
@@ -63,14 +65,13 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
     runs = {name: out / folder.name for name, folder in done.items()}
     settings = AnalysisSettings.build(sc.analysis.model_dump(mode="json"),
                                       stored_as=f"{sc.path}: analysis")
+    compared = [n for n in ("fence", "corridor") if n in runs]
     comparisons = {}
-    for name in ("fence", "corridor"):
-        if name in runs:
-            say(f"comparing baseline with {name} ...")
-            done = write_comparison(runs["baseline"], runs[name], out / f"compare-{name}",
-                                    settings=settings)
-            comparisons[name] = done.folder
+    if compared:
+        say(f"comparing baseline with {' and '.join(compared)} ...")
+        done = write_comparison(runs["baseline"], [runs[n] for n in compared], out / "compare",
+                                settings=settings)
+        comparisons[", ".join(compared)] = done.folder
     say("writing the report ...")
-    others = [runs[n] for n in ("fence", "corridor") if n in runs]
-    report = write_report(runs["baseline"], out / "report.html", others)
+    report = write_report(runs["baseline"], out / "report.html", [runs[n] for n in compared])
     return {"runs": runs, "comparisons": comparisons, "report": report}

@@ -26,7 +26,14 @@ from pathlib import Path
 import numpy as np
 
 from preyscape import __version__, store
-from preyscape.assemble import Setup, check_variant_measures, place_targets, predictions, prepare
+from preyscape.assemble import (
+    Setup,
+    check_variant_measures,
+    fence_topology,
+    place_targets,
+    predictions,
+    prepare,
+)
 from preyscape.landscape.grid import Grid
 from preyscape.landscape.placed import Outline, PlacedMeasure
 from preyscape.names import slug
@@ -115,7 +122,8 @@ def _integrate(tmp: Path, setup: Setup, N: np.ndarray, P: np.ndarray, writer,
 
 
 def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_snapshots: int,
-            measures: list, targets: list, preds: dict, wall: float, compiled: float) -> dict:
+            measures: list, targets: list, preds: dict, wall: float, compiled: float,
+            topology: list | None = None) -> dict:
     return {
         "preyscape_version": __version__,
         "scenario": str(sc.path),
@@ -133,6 +141,7 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
                  "cells_with_data": grid.n_cells},
         "species": {"prey": sc.prey.name, "predator": sc.predator.name},
         "measures": measures,
+        "fence_topology": topology or [],
         "targets": targets,
         "epochs": [{"start_year": a, "end_year": b, "measures": list(n)}
                    for a, b, n in epochs],
@@ -194,6 +203,7 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
             habitat=habitat,
         )
         preds = predictions(setup)
+        topology = fence_topology(sc, grid, setup.measures)
         measures = store.write_measures(tmp / "measures", grid, setup.measures)
         outlines = [_outline(m) for m in setup.measures]
         targets = _write_targets(tmp, sc, grid)
@@ -209,7 +219,7 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
         if maps:
             draw_run_maps(tmp, sc, grid, habitat, means, finals, outlines)
         record = _record(sc, grid, dt, epochs, stats, writer.n, measures, targets, preds,
-                         time.perf_counter() - t0, compiled)
+                         time.perf_counter() - t0, compiled, topology)
         store.write_json(tmp / "run.json", record)
     return out
 

@@ -377,8 +377,17 @@ class AnalysisSpec(_Strict):
     prey_threshold: Positive | None = None
     predator_threshold: Positive | None = None
     change_threshold: Annotated[float, Field(gt=0, strict=True)] | None = None
+    years: tuple[NonNegative, NonNegative] | None = None   # compare's window [start, end]
+    goal: Literal["fewer-predators", "more-predators", "fewer-prey", "more-prey"] | None = None
     transects: tuple[Transect, ...] = ()
     targets: tuple[Target, ...] = ()
+
+    @field_validator("years")
+    @classmethod
+    def _window(cls, v):
+        if v is not None and v[1] <= v[0]:
+            raise ValueError(f"the window [start, end] must end after it starts, not {list(v)}")
+        return v
 
 
 class Scenario(_Strict):

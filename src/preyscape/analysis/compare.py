@@ -1,39 +1,60 @@
-"""Comparing two runs of the same landscape cell by cell and zone by zone.
+"""Comparing alternatives with a reference run: where, when and by how much each changes.
 
-Pure functions on results datasets (``xarray.open_dataset(folder / "results.nc",
-decode_times=False)``) and numpy arrays. Densities are animals per km², areas
-km², times years.
+:func:`compare` is the Python API behind ``preyscape compare BASE ALT1 [ALT2 ...]``:
+it reads a reference run (usually the baseline) and one or more alternatives
+of the same landscape and returns a typed :class:`Comparison` with
 
-The presence threshold, the snapshots used, the time mean and the persistence
-are defined once, in :mod:`preyscape.analysis.results`.
+* per-cell maps as an :class:`xarray.Dataset` over (alternative, y, x): the
+  window means, their difference, the timing margin, gains and losses of the
+  level (:func:`preyscape.analysis.change.level_change`), the change of
+  persistence, and the arrival delay of each species;
+* a ranking table (:class:`pandas.DataFrame`), one row per alternative;
+* tables per zone (habitat classes with their names, or polygons), per side
+  of each fence, and of each fence's topology (length, open ends, whether
+  it separates), with the warnings a planner must read.
 
-Two runs are compared only on the same grid (shape, cell size, position, CRS
-and data mask: :func:`check_same_grid`). Their snapshot times may differ:
-every statistic of a run is taken over that run's own snapshots, so a
-difference map compares the two runs' own time means and persistences. The
-landscape totals are compared as two curves on their own time axes.
+Densities are animals/km², areas km², times years. The statistics and why
+they single out places are explained in :mod:`preyscape.analysis.change`.
+Runs are named by their variant everywhere. Runs on different grids are
+refused (:func:`check_same_grid`); runs of different lengths or snapshot
+times are compared at their common times, with a warning.
+
+Examples
+--------
+``run_folder`` and ``other_run`` are finished runs of one scenario (its
+baseline and the variant ``fenced``):
+
+>>> result = compare(run_folder, [other_run])
+>>> result.base, result.alternatives
+('baseline', ('fenced',))
+>>> list(result.ranking["alternative"])
+['fenced']
+>>> result.maps["predator_level_change"].dims
+('alternative', 'y', 'x')
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-from preyscape.analysis.results import CellStatistics, cell_statistics
-from preyscape.analysis.settings import DEFAULTS
+from preyscape.analysis.results import RunResults, open_run
+from preyscape.analysis.settings import DEFAULTS, AnalysisSettings
 from preyscape.errors import InputError
 from preyscape.store import SPECIES, data_mask, frames, grid_of
+
+__all__ = ["CHANGE_THRESHOLD", "PRESENCE", "Comparison", "Zoning", "check_same_grid",
+           "compare", "load_zones", "run_labels", "zone_table"]
 
 PRESENCE = DEFAULTS["presence"]
 """Default presence threshold, animals/km² (:data:`~preyscape.analysis.settings.DEFAULTS`)."""
 
 CHANGE_THRESHOLD = DEFAULTS["change_threshold"]
-"""Default relative change of the time-mean density that counts as a change (10 %)."""
-
-CHANGE_CODES = {-1: "no data", 0: "no change", 1: "prey only", 2: "predator only", 3: "both"}
-"""Encoding of :func:`change_classes` (int8 per cell)."""
+"""Default smallest relative change of a level that matters (10 %)."""
 
 ZONE_STATISTICS = (
     "mean_density",
@@ -114,119 +135,6 @@ def check_same_grid(ds_a, ds_b, names: tuple[str, str] = ("A", "B")) -> None:
 
 
 # ---------------------------------------------------------------------------
-# per-cell statistics
-# ---------------------------------------------------------------------------
-def difference(stats_a: CellStatistics, stats_b: CellStatistics) -> dict[str, np.ndarray]:
-    """Maps of B − A for the time mean and the persistence.
-
-    Parameters
-    ----------
-    stats_a, stats_b : CellStatistics
-        Statistics of runs A and B (:func:`preyscape.analysis.results.cell_statistics`,
-        same grid).
-
-    Returns
-    -------
-    dict
-        ``"mean"``: B − A of the time-mean density, animals/km²;
-        ``"persistence"``: B − A of the persistence (−1 to 1); float32, NaN
-        off the data mask.
-    """
-    out = {}
-    for key in ("mean", "persistence"):
-        a = np.asarray(getattr(stats_a, key), dtype=np.float64)
-        b = np.asarray(getattr(stats_b, key), dtype=np.float64)
-        if a.shape != b.shape:
-            raise ValueError(f"{key} maps have shapes {a.shape} and {b.shape}")
-        out[key] = (b - a).astype(np.float32)
-    return out
-
-
-def relative_change(mean_a: np.ndarray, mean_b: np.ndarray,
-                    presence: float = PRESENCE) -> np.ndarray:
-    """Relative change (B − A) / A of the time-mean density, float32.
-
-    Parameters
-    ----------
-    mean_a, mean_b : numpy.ndarray
-        Time-mean densities of runs A and B, animals/km².
-    presence : float
-        Presence threshold, animals/km².
-
-    Returns
-    -------
-    numpy.ndarray
-        Dimensionless (0.1 = 10 % more in B). NaN where A is below the
-        presence threshold (a change relative to an absent population is
-        undefined; :func:`change_classes` treats those cells separately) and
-        where either map has no data.
-    """
-    _check_presence(presence)
-    a = np.asarray(mean_a, dtype=np.float64)
-    b = np.asarray(mean_b, dtype=np.float64)
-    ok = np.isfinite(a) & np.isfinite(b) & (a >= presence)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rel = np.where(ok, (b - a) / np.where(ok, a, 1.0), np.nan)
-    return rel.astype(np.float32)
-
-
-def _changed(a: np.ndarray, b: np.ndarray, threshold: float, presence: float) -> np.ndarray:
-    with np.errstate(invalid="ignore"):
-        above = a >= presence
-        rel = np.abs(b - a) > threshold * a
-        return np.where(above, rel, b >= presence)
-
-
-def change_classes(
-    mean_a_prey: np.ndarray,
-    mean_b_prey: np.ndarray,
-    mean_a_pred: np.ndarray,
-    mean_b_pred: np.ndarray,
-    *,
-    threshold: float = CHANGE_THRESHOLD,
-    presence: float = PRESENCE,
-) -> np.ndarray:
-    """Which species' time-mean density changes from run A to run B, per cell.
-
-    A species changes in a cell when
-
-    * A >= ``presence`` and |B − A| > ``threshold`` · A (strictly more than
-      the threshold, relative to A), or
-    * A < ``presence`` and B >= ``presence`` (the species appears).
-
-    Where both runs are below ``presence`` the species has not changed.
-
-    Parameters
-    ----------
-    mean_a_prey, mean_b_prey, mean_a_pred, mean_b_pred : numpy.ndarray
-        Time-mean densities of prey and predator in runs A and B,
-        animals/km², same shape.
-    threshold : float
-        Relative change that counts (0.10 = 10 %).
-    presence : float
-        Presence threshold, animals/km².
-
-    Returns
-    -------
-    numpy.ndarray of int8
-        0 no change, 1 prey only, 2 predator only, 3 both, −1 no data (any of
-        the four maps not finite); see :data:`CHANGE_CODES`.
-    """
-    _check_presence(presence)
-    if not (np.isfinite(threshold) and threshold >= 0):
-        raise ValueError(f"threshold must be a non-negative fraction, not {threshold!r}")
-    arrs = [np.asarray(v, dtype=np.float64) for v in
-            (mean_a_prey, mean_b_prey, mean_a_pred, mean_b_pred)]
-    if len({a.shape for a in arrs}) != 1:
-        raise ValueError("the four time-mean maps must have the same shape")
-    ok = np.logical_and.reduce([np.isfinite(a) for a in arrs])
-    prey = _changed(arrs[0], arrs[1], threshold, presence)
-    pred = _changed(arrs[2], arrs[3], threshold, presence)
-    code = prey.astype(np.int8) + 2 * pred.astype(np.int8)
-    return np.where(ok, code, -1).astype(np.int8)
-
-
-# ---------------------------------------------------------------------------
 # zones
 # ---------------------------------------------------------------------------
 def zone_table(
@@ -236,6 +144,7 @@ def zone_table(
     species: str,
     *,
     presence: float = PRESENCE,
+    indices: Sequence[int] | None = None,
 ) -> list[dict]:
     """Statistics of one species per zone, over the snapshots after the start.
 
@@ -252,6 +161,8 @@ def zone_table(
         ``"prey"`` or ``"predator"``.
     presence : float
         Presence threshold, animals/km².
+    indices : sequence of int, optional
+        The snapshots to use; default those after the start.
 
     Returns
     -------
@@ -285,7 +196,7 @@ def zone_table(
     occ_cells = np.zeros(nz)
     occ_zone = np.zeros(nz)
     n = 0
-    for _, u in frames(ds, species, mask=mask):
+    for _, u in frames(ds, species, indices, mask=mask):
         v = u[sel]
         animals = np.bincount(lab, weights=v, minlength=nz) * area_cell
         acc += animals
@@ -315,86 +226,230 @@ def zone_table(
 
 
 # ---------------------------------------------------------------------------
-# all maps at once
+# the comparison of alternatives
 # ---------------------------------------------------------------------------
-def compare_runs(ds_a, ds_b, *, threshold: float = CHANGE_THRESHOLD,
-                 presence: float = PRESENCE,
-                 names: tuple[str, str] = ("A", "B")):
-    """Compare two runs cell by cell: the maps of both runs and their differences.
+@dataclass(frozen=True, eq=False)
+class Zoning:
+    """One way of cutting the landscape into zones for the tables.
+
+    Attributes
+    ----------
+    kind : str
+        ``"habitat class"``, ``"zone"`` (a user file) or ``"side"`` (of a fence).
+    labels : numpy.ndarray of int
+        Zone of every cell, 0..k−1; −1 none.
+    names : tuple of str
+        Zone names, indexed by label.
+    fence : str or None
+        The fence whose sides these are.
+    alternatives : tuple of str
+        The alternatives the zoning belongs to (all for classes and zones;
+        those with the fence for sides).
+    """
+
+    kind: str
+    labels: np.ndarray
+    names: tuple[str, ...]
+    fence: str | None = None
+    alternatives: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True, eq=False)
+class Comparison:
+    """What each alternative changes against the reference run (see :func:`compare`).
+
+    Attributes
+    ----------
+    base : str
+        The reference run's name (its variant).
+    alternatives : tuple of str
+        The alternatives' names, in the order given.
+    window : Window
+        The years and common snapshot times compared
+        (:class:`preyscape.analysis.change.Window`).
+    maps : xarray.Dataset
+        Per species ``sp``: ``{sp}_mean_base`` (y, x) and, over (alternative,
+        y, x), ``{sp}_mean`` (window means, animals/km²), ``{sp}_difference``
+        (alternative − base), ``{sp}_margin`` (what a difference must exceed),
+        ``{sp}_ratio`` (difference / margin), ``{sp}_level_change`` (int8,
+        :data:`~preyscape.analysis.change.LEVEL_CODES`),
+        ``{sp}_persistence_difference``, ``{sp}_arrival_delay`` (years) and
+        ``{sp}_arrival_status`` (int8,
+        :data:`~preyscape.analysis.change.ARRIVAL_CODES`); int8 maps hold
+        −128 off the data mask.
+    ranking : pandas.DataFrame
+        One row per alternative (:func:`preyscape.analysis.ranking.ranking_table`).
+    zones : pandas.DataFrame
+        Per alternative, zone and species: the reference and the alternative.
+    sides : pandas.DataFrame
+        The same per side of each fence.
+    fences : pandas.DataFrame
+        Per alternative, line and species it stops: length, open ends,
+        separation (:mod:`preyscape.landscape.topology`).
+    warnings : tuple of str
+        Plain sentences: runs compared at common times only, fences that can
+        be walked round, a window shorter than a cycle.
+    settings : AnalysisSettings
+        The settings used.
+    """
+
+    base: str
+    alternatives: tuple[str, ...]
+    window: Any
+    maps: Any
+    ranking: Any
+    zones: Any
+    sides: Any
+    fences: Any
+    warnings: tuple[str, ...] = ()
+    settings: AnalysisSettings = field(default_factory=AnalysisSettings)
+
+
+def run_labels(runs: Sequence[RunResults]) -> list[str]:
+    """Each run's name (its variant); folder names, then numbers, keep them apart."""
+    labels = [r.label for r in runs]
+    if len(set(labels)) < len(labels):
+        labels = [r.label if labels.count(r.label) == 1 else f"{r.label} ({r.path.name})"
+                  for r in runs]
+    seen: dict[str, int] = {}
+    out = []
+    for lab in labels:
+        seen[lab] = seen.get(lab, 0) + 1
+        out.append(lab if seen[lab] == 1 else f"{lab} #{seen[lab]}")
+    return out
+
+
+def _open(run) -> RunResults:
+    return run if isinstance(run, RunResults) else open_run(run)
+
+
+def compare(base, alternatives, *, settings: AnalysisSettings | None = None,
+            zones: Path | None = None, zone_field: str | None = None) -> Comparison:
+    """Compare one or more alternatives with a reference run.
 
     Parameters
     ----------
-    ds_a, ds_b : xarray.Dataset
-        Results datasets of runs A (reference) and B, on the same grid.
-    threshold : float
-        Relative change of the time-mean density that counts as a change.
-    presence : float
-        Presence threshold, animals/km².
-    names : tuple of str
-        Names of the runs for error messages.
+    base : RunResults or path
+        The reference run (the landscape as it is).
+    alternatives : RunResults, path, or a sequence of them
+        The runs to compare with it, on the same grid.
+    settings : AnalysisSettings, optional
+        ``years`` (the window), ``change_threshold``, ``presence``, the
+        arrival thresholds and ``goal`` (how to rank); default the
+        reference run's own (keyword only).
+    zones : pathlib.Path, optional
+        Zones for the tables instead of the habitat classes
+        (:func:`load_zones`).
+    zone_field : str, optional
+        Polygon attribute naming the zones.
 
     Returns
     -------
-    xarray.Dataset
-        On the coordinates ``y``, ``x`` (metres) of run A, for each species
-        ``sp``: ``{sp}_mean_a``, ``{sp}_mean_b`` (animals/km²),
-        ``{sp}_persistence_a``, ``{sp}_persistence_b`` (0–1),
-        ``{sp}_mean_difference`` (B − A, animals/km²),
-        ``{sp}_persistence_difference`` (B − A), ``{sp}_relative_change``
-        ((B − A)/A); and ``change`` (int8, :data:`CHANGE_CODES`). Attributes
-        record ``threshold``, ``presence``, ``same_times`` (1 if both runs have
-        the same snapshot times) and the snapshot counts used.
+    Comparison
 
     Raises
     ------
     InputError
-        If the runs are not on the same grid (:func:`check_same_grid`).
-
-    Examples
-    --------
-    ``run_folder`` and ``other_run`` are finished runs of one scenario:
-
-    >>> import xarray as xr
-    >>> with xr.open_dataset(run_folder / "results.nc", decode_times=False) as a, \\
-    ...         xr.open_dataset(other_run / "results.nc", decode_times=False) as b:
-    ...     maps = compare_runs(a, b, presence=1.0)
-    >>> str(maps["change"].dtype), maps.attrs["same_times"]
-    ('int8', 1)
+        If a run lies on another grid (naming both runs), the runs share no
+        snapshot in the window, or the zone file is unusable.
+    FileProblem
+        If a folder is not a finished run.
     """
-    import xarray as xr
+    from preyscape.analysis import ranking
+    from preyscape.analysis.change import window_of
 
-    check_same_grid(ds_a, ds_b, names)
-    dims = ("y", "x")
-    data = {}
-    means = {}
-    attrs = {"threshold": float(threshold), "presence": float(presence),
-             "same_times": int(same_times(ds_a, ds_b))}
+    alts = [alternatives] if isinstance(alternatives, (str, Path, RunResults)) else list(
+        alternatives)
+    if not alts:
+        raise InputError("give at least one run to compare with the reference run",
+                         "alternatives")
+    runs = [_open(base)] + [_open(a) for a in alts]
+    labels = run_labels(runs)
+    for r, lab in zip(runs[1:], labels[1:], strict=True):
+        check_same_grid(runs[0].ds, r.ds, (f"'{labels[0]}' ({runs[0].path})",
+                                           f"'{lab}' ({r.path})"))
+    settings = settings or runs[0].settings()
+    try:
+        window = window_of([r.times for r in runs], settings.years)
+    except ValueError as err:
+        raise InputError(str(err), "years") from None
+    zonings = _zonings(runs, labels, zones, zone_field)
+    per_run = [_statistics(r, window.indices[k], window.upto_indices[k], window.upto,
+                           settings, zonings, runs[0].targets()) for k, r in enumerate(runs)]
+    maps = ranking.change_maps(runs[0].grid, per_run, labels, settings, window)
+    fences = ranking.fence_table(runs[1:], labels[1:])
+    tables = ranking.zone_tables(zonings, per_run, labels, runs[0].grid, settings.presence)
+    warn = (ranking.time_warnings(runs, labels, window, settings.years)
+            + ranking.fence_warnings(fences))
+    table = ranking.ranking_table(runs, labels, per_run, maps, window, fences, settings)
+    return Comparison(labels[0], tuple(labels[1:]), window, maps, table, tables["zones"],
+                      tables["sides"], fences, tuple(warn), settings)
+
+
+def _zonings(runs: Sequence[RunResults], labels: list[str], zones: Path | None,
+             zone_field: str | None) -> list[Zoning]:
+    """Habitat classes (or the user's zones) for all, and the sides of every fence."""
+    from preyscape.landscape.topology import fence_sides
+
+    base = runs[0]
+    lab, names, kind = load_zones(zones, zone_field, base.grid, base.ds, base.classes)
+    out = [Zoning("habitat class" if kind == "habitat classes" else "zone", lab,
+                  tuple(names), None, tuple(labels[1:]))]
+    sides: dict[str, Zoning] = {}
+    for run, name in zip(runs[1:], labels[1:], strict=True):
+        for m in run.measures:
+            faces = run.faces_of(m)
+            if faces is None:
+                continue
+            if m["name"] in sides:
+                z = sides[m["name"]]
+                sides[m["name"]] = Zoning(z.kind, z.labels, z.names, z.fence,
+                                          z.alternatives + (name,))
+                continue
+            side_labels, side_names = fence_sides(base.grid, faces)
+            if len(side_names) >= 2:
+                sides[m["name"]] = Zoning("side", side_labels, tuple(side_names),
+                                          m["name"], (name,))
+    return out + list(sides.values())
+
+
+@dataclass(frozen=True, eq=False)
+class RunSpecies:
+    """One run's statistics of one species: the window, arrival times and target times."""
+
+    stats: Any
+    arrival: np.ndarray
+    targets: dict
+
+
+def _statistics(run: RunResults, indices, upto_indices, upto_times, settings: AnalysisSettings,
+                zonings: list[Zoning], targets) -> dict[str, RunSpecies]:
+    """Window statistics, arrival-time map and target colonisation of each species."""
+    from preyscape.analysis.change import first_crossing, window_statistics
+    from preyscape.analysis.settings import COLONISED_SHARE
+    from preyscape.analysis.waves import arrival_time
+
+    mask = run.mask
+    out = {}
     for sp in SPECIES:
-        sa = cell_statistics(ds_a, sp, presence)
-        sb = cell_statistics(ds_b, sp, presence)
-        d = difference(sa, sb)
-        means[sp] = (sa.mean, sb.mean)
-        unit = {"units": "km-2"}
-        data[f"{sp}_mean_a"] = (dims, sa.mean, {**unit, "long_name": f"time-mean {sp}, A"})
-        data[f"{sp}_mean_b"] = (dims, sb.mean, {**unit, "long_name": f"time-mean {sp}, B"})
-        data[f"{sp}_persistence_a"] = (dims, sa.persistence, {"units": "1"})
-        data[f"{sp}_persistence_b"] = (dims, sb.persistence, {"units": "1"})
-        data[f"{sp}_mean_difference"] = (dims, d["mean"],
-                                         {**unit, "long_name": f"time-mean {sp}, B - A"})
-        data[f"{sp}_persistence_difference"] = (dims, d["persistence"], {"units": "1"})
-        data[f"{sp}_relative_change"] = (
-            dims, relative_change(sa.mean, sb.mean, presence), {"units": "1"})
-        attrs[f"{sp}_snapshots_a"] = sa.snapshots
-        attrs[f"{sp}_snapshots_b"] = sb.snapshots
-    change = change_classes(means["prey"][0], means["prey"][1], means["predator"][0],
-                            means["predator"][1], threshold=threshold, presence=presence)
-    data["change"] = (dims, change, {
-        "flag_values": np.array(sorted(CHANGE_CODES), dtype=np.int8),
-        "flag_meanings": " ".join(CHANGE_CODES[k].replace(" ", "_")
-                                  for k in sorted(CHANGE_CODES)),
-    })
-    coords = {"y": ds_a["y"].values, "x": ds_a["x"].values}
-    return xr.Dataset(data, coords=coords, attrs=attrs)
+        stats = window_statistics(lambda sp=sp: (u for _, u in run.frames(sp, indices)),
+                                  presence=settings.presence, mask=mask,
+                                  zones=[z.labels for z in zonings])
+        thr = settings.arrival_threshold(sp)
+        shares: dict[str, list[float]] = {name: [] for name, _ in targets}
+
+        def tracked(sp=sp, thr=thr, shares=shares):
+            for _, u in run.frames(sp, upto_indices):
+                for name, cells in targets:
+                    c = cells & mask
+                    shares[name].append(float(np.count_nonzero(u[c] >= thr)) / max(1, c.sum()))
+                yield u
+
+        arrival = arrival_time(tracked(), upto_times, thr, mask=mask)
+        reached = {name: first_crossing(upto_times, f, COLONISED_SHARE)
+                   for name, f in shares.items()}
+        out[sp] = RunSpecies(stats, arrival, reached)
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -405,7 +460,8 @@ POLYGON_SUFFIXES = (".geojson", ".json")
 
 
 def _codes_to_labels(values: np.ndarray, valid: np.ndarray, prefix: str,
-                     source: str) -> tuple[np.ndarray, list[str]]:
+                     source: str, named: dict[int, str] | None = None,
+                     ) -> tuple[np.ndarray, list[str]]:
     """Integer labels 0..n-1 for the distinct integer codes in ``values`` on ``valid``."""
     v = values[valid]
     if v.size and not np.all(v == np.round(v)):
@@ -414,11 +470,12 @@ def _codes_to_labels(values: np.ndarray, valid: np.ndarray, prefix: str,
     codes = np.unique(v.astype(np.int64))
     labels = np.full(values.shape, -1, dtype=np.int32)
     labels[valid] = np.searchsorted(codes, values[valid].astype(np.int64))
-    return labels, [f"{prefix} {int(c)}" for c in codes]
+    named = named or {}
+    return labels, [named.get(int(c)) or f"{prefix} {int(c)}" for c in codes]
 
 
-def load_zones(zones: Path | None, zone_field: str | None, grid, ds) -> tuple[
-        np.ndarray, list[str], str]:
+def load_zones(zones: Path | None, zone_field: str | None, grid, ds,
+               classes: dict[int, str] | None = None) -> tuple[np.ndarray, list[str], str]:
     """Zone labels on ``grid`` from a file or from the run's habitat classes.
 
     Parameters
@@ -428,15 +485,17 @@ def load_zones(zones: Path | None, zone_field: str | None, grid, ds) -> tuple[
         :func:`preyscape.landscape.measures.zones_from_polygons`) or a class
         raster (any other suffix; read with
         :func:`preyscape.landscape.io.read_layer_onto`, majority per cell).
-        None: the habitat classes stored in ``ds`` (``habitat``), named
-        ``"class <code>"``, when they are integer codes; otherwise one zone,
-        the whole landscape.
+        None: the habitat classes stored in ``ds`` (``habitat``), named by
+        ``classes`` (else ``"class <code>"``), when they are integer codes;
+        otherwise one zone, the whole landscape.
     zone_field : str or None
         Polygon attribute naming the zones (polygons only).
     grid : Grid
         The run grid.
     ds : xarray.Dataset
         The results of run A (for its habitat layer).
+    classes : dict, optional
+        Habitat class code to name (:attr:`RunResults.classes`).
 
     Returns
     -------
@@ -453,7 +512,8 @@ def load_zones(zones: Path | None, zone_field: str | None, grid, ds) -> tuple[
             hab = np.asarray(ds["habitat"].values, dtype=np.float64)
             valid = mask & np.isfinite(hab)
             if valid.any() and np.all(hab[valid] == np.round(hab[valid])):
-                labels, names = _codes_to_labels(hab, valid, "class", "results.nc: habitat")
+                labels, names = _codes_to_labels(hab, valid, "class", "results.nc: habitat",
+                                                 classes)
                 return labels, names, "habitat classes"
         return np.where(mask, 0, -1).astype(np.int32), ["whole landscape"], "whole landscape"
     zones = Path(zones)

@@ -28,7 +28,7 @@ from typing import Any
 from preyscape.errors import InputError
 
 __all__ = ["AnalysisSettings", "TransectLine", "DEFAULTS", "FRONT_THRESHOLD_SHARE",
-           "COLONISED_SHARE"]
+           "COLONISED_SHARE", "GOALS", "parse_years"]
 
 FRONT_THRESHOLD_SHARE = 0.1
 """Default arrival density of a front, as a share of the species' largest time-mean
@@ -48,8 +48,20 @@ DEFAULTS: dict[str, Any] = {
     "predator_threshold": None,
     "change_threshold": 0.10,   # relative change of the time mean that counts (10 %)
     "transects": (),
+    "years": None,              # (start, end) window in years; None: the whole run
+    "goal": None,               # how compare ranks alternatives (GOALS); None: as given
 }
 """Default of every setting (the scenario's ``[analysis]`` keys)."""
+
+
+GOALS = {
+    "fewer-predators": ("predator", -1),
+    "more-predators": ("predator", 1),
+    "fewer-prey": ("prey", -1),
+    "more-prey": ("prey", 1),
+}
+"""Goals ``compare`` ranks alternatives by: the species and the sign of the change of its
+landscape total in the window that ranks first."""
 
 
 @dataclass(frozen=True)
@@ -111,12 +123,53 @@ def _transects(value: Any, where: str) -> tuple[TransectLine, ...]:
     return tuple(out)
 
 
+def parse_years(value: Any, where: str = "years") -> tuple[float, float | None]:
+    """A window of years from ``"A:B"`` (either side may be empty) or ``[A, B]``.
+
+    Returns ``(start, end)`` in years, ``end`` None for "to the end of the run".
+
+    Examples
+    --------
+    >>> parse_years("0:4"), parse_years("4:"), parse_years([2, 6.5])
+    ((0.0, 4.0), (4.0, None), (2.0, 6.5))
+    """
+    bad = (f"must be a window of years A:B (such as 0:4, or 4: for year 4 to the end), "
+           f"not {value!r}")
+    if isinstance(value, str):
+        parts = value.split(":")
+        if len(parts) != 2:
+            raise InputError(bad, where)
+        try:
+            a = float(parts[0]) if parts[0].strip() else 0.0
+            b = float(parts[1]) if parts[1].strip() else None
+        except ValueError:
+            raise InputError(bad, where) from None
+    elif isinstance(value, (list, tuple)) and len(value) == 2:
+        a, b = value
+        if any(isinstance(v, bool) or not isinstance(v, (int, float, type(None))) for v in (a, b)):
+            raise InputError(bad, where)
+        a = 0.0 if a is None else float(a)
+        b = None if b is None else float(b)
+    else:
+        raise InputError(bad, where)
+    if not math.isfinite(a) or a < 0 or (b is not None and (not math.isfinite(b) or b <= a)):
+        raise InputError(f"the window must start at 0 or later and end after its start, not "
+                         f"{value!r}", where)
+    return a, b
+
+
 def _checked(key: str, v: Any, where: str) -> Any:
     """One setting, validated (``where`` names it in the message); None stays None."""
     if key == "transects":
         return _transects(v, where)
     if v is None and DEFAULTS[key] is None:
         return None
+    if key == "years":
+        return parse_years(v, where)
+    if key == "goal":
+        if v not in GOALS:
+            raise InputError(f"must be one of {', '.join(GOALS)}, not {v!r}", where)
+        return str(v)
     if key == "significance":
         return _number(v, where, low=0.0, high=1.0, what="a false discovery rate")
     if key == "change_threshold":
@@ -142,6 +195,10 @@ class AnalysisSettings:
         Relative change of a time mean that counts as a change (0.1 = 10 %).
     transects : tuple of TransectLine
         Lines for front speeds and fluxes, map metres.
+    years : (float, float or None) or None
+        Window of years ``compare`` judges change in (None: the whole run).
+    goal : str or None
+        How ``compare`` ranks alternatives (:data:`GOALS`); None: as given.
     """
 
     presence: float = DEFAULTS["presence"]
@@ -151,6 +208,8 @@ class AnalysisSettings:
     predator_threshold: float | None = DEFAULTS["predator_threshold"]
     change_threshold: float = DEFAULTS["change_threshold"]
     transects: tuple[TransectLine, ...] = DEFAULTS["transects"]
+    years: tuple[float, float | None] | None = DEFAULTS["years"]
+    goal: str | None = DEFAULTS["goal"]
 
     @classmethod
     def build(cls, stored: Mapping[str, Any] | None = None,
@@ -223,4 +282,5 @@ class AnalysisSettings:
         out = {f.name: getattr(self, f.name) for f in fields(self)}
         out["transects"] = [{"name": t.name, "points": [list(p) for p in t.points]}
                             for t in self.transects]
+        out["years"] = None if self.years is None else list(self.years)
         return out

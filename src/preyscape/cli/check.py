@@ -17,13 +17,19 @@ def add_parsers(sub) -> None:
 
 def check(args) -> int:
     """Validate a scenario, place every variant's measures, print what it implies."""
-    from preyscape.assemble import check_variant_measures, derived, prepare
+    from preyscape.assemble import (
+        check_variant_measures,
+        derived,
+        prepare,
+        variant_fence_topology,
+    )
     from preyscape.scenario import load_scenario
 
     sc = load_scenario(args.scenario)
     d = derived(prepare(sc))
-    d["variant_measures"] = check_variant_measures(
-        [sc.for_variant(n) for n in sc.variant_names()[1:]])
+    variants = [sc.for_variant(n) for n in sc.variant_names()[1:]]
+    d["variant_measures"] = check_variant_measures(variants)
+    d["variant_fence_topology"] = variant_fence_topology(variants)
     if args.json:
         print(json.dumps(d, indent=2, default=str))
     else:
@@ -92,4 +98,36 @@ def check_lines(path: Path, d: dict) -> list[str]:
         parts = [f"+{a}" for a in v["add"]] + [f"-{r}" for r in v["remove"]]
         parts += [f"{k} = {x}" for k, x in v["set"].items()]
         lines.append(f"variant             {v['name']}: {', '.join(parts) or 'as baseline'}")
-    return lines
+    return lines + topology_lines(d)
+
+
+def _km(x: float) -> str:
+    return f"{x / 1000:.3g} km" if x >= 1000 else f"{x:.0f} m"
+
+
+def topology_lines(d: dict) -> list[str]:
+    """Lines about each fence's open ends and separation, warnings last."""
+    from preyscape.landscape.topology import metres_text, place_text
+
+    groups = [("baseline", d.get("fence_topology") or [])]
+    groups += list((d.get("variant_fence_topology") or {}).items())
+    lines, warnings, seen = [], [], set()
+    for variant, recs in groups:
+        for t in recs:
+            if t["species"] is None:
+                continue
+            ends = t["open_ends"]
+            what = ("separates the landscape into "
+                    + " and ".join(f"{a:.3g}" for a in t["sides_km2"]) + " km²"
+                    if t["separates"] else "does not separate the landscape")
+            if ends:
+                what += "; open " + ("end" if len(ends) == 1 else "ends") + " at " + "; ".join(
+                    f"{place_text(e['x'], e['y'])} (way round {metres_text(e['way_round_m'])}"
+                    + (", a gate)" if e["at_gap"] else ")") for e in ends)
+            who = "prey" if t["species"] == "prey" else "predators"
+            lines.append(f"fence topology      {t['kind']} '{t['name']}' [{variant}], stops "
+                         f"{who}: {_km(t['length_m'])}, {t['faces']} faces; {what}")
+            if t.get("warning") and (t["name"], t["species"], t["warning"]) not in seen:
+                seen.add((t["name"], t["species"], t["warning"]))
+                warnings.append(f"WARNING             {t['warning']}")
+    return lines + warnings

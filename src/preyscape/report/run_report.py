@@ -44,6 +44,8 @@ SOURCES = [
     "Garlick et al. 2011, Bull Math Biol 73:2088.",
     "Getis–Ord Gi*: Getis & Ord 1992, Geogr Anal 24:189; Ord & Getis 1995, Geogr Anal "
     "27:286. False discovery rate: Benjamini & Hochberg 1995, J R Stat Soc B 57:289.",
+    "Change between runs beyond the timing of population cycles: the adjusted range of "
+    "cumulative departures, Hurst 1951, Trans Am Soc Civ Eng 116:770 (from memory).",
     "Numerical method: Strang 1968, SIAM J Numer Anal 5:506; Peaceman & Rachford 1955, "
     "J SIAM 3:28; Hundsdorfer & Verwer 2003, Numerical Solution of Time-Dependent "
     "Advection-Diffusion-Reaction Equations, Springer.",
@@ -160,6 +162,9 @@ def _settings_section(rep, run) -> None:
     if run.measures:
         sec.table(["measure", "kind", "years", "size", "settings"], _measure_rows(run.measures),
                   caption="Measures in this run")
+        for t in info.get("fence_topology") or []:  # leaky fences, checked before the run
+            if t.get("warning"):
+                sec.paragraph(t["warning"])
     else:
         sec.paragraph("This run has no corridors, fences or refuges.")
 
@@ -206,11 +211,10 @@ def _analysis_parts(run, others, work: Path) -> list[Part]:
     for mod in mods:
         if mod.COMMAND.runs == "one":
             parts += mod.write([run], settings, work / mod.COMMAND.name).report_parts()
-    for k, other in enumerate(others):
-        for mod in mods:
-            if mod.COMMAND.runs == "several":
-                out = mod.write([run, other], settings, work / f"{mod.COMMAND.name}-{k}")
-                parts += out.report_parts()
+    for mod in mods if others else ():  # all other runs in one call: one ranking
+        if mod.COMMAND.runs == "several":
+            parts += mod.write([run, *others], settings, work / mod.COMMAND.name).report_parts()
+    for other in others:
         parts += _colonisation_parts(other)
     return parts
 
