@@ -464,11 +464,7 @@ def landscape_predictions(setup: Setup) -> dict:
                                   * classes.multipliers["prey_movement"], classes.patch_km,
                                   classes.shares)
     rec["predator"]["prey_spread_ratio"] = smooth
-    if smooth > 1 and pred.predator is not None:
-        rec["predator"]["message"] += (
-            f" Prey spread over {smooth:.2g} times the length of some patches, so they do not "
-            "sit at each class's capacity ahead of the predators; the predators' value is only "
-            "a guide (waves uses the prey density the run had ahead of the front).")
+    rec["predator"]["prey_smoothed"] = bool(smooth > lt.PREY_SMOOTHING)
     rec["constants"] = {
         "form": inter.form, "attack_rate": inter.attack_rate, "handling_time": inter.h,
         "efficiency": inter.efficiency, "interference": inter.c, "growth": sc.prey.growth,

@@ -52,8 +52,8 @@ from preyscape.model import landscape_theory as lt
 from preyscape.model.reactions import Interaction
 from preyscape.model.theory import WindowSpeed, mean_front_speed, predator_growth_at_capacity
 
-__all__ = ["FrontPrediction", "predict_along", "predict_front", "prey_ahead",
-           "transect_classes"]
+__all__ = ["FrontPrediction", "columns", "front_lines", "predict_along", "predict_front",
+           "prey_ahead", "sentence", "transect_classes"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -364,6 +364,10 @@ def sentence(p: FrontPrediction, measured: float | None, where: str) -> str:
         elif math.isfinite(ratio):
             parts.append("The front is faster than predicted: in two dimensions it can go "
                          "round sinks or reach the line from the side.")
+    if p.transect is not None and not p.transect.periodic.speed > 0:
+        parts.append(f"The habitat along this transect alone would not sustain a front of "
+                     f"{who} (growth at low density too low there); the front reached it through "
+                     "better habitat beside the line, or is a transient.")
     if p.landscape_status == "no invasion expected":
         parts.append(f"Averaged over the whole map, the growth of {who} at low density "
                      "predicts no invasion in a fine-grained mix; a front that moves anyway "
@@ -372,3 +376,45 @@ def sentence(p: FrontPrediction, measured: float | None, where: str) -> str:
         parts.append(f"The map's patches are coarse for {who}, so the map-wide value "
                      f"({p.landscape:.3g} km/yr) is only a guide.")
     return " ".join(parts)
+
+
+def _fmt_num(x, unit: str = "", digits: int = 4) -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "n/a"
+    return f"{x:.{digits}g}{(' ' + unit) if unit else ''}"
+
+
+def _ratio_text(measured: float | None, predicted: float | None) -> str:
+    if measured is None or predicted is None or not predicted > 0:
+        return ""
+    return f" (ratio {measured / predicted:.3g})"
+
+
+def front_lines(f) -> list[str]:
+    """Command-line lines for one row of ``fronts.csv`` (a ``waves_output.FrontRow``)."""
+    if f.n < 2 or f.speed_km_yr is None:
+        return [f"  {f.transect}, {f.species}: no front crossed this transect at two or more "
+                "snapshots"]
+    v = f.speed_km_yr
+    out = [f"  {f.transect}, {f.species}: front {_fmt_num(v, 'km/yr')}; best-habitat bound "
+           f"{_fmt_num(f.predicted_km_yr, 'km/yr')}{_ratio_text(v, f.predicted_km_yr)}"]
+    years = f"the fitted years {_fmt_num(f.fit_start_yr, '', 3)}–{_fmt_num(f.fit_end_yr, '', 3)}"
+    for what, asym, win, coarse in (
+            ("along this transect", f.transect_km_yr, f.transect_window_km_yr, False),
+            ("map-wide (homogenised)", f.landscape_km_yr, f.landscape_window_km_yr, f.coarse)):
+        if asym is None:
+            continue
+        if not asym > 0:
+            out.append(f"    landscape {what}: no invasion expected (the growth at low density "
+                       "there does not sustain a front)")
+            continue
+        line = f"    landscape {what}: {_fmt_num(asym, 'km/yr')}{_ratio_text(v, asym)}"
+        if win is not None and win > 0:
+            line += f", mean over {years}: {_fmt_num(win, 'km/yr')}{_ratio_text(v, win)}"
+        elif win is not None:
+            line += f"; over {years} a front from the release should hardly have formed yet"
+        out.append(line + ("; patches coarse: only a guide" if coarse else ""))
+    if f.far_from_asymptotic:
+        out.append("    the fitted years are far from the asymptotic regime: the mean over them "
+                   "is indicative only")
+    return out

@@ -98,6 +98,8 @@ class SpeciesArrival:
         ``"given"`` or how the default was chosen.
     reached_fraction, present_at_start_fraction : float
         Share (0–1) of the data cells reached at all, and already at t = 0.
+    occupied_at_start_fraction : float
+        Share (0–1) of the data cells at or above the presence threshold at t = 0.
     median_years, latest_years : float or None
         Median and latest arrival time of the cells reached, years.
     local_speed_median : float or None
@@ -112,10 +114,16 @@ class SpeciesArrival:
     latest_years: float | None
     local_speed_median: float | None
 
+    occupied_at_start_fraction: float = 0.0
+
     @property
     def settled(self) -> bool:
-        """Whether the species occupied most of the landscape from the start (no front)."""
-        return self.present_at_start_fraction > 0.5
+        """Whether the species occupied most of the landscape from the start (no front).
+
+        Occupied: at or above the arrival threshold, or at least present (the
+        presence threshold) on most data cells at t = 0.
+        """
+        return max(self.present_at_start_fraction, self.occupied_at_start_fraction) > 0.5
 
     @property
     def no_front(self) -> str | None:
@@ -194,7 +202,7 @@ class WavesOutput(Written):
                 lines.append(f"  {sp}: {a.no_front}")
         shown = [f for f in self.fronts if not self.arrival[f.species].no_front]
         for f in shown:
-            lines += _front_lines(f)
+            lines += fp.front_lines(f)
         if not shown:
             lines.append("  nothing to measure: " + self.nothing_to_measure())
         return lines
@@ -218,35 +226,6 @@ def _fmt(x, unit: str = "", digits: int = 4) -> str:
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return "n/a"
     return f"{x:.{digits}g}{(' ' + unit) if unit else ''}"
-
-
-def _ratio_text(measured: float | None, predicted: float | None) -> str:
-    if measured is None or not predicted:
-        return ""
-    return f" (ratio {measured / predicted:.3g})"
-
-
-def _front_lines(f: FrontRow) -> list[str]:
-    if f.n < 2 or f.speed_km_yr is None:
-        return [f"  {f.transect}, {f.species}: no front crossed this transect at two or more "
-                "snapshots"]
-    v = f.speed_km_yr
-    out = [f"  {f.transect}, {f.species}: front {_fmt(v, 'km/yr')}; best-habitat bound "
-           f"{_fmt(f.predicted_km_yr, 'km/yr')}{_ratio_text(v, f.predicted_km_yr)}"]
-    years = f"the fitted years {_fmt(f.fit_start_yr, '', 3)}–{_fmt(f.fit_end_yr, '', 3)}"
-    for what, asym, win, coarse in (
-            ("along this transect", f.transect_km_yr, f.transect_window_km_yr, False),
-            ("map-wide (homogenised)", f.landscape_km_yr, f.landscape_window_km_yr, f.coarse)):
-        if asym is None:
-            continue
-        line = f"    landscape {what}: {_fmt(asym, 'km/yr')}{_ratio_text(v, asym)}"
-        if win is not None:
-            line += f", mean over {years}: {_fmt(win, 'km/yr')}{_ratio_text(v, win)}"
-        out.append(line + ("; patches coarse: only a guide" if coarse else ""))
-    if f.far_from_asymptotic:
-        out.append("    the fitted years are far from the asymptotic regime: the mean over them "
-                   "is indicative only")
-    return out
 
 
 def _label(out: WavesOutput, sp: str) -> str:
@@ -281,6 +260,7 @@ def _report_blocks(out: WavesOutput) -> list:
             continue
         land = f.transect_window_km_yr or f.landscape_window_km_yr
         ratio = f.transect_ratio if f.transect_window_km_yr is not None else f.landscape_ratio
+        land = land if land is not None and land > 0 else None  # far too early: no value
         rows.append((f.transect, _label(out, f.species), f.speed_km_yr, f.stderr_km_yr,
                      f.predicted_km_yr, f.ratio, f.transect_km_yr or f.landscape_km_yr, land,
                      ratio, f.landscape_km_yr, f.n, f.wavelength_km, f.period_yr))
@@ -414,12 +394,15 @@ def _arrival_maps(tmp: Path, run, settings: AnalysisSettings):
             files.append(FileRecord(name, "raster", f"{sp.capitalize()} {what}", sp))
         reached = np.isfinite(a) & grid.mask
         fin = speed[np.isfinite(speed)]
+        with np.errstate(invalid="ignore"):
+            occupied = float(np.sum(run.frame(sp, 0)[grid.mask] >= settings.presence))
         arrival[sp] = SpeciesArrival(
             _f(thr), source, float(reached.sum() / max(grid.n_cells, 1)),
             float((reached & (a <= 0)).sum() / max(grid.n_cells, 1)),
             _f(float(np.median(a[reached]))) if reached.any() else None,
             _f(float(np.max(a[reached]))) if reached.any() else None,
-            _f(float(np.median(fin))) if fin.size else None)
+            _f(float(np.median(fin))) if fin.size else None,
+            occupied / max(grid.n_cells, 1))
         arrivals[sp], speeds[sp] = a, speed
     return arrival, arrivals, speeds, files
 
@@ -500,15 +483,18 @@ def _draw_transects(ax, transects: Sequence, extent: tuple[float, float, float, 
         ax.plot(xs, ys, color=TRANSECT_COLOUR, lw=1.4)
         ax.plot(xs[:1], ys[:1], "o", color=TRANSECT_COLOUR, ms=4)  # start of the transect
         if tr.name:
-            # the label at the end, turned towards the inside of the map so it is never
-            # clipped at the frame or hidden under the colour bar
+            # the label beyond the end of the line, unless that runs out of the map: then
+            # turned inwards, so it is never clipped at the frame or under the colour bar
             x = min(max(xs[-1], left), right)
             y = min(max(ys[-1], bottom), top)
-            east = x > 0.5 * (left + right)
+            ahead_east = xs[-1] >= xs[-2]
+            share = (x - left) / (right - left)  # 0 at the west edge, 1 at the east edge
+            if (share > 0.7) if ahead_east else (share < 0.3):
+                ahead_east = not ahead_east
             north = y > 0.5 * (bottom + top)
             ax.annotate(tr.name, (x, y), fontsize=7, color=TRANSECT_COLOUR,
-                        xytext=(-4 if east else 4, -4 if north else 4),
-                        textcoords="offset points", ha="right" if east else "left",
+                        xytext=(4 if ahead_east else -4, -4 if north else 4),
+                        textcoords="offset points", ha="left" if ahead_east else "right",
                         va="top" if north else "bottom", annotation_clip=False,
                         path_effects=[patheffects.withStroke(linewidth=2.2,
                                                              foreground="white")])

@@ -155,11 +155,11 @@ def _species_speed(d: dict, sp: str) -> list[str]:
         text += (f" The patches are coarse for {who} (grain {rec['grain']:.2g} > 1), so this "
                  "value is only a guide: large source patches can carry a front even where the "
                  "mean growth is negative, and large sinks can stop one.")
-    if (rec.get("prey_spread_ratio") or 0) > 1:
-        text += (f" Prey spread over {rec['prey_spread_ratio']:.2g} times the length of some "
-                 "patches, so they will not sit at each class's capacity ahead of the "
-                 "predators, which this value assumes: it is only a guide (waves uses the prey "
-                 "density the run had ahead of the front).")
+    if rec.get("prey_smoothed"):
+        text += (" Prey spread over a distance (√(D/r)) comparable to some patches "
+                 f"({rec['prey_spread_ratio']:.2g} of their length), so they will not sit at "
+                 "each class's capacity ahead of the predators, which this value assumes: it is "
+                 "only a guide (waves uses the prey density the run had ahead of the front).")
     years = d["steps"] * d["step_years"]
     lam = rec.get("decay_rate")
     if lam and years > 0:

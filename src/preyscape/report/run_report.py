@@ -138,8 +138,11 @@ def _landscape_facts(pr: dict) -> list[tuple[str, str]]:
             speeds.append(f"{who}: no invasion expected (mean growth at low density "
                           f"{_num(rec.get('growth'), '/yr', 3)})")
         else:
+            why = [w for w, flag in (("patches coarse", rec.get("coarse")),
+                                     ("prey not at capacity", rec.get("prey_smoothed")))
+                   if flag]
             speeds.append(f"{who} {_num(rec['speed'], 'km/yr', 3)}"
-                          + (" (patches coarse: only a guide)" if rec.get("coarse") else ""))
+                          + (f" ({', '.join(why)}: only a guide)" if why else ""))
     return [("predicted front speeds, this landscape",
              "; ".join(speeds) + " — homogenised over the habitat classes (Shigesada, Kawasaki "
              "& Teramoto 1986); fronts from a release approach them from below"),
