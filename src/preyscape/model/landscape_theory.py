@@ -491,6 +491,38 @@ def _log_half_trace(k: np.ndarray, lengths, r, D, flux_w) -> np.ndarray:
         return np.where(tr > 0, np.log(np.where(tr > 0, tr, 1.0)) + logs, -1e3)
 
 
+def _log_half_trace_at(k: float, layers: list[tuple[float, float, float, float]]) -> float:
+    """:func:`_log_half_trace` at one ``k`` in plain floats (fast for root finding).
+
+    ``layers`` holds ``(l_j, r_j, D_j, w_j)``; the same recurrence, scaling and
+    stand-in value as the vectorised version.
+    """
+    m00, m01, m10, m11, logs = 1.0, 0.0, 0.0, 1.0, 0.0
+    for lj, rj, Dj, wj in layers:
+        q2 = (k - rj) / Dj
+        q = math.sqrt(abs(q2))
+        x = q * lj
+        if q2 >= 0:
+            e2 = math.exp(-2.0 * x)
+            C, S, sign = 0.5 * (1.0 + e2), 0.5 * (1.0 - e2), 1.0
+            logs += x
+        else:
+            C, S, sign = math.cos(x), math.sin(x), -1.0
+        if x < 1e-8:
+            s_over_q = lj * (math.exp(-x) if q2 >= 0 else 1.0)
+        else:
+            s_over_q = S / q
+        t01 = s_over_q / wj
+        t10 = sign * wj * q * S
+        a00, a01 = C * m00 + t01 * m10, C * m01 + t01 * m11
+        a10, a11 = t10 * m00 + C * m10, t10 * m01 + C * m11
+        big = max(abs(a00), abs(a01), abs(a10), abs(a11)) or 1.0
+        m00, m01, m10, m11 = a00 / big, a01 / big, a10 / big, a11 / big
+        logs += math.log(big)
+    tr = 0.5 * (m00 + m11)
+    return math.log(tr) + logs if tr > 0 else -1e3
+
+
 def _log_cosh(x: float) -> float:
     return x + math.log1p(math.exp(-2.0 * x)) - math.log(2.0)
 
@@ -517,8 +549,12 @@ class _Layers:
 
     def k_of(self, lam: float) -> float:
         """Principal growth rate of ``e^(-lam x) psi(x)``, psi periodic, 1/yr."""
+        layers = list(zip(self.l.tolist(), self.r.tolist(), self.D.tolist(), self.w.tolist(),
+                          strict=True))
+        cosh_term = _log_cosh(lam * self.L)
+
         def f(k: float) -> float:
-            return float(self.g(np.array([k]), lam)[0])
+            return _log_half_trace_at(k, layers) - cosh_term
 
         if f(self.k_top) <= 0:
             # above max r every entry of the transfer matrices grows with k, so the
