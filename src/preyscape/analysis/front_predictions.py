@@ -338,30 +338,31 @@ def sentence(p: FrontPrediction, measured: float | None, where: str) -> str:
         basis = ("the habitat this transect crosses" if p.transect_window is not None
                  else "the landscape as a whole")
         t0, t1 = p.window
-        ratio = measured / w.mean if w.mean > 0 else math.nan
-        if not w.mean > 0:
+        if w.far_from_asymptotic:
+            # early in a front's life the lag itself is poorly known: compare with c*
+            ratio = measured / w.asymptotic
             parts.append(
-                f"For {basis} theory predicts {w.asymptotic:.3g} km/yr once a front has "
-                f"formed, but over the fitted years {t0:.3g}–{t1:.3g} after the release a "
-                f"front should still lag by more than that ({w.correction:.2g} km/yr; Bramson "
-                "1983): the run is far from the asymptotic regime, and no ratio is given.")
+                f"For {basis} theory predicts {w.asymptotic:.3g} km/yr once the front has "
+                f"formed; the measured speed is {ratio:.2f} times that. The fitted years "
+                f"{t0:.3g}–{t1:.3g} after the release are far from that regime: a front from "
+                f"a release should still lag by about {w.correction:.2g} km/yr there "
+                f"({100 * w.fraction:.0f} % of the speed; Bramson 1983), and so early even "
+                "that estimate is indicative only. Compare with caution; a longer run, or a "
+                "transect over more distance, would tell more.")
         else:
+            ratio = measured / w.mean
             parts.append(
                 f"For {basis} theory predicts {w.asymptotic:.3g} km/yr, and {w.mean:.3g} km/yr "
                 f"as the mean over the fitted years {t0:.3g}–{t1:.3g} after the release (a "
                 f"front from a release lags by {w.correction:.2g} km/yr there; Bramson 1983): "
                 f"the measured speed is {ratio:.2f} times that.")
-        if w.far_from_asymptotic and w.mean > 0:
-            parts.append(f"This window is far from the asymptotic regime (the lag is "
-                         f"{100 * w.fraction:.0f} % of the speed): compare with caution; a "
-                         "longer run, or a transect over more distance, would tell more.")
-        if math.isfinite(ratio) and abs(ratio - 1) <= 0.2:
+        if abs(ratio - 1) <= 0.2:
             parts.append("That is within 20 % of the prediction for this landscape.")
-        elif math.isfinite(ratio) and ratio < 0.8:
+        elif ratio < 0.8:
             parts.append("The front is slower than predicted: it may be held up by sinks the "
                          "line does not cross, by prey below capacity ahead of predators, or "
                          "by a transect that does not follow the front's direction.")
-        elif math.isfinite(ratio):
+        else:
             parts.append("The front is faster than predicted: in two dimensions it can go "
                          "round sinks or reach the line from the side.")
     if p.transect is not None and not p.transect.periodic.speed > 0:
@@ -409,12 +410,11 @@ def front_lines(f) -> list[str]:
                        "there does not sustain a front)")
             continue
         line = f"    landscape {what}: {_fmt_num(asym, 'km/yr')}{_ratio_text(v, asym)}"
-        if win is not None and win > 0:
+        if win is not None and not f.far_from_asymptotic:
             line += f", mean over {years}: {_fmt_num(win, 'km/yr')}{_ratio_text(v, win)}"
-        elif win is not None:
-            line += f"; over {years} a front from the release should hardly have formed yet"
         out.append(line + ("; patches coarse: only a guide" if coarse else ""))
     if f.far_from_asymptotic:
-        out.append("    the fitted years are far from the asymptotic regime: the mean over them "
-                   "is indicative only")
+        lag = f" (a front from a release should lag by about {f.correction_km_yr:.2g} km/yr)"
+        out.append(f"    {years} are far from the asymptotic regime{lag}: compare with "
+                   "caution")
     return out

@@ -228,6 +228,10 @@ def _fmt(x, unit: str = "", digits: int = 4) -> str:
     return f"{x:.{digits}g}{(' ' + unit) if unit else ''}"
 
 
+def _div(a: float | None, b: float | None) -> float | None:
+    return a / b if a is not None and b is not None and b > 0 else None
+
+
 def _label(out: WavesOutput, sp: str) -> str:
     n = out.names.get(sp, sp)
     return f"{sp} ({n})" if n and n != sp else sp
@@ -258,20 +262,23 @@ def _report_blocks(out: WavesOutput) -> list:
             notes.append(f"{f.transect}, {f.species}: the front did not cross this transect at "
                          "two or more snapshots, so no speed was fitted.")
             continue
-        land = f.transect_window_km_yr or f.landscape_window_km_yr
-        ratio = f.transect_ratio if f.transect_window_km_yr is not None else f.landscape_ratio
-        land = land if land is not None and land > 0 else None  # far too early: no value
+        on_line = f.transect_window_km_yr is not None
+        asym = f.transect_km_yr if on_line else f.landscape_km_yr
+        mean = None if f.far_from_asymptotic else (  # too early: the lag is not known
+            f.transect_window_km_yr if on_line else f.landscape_window_km_yr)
         rows.append((f.transect, _label(out, f.species), f.speed_km_yr, f.stderr_km_yr,
-                     f.predicted_km_yr, f.ratio, f.transect_km_yr or f.landscape_km_yr, land,
-                     ratio, f.landscape_km_yr, f.n, f.wavelength_km, f.period_yr))
+                     f.predicted_km_yr, f.ratio, asym, _div(f.speed_km_yr, asym), mean,
+                     _div(f.speed_km_yr, mean), f.landscape_km_yr, f.n, f.wavelength_km,
+                     f.period_yr))
         if f.note:
             notes.append(f.note)
     if rows:
         blocks.append(Table(("transect", "species", "fitted speed (km/yr)",
                              "std. error (km/yr)", "best-habitat bound (km/yr)",
                              "fitted / best habitat", "landscape along the transect (km/yr)",
+                             "fitted / landscape",
                              "landscape, mean over the fitted years (km/yr)",
-                             "fitted / landscape", "landscape map-wide (km/yr)", "snapshots",
+                             "fitted / mean", "landscape map-wide (km/yr)", "snapshots",
                              "wavelength behind the front (km)", "period behind the front (yr)"),
                             tuple(rows)))
     elif not notes:
@@ -557,11 +564,14 @@ def front_plot(fit, path: Path, label: str, landscape=None) -> Path:
             ax.plot(tt, xm + fit.predicted * (tt - tm), "--", color="#b5367a", lw=1.3,
                     label=f"best-habitat bound: {fit.predicted:.3g} km/yr "
                           f"(ratio {fit.ratio:.3f})")
-        if landscape is not None and landscape.mean > 0:
+        if landscape is not None and landscape.asymptotic > 0:
             tm, xm = float(np.mean(fit.times)), float(np.mean(fit.positions))
-            ax.plot(tt, xm + landscape.mean * (tt - tm), ":", color="#e08a00", lw=1.8,
-                    label=f"landscape, mean over these years: {landscape.mean:.3g} km/yr "
-                          f"(ratio {fit.speed / landscape.mean:.3f})")
+            far = landscape.far_from_asymptotic  # too early to trust the lag: show c*
+            c = landscape.asymptotic if far else landscape.mean
+            what = ("landscape (far from asymptotic)" if far else
+                    "landscape, mean over these years")
+            ax.plot(tt, xm + c * (tt - tm), ":", color="#e08a00", lw=1.8,
+                    label=f"{what}: {c:.3g} km/yr (ratio {fit.speed / c:.3f})")
     ax.set_xlabel("time (years)")
     ax.set_ylabel("front position along the transect (km)")
     ax.set_title(label, fontsize=10)
