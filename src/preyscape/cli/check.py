@@ -163,19 +163,27 @@ def _species_speed(d: dict, sp: str) -> list[str]:
     years = d["steps"] * d["step_years"]
     lam = rec.get("decay_rate")
     if lam and years > 0:
-        w = mean_front_speed(c, lam, years / 2, years)
-        span = f"years {years / 2:g}–{years:g} of this run"
+        # the front is fitted while it crosses the map (waves leaves out the first 20 %)
+        across = max(d["grid"]["extent_km"])
+        t1 = min(years, across / c)
+        w = mean_front_speed(c, lam, 0.2 * t1, t1)
+        span = (f"years {0.2 * t1:.3g}–{t1:.3g}"
+                + (" of this run" if t1 >= years else
+                   f" (the front needs about {t1:.3g} years to cross the {across:.3g} km map)"))
         if w.mean <= 0:
             text += (f" A front from a local release approaches it from below, and over {span} "
                      f"it lags by more than this speed ({_fmt(w.correction, 'km/yr', 3)}; "
-                     "Bramson 1983): far from the asymptotic regime, hardly a front yet. A run "
-                     f"of many times 1/growth = {1 / rec['growth']:.3g} years is needed to see "
-                     "this speed.")
+                     "Bramson 1983): far from the asymptotic regime, hardly a front yet. Seeing "
+                     f"this speed needs a run much longer than 1/growth = "
+                     f"{1 / rec['growth']:.3g} years, on a landscape large enough for the front "
+                     "to travel that long.")
         else:
             text += (f" A front from a local release approaches it from below: over {span} "
                      f"expect about {_fmt(w.mean, 'km/yr', 3)} on average (Bramson 1983)")
-            text += (", far from the asymptotic regime: a longer run, or a fit over later "
-                     "years, is needed to see this speed." if w.far_from_asymptotic else ".")
+            more = ("a longer run" if t1 >= years else
+                    "a larger landscape (the front is still forming while it crosses this one)")
+            text += (f", far from the asymptotic regime: {more} is needed to see this speed."
+                     if w.far_from_asymptotic else ".")
     return _wrap(f"{sp} landscape", text)
 
 
