@@ -400,7 +400,9 @@ def test_analysis_command_writes_its_output(variant_runs, command, tmp_path, cap
         assert any(n.endswith(".tif") for n in names) and any(n.endswith(".png") for n in names)
     elif command == "waves":
         assert {"fronts.csv", "predator_arrival.tif"} <= names
-        assert "east line, predator: front" in cap.out
+        # a fitted front, or the sentence saying none crossed the line (half a year run)
+        assert ("east line, predator: front" in cap.out
+                or "east line, predator: no front crossed this transect" in cap.out)
         assert "east line" in (out / "fronts.csv").read_text()
     else:
         assert {"refuges.csv", "effects.json"} <= names

@@ -228,8 +228,14 @@ def _fmt(x, unit: str = "", digits: int = 4) -> str:
     return f"{x:.{digits}g}{(' ' + unit) if unit else ''}"
 
 
-def _div(a: float | None, b: float | None) -> float | None:
-    return a / b if a is not None and b is not None and b > 0 else None
+def _vs(measured: float | None, predicted: float | None) -> str:
+    """``"4.47 (1.07)"``: a predicted speed and the ratio fitted/predicted."""
+    if predicted is None:
+        return "n/a"
+    if not predicted > 0:
+        return "no invasion expected"
+    return f"{predicted:.3g} ({measured / predicted:.2f})" if measured is not None else (
+        f"{predicted:.3g}")
 
 
 def _label(out: WavesOutput, sp: str) -> str:
@@ -256,31 +262,35 @@ def _report_blocks(out: WavesOutput) -> list:
         "used, and the ratio is taken to that.")]
     notes = [f"{_label(out, sp)} {a.no_front}." for sp, a in out.arrival.items() if a.no_front]
     fronts = [f for f in out.fronts if not out.arrival[f.species].no_front]
-    rows = []
+    rows, waves = [], []
     for f in fronts:
         if f.n < 2:
             notes.append(f"{f.transect}, {f.species}: the front did not cross this transect at "
                          "two or more snapshots, so no speed was fitted.")
             continue
         on_line = f.transect_window_km_yr is not None
-        asym = f.transect_km_yr if on_line else f.landscape_km_yr
         mean = None if f.far_from_asymptotic else (  # too early: the lag is not known
             f.transect_window_km_yr if on_line else f.landscape_window_km_yr)
-        rows.append((f.transect, _label(out, f.species), f.speed_km_yr, f.stderr_km_yr,
-                     f.predicted_km_yr, f.ratio, asym, _div(f.speed_km_yr, asym), mean,
-                     _div(f.speed_km_yr, mean), f.landscape_km_yr, f.n, f.wavelength_km,
-                     f.period_yr))
+        err = f" ± {f.stderr_km_yr:.2g}" if f.stderr_km_yr is not None else ""
+        rows.append((f.transect, _label(out, f.species), f"{f.speed_km_yr:.3g}{err}",
+                     _vs(f.speed_km_yr, f.predicted_km_yr),
+                     _vs(f.speed_km_yr, f.transect_km_yr if on_line else f.landscape_km_yr),
+                     _vs(f.speed_km_yr, mean) if mean else "far from it",
+                     _vs(f.speed_km_yr, f.landscape_km_yr)))
+        waves.append((f.transect, _label(out, f.species), f.n, f.wavelength_km, f.period_yr))
         if f.note:
             notes.append(f.note)
     if rows:
-        blocks.append(Table(("transect", "species", "fitted speed (km/yr)",
-                             "std. error (km/yr)", "best-habitat bound (km/yr)",
-                             "fitted / best habitat", "landscape along the transect (km/yr)",
-                             "fitted / landscape",
-                             "landscape, mean over the fitted years (km/yr)",
-                             "fitted / mean", "landscape map-wide (km/yr)", "snapshots",
-                             "wavelength behind the front (km)", "period behind the front (yr)"),
-                            tuple(rows)))
+        blocks.append(Table(("transect", "species", "fitted", "best habitat",
+                             "landscape, transect", "its mean over the fit",
+                             "landscape, map"), tuple(rows), caption=(
+            "Front speeds in km/yr: fitted, and each prediction with fitted/predicted in "
+            "brackets. \"Its mean over the fit\": the transect's prediction averaged over the "
+            "fitted years, with Bramson's lag of a front from a release (\"far from it\": too "
+            "early in the front's life for the lag to be known).")))
+        blocks.append(Table(("transect", "species", "snapshots", "wavelength (km)",
+                             "period (yr)"), tuple(waves),
+                            caption="Fits and periodic waves behind the front"))
     elif not notes:
         blocks.append(Paragraph("No front speed could be fitted: " + out.nothing_to_measure()))
     if notes:
