@@ -10,7 +10,17 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import DX, NODATA_CELLS, SHAPE, X0, Y0, habitat_array, make_landscape, write_habitat
+from conftest import (
+    DELETE,
+    DX,
+    NODATA_CELLS,
+    SHAPE,
+    X0,
+    Y0,
+    habitat_array,
+    make_landscape,
+    write_habitat,
+)
 from rasterio.crs import CRS
 
 from preyscape.cli import main
@@ -90,6 +100,16 @@ def test_check_prints_growth_per_class_and_the_landscape_prediction(write_scenar
     flat = " ".join(capsys.readouterr().out.split())
     assert "predator front none: predators cannot grow even on prey at capacity" in flat
     assert "predator landscape no front: predators cannot grow in any habitat class" in flat
+    # Lotka-Volterra prey have no capacity: the predators' speed is undefined, in words
+    # (theory.predator_speed used to raise TypeError on K = None)
+    path = write_scenario({"interaction.form": "lotka-volterra",
+                           "interaction.handling_time": DELETE, "prey.capacity": DELETE,
+                           "start.prey": "uniform", "start.prey_density": 100.0},
+                          name="lv.toml")
+    assert main(["check", str(path)]) == 0
+    flat = " ".join(capsys.readouterr().out.split())
+    assert "predator front not defined: prey without a carrying capacity" in flat
+    assert "sink share prey 0.0 %, predator n/a of the landscape" in flat
 
 
 def test_check_json(scenario_path, capsys):

@@ -152,7 +152,7 @@ def _species_speed(d: dict, sp: str) -> list[str]:
         text += (f" It exceeds the best-habitat value because {who} move faster through other "
                  "classes.")
     if rec.get("coarse"):
-        text += (f" The patches are coarse for {who} (grain {rec['grain']:.2g} > 1), so this "
+        text += (f" The patches are coarse for {who} (grain {rec['grain']:.3g} > 1), so this "
                  "value is only a guide: large source patches can carry a front even where the "
                  "mean growth is negative, and large sinks can stop one.")
     if rec.get("prey_smoothed"):
@@ -209,13 +209,17 @@ def landscape_lines(d: dict) -> list[str]:
     sinks = []
     for sp in ("prey", "predator"):
         share = rec[sp]["sink_share"]
+        if all(c[f"{sp}_growth"] is None for c in rec["classes"]):
+            share = None  # growth not defined (predators on prey without a capacity)
         sinks.append(f"{sp} {'n/a' if share is None else f'{100 * share:.1f} %'}")
     lines.append(f"{'sink share':<20}" + ", ".join(sinks) + " of the landscape")
     for sp in ("prey", "predator"):
         lines += _wrap(f"{sp} growth", rec[sp]["verdict"])
     for sp in ("prey", "predator"):
         lines += _species_speed(d, sp)
-    note = ("Habitat as in the class table, before measures (corridors, refuges, fences). "
+    note = (("Habitat as in the class table" if rec["basis"] == "classes" else
+             "Suitability in bands of 0.1, each taken at its mean")
+            + ", before measures (corridors, refuges, fences). "
             "These are properties of the equations, not of the animals: a model is not a field "
             "survey.")
     lines += _wrap("note", note)

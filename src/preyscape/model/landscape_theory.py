@@ -436,7 +436,7 @@ def homogenised_speed(
         msg = (f"The mean growth at low density is {g:.3g} /yr: in a fine-grained mix no "
                "invasion is expected; the species holds on, if at all, only in source patches.")
     if coarse:
-        msg += (f" The patches are coarse (grain {grain:.2g}), so the "
+        msg += (f" The patches are coarse (grain {grain:.3g}), so the "
                 "homogenised value is only a guide: large source patches can carry a front "
                 "even when the mean growth is negative, and large sinks can stop it.")
     return HomogenisedSpeed(speed, upper, g, d, spread, grain, coarse, status, msg)
