@@ -268,14 +268,13 @@ def _report_blocks(out: WavesOutput) -> list:
             notes.append(f"{f.transect}, {f.species}: the front did not cross this transect at "
                          "two or more snapshots, so no speed was fitted.")
             continue
-        on_line = f.transect_window_km_yr is not None
-        mean = None if f.far_from_asymptotic else (  # too early: the lag is not known
-            f.transect_window_km_yr if on_line else f.landscape_window_km_yr)
+        mean = f.transect_window_km_yr
         err = f" ± {f.stderr_km_yr:.2g}" if f.stderr_km_yr is not None else ""
         rows.append((f.transect, _label(out, f.species), f"{f.speed_km_yr:.3g}{err}",
                      _vs(f.speed_km_yr, f.predicted_km_yr),
-                     _vs(f.speed_km_yr, f.transect_km_yr if on_line else f.landscape_km_yr),
-                     _vs(f.speed_km_yr, mean) if mean else "far from it",
+                     _vs(f.speed_km_yr, f.transect_km_yr),
+                     "n/a" if mean is None else  # too early: the lag is not known
+                     "far from it" if f.far_from_asymptotic else _vs(f.speed_km_yr, mean),
                      _vs(f.speed_km_yr, f.landscape_km_yr)))
         waves.append((f.transect, _label(out, f.species), f.n, f.wavelength_km, f.period_yr))
         if f.note:
