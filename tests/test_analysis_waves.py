@@ -7,6 +7,7 @@ transects, years, animals per km².
 from __future__ import annotations
 
 import csv
+import json
 import math
 
 import numpy as np
@@ -359,3 +360,122 @@ def test_write_waves_from_a_small_run_folder(tmp_path):
     with pytest.raises(InputError, match="prey_threshold"):
         write_waves(run, tmp_path / "bad", settings=AnalysisSettings(prey_threshold=-1.0))
     assert not (tmp_path / "bad").exists()
+
+
+# ---------------------------------------------------------------------------
+# predictions for the landscape as it is
+# ---------------------------------------------------------------------------
+def test_front_on_a_mixed_landscape_matches_the_landscape_prediction(tmp_path):
+    # End to end: a generated mosaic of meadow (70 %) and cropland (30 %, no prey capacity:
+    # a sink where prey decline at -r; prey move twice as fast there), prey released at
+    # the west end, simulated and measured by `waves`. The landscape prediction is
+    # 2 sqrt(<r> D_h) (Shigesada, Kawasaki & Teramoto 1986; Shigesada & Kawasaki 1997)
+    # with <r> = 0.7 - 0.3 = 0.4 /yr and D_h = 0.1/(0.7 + 0.3/2) = 0.1176 km²/yr, as a mean
+    # over the fitted years with Bramson's correction (Bramson 1983; Ebert & van Saarloos
+    # 2000). The best-habitat bound 2 sqrt(rD) = 0.632 km/yr (Fisher 1937) is far off.
+    from conftest import to_toml
+    from rasterio.crs import CRS
+
+    from preyscape.analysis.waves_output import write_waves
+    from preyscape.landscape.generate import classify_by_fractions, gaussian_field
+    from preyscape.landscape.io import write_geotiff
+    from preyscape.runfolder import simulate
+
+    rows, cols, h = 6, 400, 50.0
+    g = Grid((rows, cols), 500000.0, 5000000.0, h, h, crs_wkt=CRS.from_epsg(32633).to_wkt())
+    cls = classify_by_fractions(gaussian_field((rows, cols), 0.7, 5), {2: 0.3, 1: 0.7})
+    write_geotiff(tmp_path / "habitat.tif", g, cls.astype(np.uint8), nodata=0, dtype="uint8")
+    y = float(g.y[rows // 2])
+    scenario = {
+        "title": "generated meadow and cropland (invented)",
+        "landscape": {"habitat": "habitat.tif", "values": "classes", "classes": [
+            {"code": 1, "name": "meadow"},
+            {"code": 2, "name": "cropland", "prey_capacity": 0.0, "prey_movement": 2.0}]},
+        "prey": {"growth": 1.0, "capacity": 100.0, "movement": "fickian", "diffusivity": 0.1},
+        "predator": {"mortality": 1.0, "movement": "fickian", "diffusivity": 1.0},
+        "interaction": {"form": "holling-ii", "attack_rate": 0.25, "handling_time": 0.002,
+                        "efficiency": 0.01},
+        "start": {"prey": "uniform", "prey_density": 0.0, "releases": [
+            {"species": "prey", "x": 500075.0, "y": y, "radius": 200.0, "density": 50.0}]},
+        "run": {"years": 45.0, "save_every": 1.0, "step": "auto", "seed": 1},
+        "analysis": {"presence": 0.01, "prey_threshold": 10.0, "transects": [
+            {"name": "east", "points": [[500000.0, y], [500000.0 + cols * h, y]]}]},
+    }
+    (tmp_path / "s.toml").write_text(to_toml(scenario))
+    run = simulate(tmp_path / "s.toml", tmp_path / "run", maps=False, progress=False)
+    land = json.loads((run / "run.json").read_text())["predictions"]["landscape"]
+    c_land = 2 * math.sqrt(0.4 * 0.1 / 0.85)
+    assert land["prey"]["speed"] == pytest.approx(c_land, rel=1e-9)
+    assert not land["prey"]["coarse"]
+    out = write_waves(run, tmp_path / "waves")
+    f = out.fronts[0]
+    assert (f.transect, f.species) == ("east", "prey")
+    assert f.landscape_km_yr == pytest.approx(c_land)
+    assert not f.far_from_asymptotic
+    # measured 0.429 km/yr: 0.68 of the best-habitat bound, 1.07 of the landscape
+    # prediction over the fitted years, 0.90 of the one along the transect
+    assert f.ratio < 0.75
+    assert f.landscape_ratio == pytest.approx(1.0, abs=0.2)
+    assert f.transect_ratio == pytest.approx(1.0, abs=0.2)
+    assert f.landscape_window_km_yr < f.landscape_km_yr  # a front from a release lags
+    row = next(csv.DictReader((tmp_path / "waves" / "fronts.csv").open()))
+    assert float(row["landscape_ratio"]) == pytest.approx(f.landscape_ratio, rel=1e-5)
+    text = "\n".join(out.summary_lines())
+    assert "landscape map-wide (homogenised)" in text and "best-habitat bound" in text
+    assert "predator: is absent from the run" in text
+
+
+def test_prey_ahead_of_the_predators_and_their_growth_there():
+    # design requirement: the prey of the last snapshot before the predators arrived;
+    # predators' growth there e a N/(1 + a h N) - m (Holling 1959) instead of at capacity
+    from preyscape.analysis import front_predictions as fp
+
+    prey = np.array([[900.0, 900.0, 300.0], [600.0, 800.0, 300.0], [100.0, 700.0, 300.0]])
+    pred = np.array([[5.0, 0.0, 0.0], [5.0, 2.0, 0.0], [5.0, 5.0, 0.1]])
+    ahead = fp.prey_ahead(prey, pred, 1.0)
+    assert ahead.tolist() == [900.0, 900.0, 300.0]
+    record = {"basis": "classes", "classes": [
+        {"code": 1, "multipliers": {"prey_capacity": 1.0, "predator_mortality": 1.0,
+                                    "predator_movement": 1.0, "prey_growth": 1.0,
+                                    "prey_movement": 1.0}}],
+              "constants": {"form": "holling-ii", "attack_rate": 0.25, "handling_time": 0.002,
+                            "efficiency": 0.01, "interference": 0.0, "growth": 4.0,
+                            "capacity": 1000.0, "mortality": 1.0, "prey_move": 0.5,
+                            "predator_move": 2.0, "prey_kind": "fickian",
+                            "predator_kind": "fickian"}}
+    r, D = fp.transect_classes(record, np.ones(3), "predator", ahead)
+    # 0.01 * 0.25 * 900 / 1.45 - 1 = 0.551724; 0.75 / 1.15 - 1 = -0.347826
+    assert r == pytest.approx([0.551724, 0.551724, -0.347826], rel=1e-5)
+    assert D.tolist() == [2.0, 2.0, 2.0]
+    # at capacity (K = 1000): 2.5 / 1.5 - 1
+    r_cap, _ = fp.transect_classes(record, np.ones(3), "predator")
+    assert r_cap == pytest.approx([2.0 / 3.0] * 3)
+
+
+def test_waves_with_nothing_to_measure_says_why_and_draws_nothing_empty(tmp_path):
+    # design requirement (honest empty states): prey present everywhere from the start,
+    # predators absent: no front, no figure, a sentence for each and for the command
+    from conftest import write_run_record
+
+    from preyscape.analysis.settings import AnalysisSettings
+    from preyscape.analysis.waves_output import write_waves
+    from preyscape.store import ResultWriter
+
+    g = Grid((10, 30), 600_000.0, 5_000_000.0, 50.0, 50.0, "")
+    run = tmp_path / "run"
+    run.mkdir()
+    w = ResultWriter(run / "results.nc", g, {"prey": "vole", "predator": "stoat"}, {})
+    for t in np.arange(0.0, 2.0 + 1e-9, 0.5):
+        w.write(float(t), np.full(g.shape, 40.0 + t), np.zeros(g.shape))
+    w.close()
+    write_run_record(run)
+    out = write_waves(run, tmp_path / "waves", settings=AnalysisSettings())
+    assert out.arrival["prey"].no_front.startswith("occupied most of the landscape")
+    assert out.arrival["predator"].no_front.startswith("is absent")
+    assert not list((tmp_path / "waves").glob("*.png"))
+    text = "\n".join(out.summary_lines())
+    assert "nothing to measure: no species has a front in this run" in text
+    blocks = out.report_parts()[0].blocks
+    assert not [b for b in blocks if type(b).__name__ == "Figure"]
+    bullets = " ".join(" ".join(b.items) for b in blocks if type(b).__name__ == "Bullets")
+    assert "no front" in bullets and "absent" in bullets

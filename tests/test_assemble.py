@@ -190,3 +190,31 @@ def test_failed_overwrite_keeps_old_folder(scenario_path, tmp_path, monkeypatch)
         simulate(scenario_path, out, overwrite=True, progress=False, maps=False)
     assert (out / "run.json").read_text() == '{"old": true}\n'
     assert list(tmp_path.glob(".kept.partial-*")) == []
+
+
+def test_derived_landscape_predictions_worked_by_hand(setup):
+    # Growth at low density per class and the homogenised speeds (docs/method.md). The
+    # test landscape: class 1 (open ground) on 429 cells, class 2 (woodland, capacity
+    # x 0.5 = 500, prey movement x 0.5, predator movement x 2) on 286: shares 0.6 and 0.4.
+    land = derived(setup)["landscape"]
+    rows = {c["code"]: c for c in land["classes"]}
+    assert rows[1]["cells"] == 429 and rows[2]["cells"] == 286
+    assert rows[1]["share"] == pytest.approx(0.6) and rows[2]["share"] == pytest.approx(0.4)
+    assert rows[2]["name"] == "woodland"
+    # Holling 1959; Rosenzweig & MacArthur 1963: e a K/(1 + a h K) - m by hand:
+    # K = 1000: 2.5/1.5 - 1 = 0.666667; K = 500 = N*: 1.25/1.25 - 1 = 0 (a sink: <= 0)
+    assert rows[1]["predator_growth"] == pytest.approx(2.0 / 3.0)
+    assert rows[2]["predator_growth"] == pytest.approx(0.0, abs=1e-12)
+    assert rows[1]["prey_growth"] == rows[2]["prey_growth"] == pytest.approx(3.7)
+    assert land["predator"]["sink_share"] == pytest.approx(0.4)
+    assert land["prey"]["sink_share"] == 0.0
+    # Shigesada, Kawasaki & Teramoto 1986: c = 2 sqrt(<r> D_h), D_h the harmonic mean.
+    # prey: D_h = 1/(0.6/0.5 + 0.4/0.25) = 1/2.8; predators: <r> = 0.4,
+    # D_h = 1/(0.6/2 + 0.4/4) = 2.5, so c = 2 sqrt(0.4 * 2.5) = 2
+    assert land["prey"]["speed"] == pytest.approx(2 * math.sqrt(3.7 / 2.8))
+    assert land["predator"]["speed"] == pytest.approx(2.0)
+    assert land["predator"]["decay_rate"] == pytest.approx(math.sqrt(0.4 / 2.5))
+    # patch length of class 1: the longer of its mean runs along rows (17.875 cells)
+    # and along columns ((22 + 23 + 16 * 24)/18 = 23.83 cells) of 100 m
+    assert rows[1]["patch_km"] == pytest.approx(0.1 * 429 / 18)
+    assert land["constants"]["capacity"] == CAPACITY and land["measures_included"] is False

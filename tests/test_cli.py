@@ -3,13 +3,24 @@
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import DX, NODATA_CELLS, SHAPE, X0, Y0, habitat_array, make_landscape, write_habitat
+from conftest import (
+    DELETE,
+    DX,
+    NODATA_CELLS,
+    SHAPE,
+    X0,
+    Y0,
+    habitat_array,
+    make_landscape,
+    write_habitat,
+)
 from rasterio.crs import CRS
 
 from preyscape.cli import main
@@ -52,6 +63,53 @@ def test_check_prints_summary(scenario_path, capsys):
     for needle in ("time step", "front speed", "critical patch", "memory"):
         assert needle in text
     assert "2.72 km/yr" in text  # Fisher 1937: 2 sqrt(3.7 * 0.5) = 2.7203 km/yr
+
+
+def test_check_prints_growth_per_class_and_the_landscape_prediction(write_scenario, tmp_path,
+                                                                     capsys):
+    # A farmed landscape: open ground on the western 30 % of the columns, cropland (prey
+    # capacity x 0.3 = 300 per km², below the predators' break-even N* = 500) on the rest.
+    # Holling 1959; Rosenzweig & MacArthur 1963, worked by hand: predators grow at
+    # e a K/(1 + a h K) - m = 2.5/1.5 - 1 = 0.667 /yr on open ground and
+    # 0.75/1.15 - 1 = -0.348 /yr on cropland, a sink over 70 % of the map.
+    hab = np.ones(SHAPE, np.uint8)
+    hab[:, 9:] = 2
+    write_habitat(tmp_path / "farmed.tif", hab)
+    path = write_scenario({"landscape.habitat": "farmed.tif",
+                           "landscape.classes.1.name": "cropland",
+                           "landscape.classes.1.prey_capacity": 0.3}, name="farmed.toml")
+    assert main(["check", str(path)]) == 0
+    text = capsys.readouterr().out
+    lines = text.splitlines()
+    crop = next(ln for ln in lines if ln.strip().startswith("cropland"))
+    assert "70.0 %" in crop and "-0.348 sink" in crop and "+3.7 source" in crop
+    ground = next(ln for ln in lines if ln.strip().startswith("open ground"))
+    assert "30.0 %" in ground and "+0.667 source" in ground
+    assert "sink share          prey 0.0 %, predator 70.0 % of the landscape" in text
+    flat = " ".join(text.split())
+    assert "Predators can spread only through a minority of the map" in flat
+    # the landscape's own speed beside the best-habitat one: <r> = 0.3 * 0.667 + 0.7 *
+    # (-0.348) < 0, so in words, not "0 km/yr" (Shigesada & Kawasaki 1997)
+    assert "predator landscape no invasion expected" in flat
+    assert not re.search(r"(?<![\d.])0 km/yr", text)
+    # Dunbar 1983: 2 sqrt(D_P (e a K/(1 + a h K) - m)) = 2 sqrt(2 * 0.667) = 2.309 km/yr
+    assert "predator front      2.309 km/yr into prey at capacity (Dunbar 1983" in text
+    # predators that cannot grow even in the best habitat: words instead of a speed
+    path = write_scenario({"predator.mortality": 5.0}, name="starving.toml")
+    assert main(["check", str(path)]) == 0
+    flat = " ".join(capsys.readouterr().out.split())
+    assert "predator front none: predators cannot grow even on prey at capacity" in flat
+    assert "predator landscape no front: predators cannot grow in any habitat class" in flat
+    # Lotka-Volterra prey have no capacity: the predators' speed is undefined, in words
+    # (theory.predator_speed used to raise TypeError on K = None)
+    path = write_scenario({"interaction.form": "lotka-volterra",
+                           "interaction.handling_time": DELETE, "prey.capacity": DELETE,
+                           "start.prey": "uniform", "start.prey_density": 100.0},
+                          name="lv.toml")
+    assert main(["check", str(path)]) == 0
+    flat = " ".join(capsys.readouterr().out.split())
+    assert "predator front not defined: prey without a carrying capacity" in flat
+    assert "sink share prey 0.0 %, predator n/a of the landscape" in flat
 
 
 def test_check_json(scenario_path, capsys):
@@ -399,7 +457,9 @@ def test_analysis_command_writes_its_output(variant_runs, command, tmp_path, cap
         assert any(n.endswith(".tif") for n in names) and any(n.endswith(".png") for n in names)
     elif command == "waves":
         assert {"fronts.csv", "predator_arrival.tif"} <= names
-        assert "east line, predator: front" in cap.out
+        # a fitted front, or the sentence saying none crossed the line (half a year run)
+        assert ("east line, predator: front" in cap.out
+                or "east line, predator: no front crossed this transect" in cap.out)
         assert "east line" in (out / "fronts.csv").read_text()
     else:
         assert {"refuges.csv", "effects.json"} <= names

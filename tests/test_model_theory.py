@@ -72,6 +72,10 @@ def test_speeds_and_patch_sizes():
     assert theory.predator_speed(inter, 2.0, 0.1, 3.0) == pytest.approx(
         2 * math.sqrt(3.0 * (2.0 / 3.0 - 0.1)))
     assert theory.predator_speed(inter, 0.01, 1.0, 3.0) == 0.0
+    # Lotka-Volterra prey have no capacity: the speed is undefined, not an error
+    lv = Interaction("lotka-volterra", attack_rate=0.5, efficiency=0.5)
+    assert math.isnan(theory.predator_speed(lv, None, 1.0, 3.0))
+    assert math.isnan(theory.predator_speed(lv, math.nan, 1.0, 3.0))
     cp = theory.critical_patch(2.0, 0.5)
     assert cp["strip_width"] == pytest.approx(math.pi / 2)
     assert cp["square_side"] == pytest.approx(math.pi * math.sqrt(0.5))

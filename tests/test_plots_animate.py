@@ -132,6 +132,43 @@ def test_one_colour_scale_for_the_whole_animation(tmp_path):
     assert count(frames[1], 1.0) > 20_000 and count(frames[1], 0.5) < 2000
 
 
+def test_log_scale_shows_a_front_at_low_density(tmp_path):
+    # design requirement (a front invading at low density must show): predators at 40 per
+    # km² in the west, 0.04 in the middle, none in the east. On the linear scale 0.04 is
+    # the bottom colour like the empty east; on the log scale from the presence
+    # threshold 0.01 (matplotlib LogNorm, reference library) it sits at
+    # log(4)/log(4000) = 0.167 of the scale, and the empty east takes the lowest colour,
+    # not the no-data grey. "auto" picks log: the densities present span 40/0.04 = 1000.
+    dens = np.zeros(SHAPE)
+    dens[:, :8] = 40.0
+    dens[:, 8:15] = 0.04
+    nc = write_results(tmp_path / "results.nc", [0.0, 1.0], [dens, dens], [dens, dens])
+    ramp = colormaps[SPECIES_CMAP["predator"]]
+
+    def count(frame, value):
+        rgb = np.array(ramp(value)[:3]) * 255
+        return int((np.abs(frame.astype(float) - rgb).max(axis=-1) <= 6).sum())
+
+    grey = np.array([int(NO_DATA[i:i + 2], 16) for i in (1, 3, 5)])
+    low = np.log(4.0) / np.log(4000.0)
+    lin = frames_of(animate_file(nc, tmp_path / "lin.gif", species=("predator",)))[0]
+    log = frames_of(animate_file(nc, tmp_path / "log.gif", species=("predator",),
+                                 scale="auto", floor=0.01))[0]
+    assert count(log, low) > 8000 and count(lin, low) < 1000
+    assert count(log, 0.0) > 8000  # the empty east, in the lowest colour
+    # no-data grey only in the no-data block: no more than on the linear map (the empty
+    # east in grey would add some 10^4 pixels)
+    assert np.all(log == grey, axis=-1).sum() <= 1.05 * np.all(lin == grey, axis=-1).sum()
+    # densities present spanning less than a factor 100 keep the linear scale
+    flat = np.full(SHAPE, 40.0)
+    flat[:, 8:] = 1.0
+    nc2 = write_results(tmp_path / "flat.nc", [0.0], [flat], [flat])
+    a = frames_of(animate_file(nc2, tmp_path / "a.gif", species=("predator",), scale="auto",
+                               floor=0.01))[0]
+    b = frames_of(animate_file(nc2, tmp_path / "b.gif", species=("predator",)))[0]
+    assert np.array_equal(a, b)
+
+
 def test_max_frames_thins_evenly(tmp_path):
     # design requirement: at most max_frames frames, first and last included
     times, prey, pred = moving_blob(9)

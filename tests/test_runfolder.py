@@ -292,3 +292,55 @@ def test_toml_round_trip_of_measures(tmp_path):
     data = apply_overrides(BASE, {"measures": [{"name": "x", "kind": "fence", "geometry": "f",
                                                 "permeability": {"predator": 0.0}}]})
     assert "[measures.permeability]" in to_toml(data)
+
+
+def test_snapshot_maps_pick_a_log_scale_from_the_presence_threshold(write_scenario, tmp_path,
+                                                                    monkeypatch):
+    # design requirement (issue: a front invading at low density vanished in the bottom
+    # colour). plots.choose_scale: log when the densities at or above the presence
+    # threshold span more than two orders of magnitude (worked by hand below).
+    from matplotlib import colormaps
+    from PIL import Image
+
+    from preyscape import plots, runfolder
+    from preyscape.landscape.grid import Grid
+    from preyscape.store import grid_of, time_means
+
+    front = np.zeros(SHAPE)
+    front[:, :10], front[:, 10:20] = 40.0, 0.04
+    assert plots.choose_scale([front], 0.01) == "log"  # 40 / 0.04 = 1000 > 100
+    assert plots.choose_scale([front], 0.1) == "linear"  # only 40 is present
+    assert plots.choose_scale([front], None) == "linear"
+    # the panels: on the log scale 0.04 sits at log(4)/log(4000) of the colour map
+    # (matplotlib LogNorm, reference library) and the empty east in its lowest colour
+    grid = Grid(SHAPE, X0, Y0, DX, DX)
+    ramp = colormaps[plots.SPECIES_CMAP["predator"]]
+
+    def share(path, value):
+        rgb = np.asarray(Image.open(path).convert("RGB"), float)
+        want = np.array(ramp(value)[:3]) * 255
+        return float((np.abs(rgb - want).max(axis=-1) <= 3).mean())
+
+    low = math.log(4.0) / math.log(4000.0)
+    log = plots.snapshot_panels(grid, np.array([0.0]), [front], "predator", "stoat",
+                                tmp_path / "log.png", scale="auto", floor=0.01)
+    lin = plots.snapshot_panels(grid, np.array([0.0]), [front], "predator", "stoat",
+                                tmp_path / "lin.png")
+    assert share(log, low) > 0.05 and share(lin, low) < 0.005
+    assert share(log, 0.0) > 0.05
+    # the run's maps ask for it with the scenario's presence threshold
+    seen = []
+    real = plots.snapshot_panels
+    monkeypatch.setattr(plots, "snapshot_panels",
+                        lambda *a, **kw: seen.append(kw) or real(*a, **kw))
+    path = write_scenario({"analysis.presence": 0.002}, name="presence.toml")
+    folder = simulate(path, tmp_path / "run", maps=False, progress=False)
+    sc = load_scenario(path)
+    import xarray as xr
+
+    with xr.open_dataset(folder / "results.nc", decode_times=False) as ds:
+        g = grid_of(ds)
+    means = time_means(folder / "results.nc", g.mask)
+    runfolder.draw_run_maps(folder, sc, g, prepare(sc).habitat, means, means, [])
+    assert [kw["floor"] for kw in seen] == [0.002, 0.002]
+    assert all(kw["scale"] == "auto" for kw in seen)

@@ -43,8 +43,8 @@ from preyscape.scenario import MeasureSpec, Scenario
 from preyscape.solve.stepper import Stepper, StepStats, auto_step
 
 __all__ = ["Epoch", "Setup", "check_variant_measures", "derived", "epoch_state",
-           "fence_topology", "interaction_of", "measure_epochs", "place_measures",
-           "place_targets", "prepare", "variant_fence_topology"]
+           "fence_topology", "interaction_of", "landscape_predictions", "measure_epochs",
+           "place_measures", "place_targets", "prepare", "variant_fence_topology"]
 
 Epoch = tuple[float, float, tuple[str, ...]]
 """``(t0, t1, names of the measures acting in [t0, t1))``, years."""
@@ -434,7 +434,45 @@ def predictions(setup: Setup) -> dict:
     out["growth"] = sc.prey.growth
     out["prey_movement"] = sc.prey.move_coefficient
     out["predator_movement"] = sc.predator.move_coefficient
+    out["landscape"] = d["landscape"]
     return out
+
+
+def landscape_predictions(setup: Setup) -> dict:
+    """Predictions for the landscape as it is: growth per class, speeds of the mix.
+
+    The habitat classes (or suitability bands) before measures, through
+    :func:`preyscape.model.landscape_theory.landscape_prediction`; JSON values
+    (:func:`~preyscape.model.landscape_theory.prediction_record`) plus the
+    constants that rebuild per-cell growth along a transect.
+    """
+    from preyscape.model import landscape_theory as lt
+
+    sc, g, inter = setup.scenario, setup.grid, setup.interaction
+    ls = sc.landscape
+    table = ({c.code: c.model_dump() for c in ls.classes} if ls.values == "classes" else None)
+    classes = lt.map_classes(setup.habitat, g.mask, g.dx, g.dy, table,
+                             {c.code: c.name or str(c.code) for c in ls.classes})
+    K = sc.prey.capacity if inter.logistic else None
+    pred = lt.landscape_prediction(
+        inter, sc.prey.growth, K, sc.predator.mortality, sc.prey.move_coefficient,
+        sc.predator.move_coefficient, classes.multipliers, classes.cells,
+        prey_kind=sc.prey.movement, predator_kind=sc.predator.movement,
+        patch_length_km=classes.patch_km, names=classes.names)
+    rec = lt.prediction_record(pred, classes)
+    smooth = lt.prey_spread_ratio(pred.growth.prey.growth, sc.prey.move_coefficient
+                                  * classes.multipliers["prey_movement"], classes.patch_km,
+                                  classes.shares)
+    rec["predator"]["prey_spread_ratio"] = smooth
+    rec["predator"]["prey_smoothed"] = bool(smooth > lt.PREY_SMOOTHING)
+    rec["constants"] = {
+        "form": inter.form, "attack_rate": inter.attack_rate, "handling_time": inter.h,
+        "efficiency": inter.efficiency, "interference": inter.c, "growth": sc.prey.growth,
+        "capacity": K, "mortality": sc.predator.mortality,
+        "prey_move": sc.prey.move_coefficient, "predator_move": sc.predator.move_coefficient,
+        "prey_kind": sc.prey.movement, "predator_kind": sc.predator.movement}
+    rec["measures_included"] = False
+    return rec
 
 
 def derived(setup: Setup) -> dict:
@@ -485,6 +523,7 @@ def derived(setup: Setup) -> dict:
         "snapshots": n_snap,
         "measures": [m.summary(g.cell_area_km2) for m in setup.measures],
         "fence_topology": fence_topology(sc, g, setup.measures),
+        "landscape": landscape_predictions(setup),
         "variants": [
             {"name": v.name, "add": list(v.add), "remove": list(v.remove), "set": dict(v.set)}
             for v in sc.variants

@@ -229,11 +229,15 @@ def draw_run_maps(folder: Path, sc: Scenario, grid: Grid, habitat: np.ndarray, m
     """Draw the standard maps of a finished run into ``folder/maps``.
 
     Habitat with the measures, time-mean and final density of each species,
-    landscape totals, and snapshot panels; densities in animals/km².
+    landscape totals, and snapshot panels; densities in animals/km². The
+    snapshot panels of a species use a log scale from the presence threshold
+    when its densities present span more than two orders of magnitude
+    (:func:`preyscape.plots.choose_scale`).
     """
     import xarray as xr
 
     from preyscape import plots
+    from preyscape.analysis.settings import DEFAULTS
 
     maps = folder / "maps"
     names = {"prey": sc.prey.name or "prey", "predator": sc.predator.name or "predator"}
@@ -255,10 +259,12 @@ def draw_run_maps(folder: Path, sc: Scenario, grid: Grid, habitat: np.ndarray, m
         out.append(plots.totals_plot(t, ds["prey_total"].values, ds["predator_total"].values,
                                      names, maps / "totals.png"))
         pick = np.unique(np.linspace(0, len(t) - 1, 5).round().astype(int))
+        floor = sc.analysis.presence or DEFAULTS["presence"]  # log scale for fronts (issue 15)
         for sp in ("prey", "predator"):
             frames = [ds[sp].isel(time=int(k)).values for k in pick]
             out.append(plots.snapshot_panels(grid, t[pick], frames, sp, names[sp],
-                                             maps / f"{sp}_snapshots.png"))
+                                             maps / f"{sp}_snapshots.png", scale="auto",
+                                             floor=floor))
     return out
 
 

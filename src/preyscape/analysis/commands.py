@@ -49,7 +49,8 @@ REGISTRY: tuple[Entry, ...] = (
     Entry("waves", "arrival times, front speeds and periodic waves",
           "preyscape.analysis.waves_output"),
     Entry("effects", "refuge, corridor and transect effects", "preyscape.analysis.effects_output"),
-    Entry("compare", "map where run B differs from run A", "preyscape.analysis.compare_output"),
+    Entry("compare", "where, when and by how much alternatives change the outcome against a "
+          "reference run", "preyscape.analysis.compare_output"),
 )
 """The analyses, in the order the command line lists them."""
 

@@ -9,7 +9,7 @@ several transects from every snapshot, one snapshot at a time.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -18,8 +18,9 @@ import numpy as np
 from preyscape.errors import InputError
 from preyscape.landscape.grid import Grid
 
-__all__ = ["SampledTransect", "TransectSeries", "front_position", "front_positions",
-           "profile", "sample_transect", "transect_series"]
+__all__ = ["SampledTransect", "TransectSeries", "auto_transect", "front_position",
+           "front_positions", "profile", "sample_transect", "transect_series",
+           "transects_from_file"]
 
 
 def _frames_of(ds, species: str):
@@ -292,3 +293,67 @@ def _as_series(source, times, transect, species) -> TransectSeries:
     if transect is None:
         raise ValueError("a transect is needed unless a TransectSeries is given")
     return transect_series(source, transect, species=species, times=times)  # type: ignore[return-value]
+
+
+# --- which lines to measure along (moved here from waves_output) ---------------------
+def transects_from_file(path, grid: Grid) -> tuple:
+    """Transects from a GeoJSON file of lines, in ``grid``'s CRS (metres).
+
+    Returns
+    -------
+    tuple of TransectLine
+
+    Raises
+    ------
+    InputError
+        If the file holds no LineString.
+    """
+    from preyscape.analysis.settings import TransectLine
+    from preyscape.landscape.measures import read_geometry
+
+    out = []
+    for k, shape in enumerate(read_geometry(path, grid, source=str(path))):
+        g = shape.geometry
+        lines = list(g.geoms) if hasattr(g, "geoms") else [g]
+        for j, line in enumerate(lines):
+            if line.geom_type != "LineString":
+                continue
+            name = str(shape.properties.get("name") or f"transect {k + 1}")
+            if len(lines) > 1:
+                name += f" {j + 1}"
+            out.append(TransectLine(name, tuple((float(x), float(y))
+                                                for x, y, *_ in line.coords)))
+    if not out:
+        raise InputError("no LineString in the file; transects are lines", str(path))
+    return tuple(out)
+
+
+def auto_transect(grid: Grid, arrivals: Mapping[str, np.ndarray]):
+    """A transect along the longest path a front took, or None.
+
+    From where a species was first (the centroid of its earliest cells) to
+    the cell it reached last, for predators first, else prey; ``arrivals``
+    maps species to arrival-time maps (years, NaN: never).
+
+    Returns
+    -------
+    TransectLine or None
+        Named ``auto``; None when no species spread over more than a cell.
+    """
+    from preyscape.analysis.settings import TransectLine
+
+    for sp in ("predator", "prey"):
+        a = arrivals.get(sp)
+        if a is None or np.count_nonzero(np.isfinite(a)) < 2:
+            continue
+        lo, hi = float(np.nanmin(a)), float(np.nanmax(a))
+        if not hi > lo:
+            continue
+        rows, cols = np.nonzero(a <= lo)
+        x0, y0 = float(np.mean(grid.x[cols])), float(np.mean(grid.y[rows]))
+        r1, c1 = np.unravel_index(int(np.nanargmax(a)), a.shape)
+        x1, y1 = float(grid.x[c1]), float(grid.y[r1])
+        if math.hypot(x1 - x0, y1 - y0) < max(grid.dx, grid.dy):
+            continue
+        return TransectLine("auto", ((x0, y0), (x1, y1)))
+    return None

@@ -6,8 +6,13 @@ into a new output folder::
     prey_arrival.tif, predator_arrival.tif          arrival time, years (NaN: never)
     prey_front_speed.tif, predator_front_speed.tif  local front speed, km/yr
     prey_arrival.png, ..._front_speed.png           maps of the above
-    fronts.csv                                      fitted speed per transect and species
+    fronts.csv                                      fitted speed per transect and species,
+                                                    with the best-habitat, landscape and
+                                                    transect predictions
     front_<transect>_<species>.png                  front position against time
+
+A species with no front (absent, present almost everywhere from the start,
+or never spreading beyond where it started) gets no figure, only a sentence.
 
 Examples
 --------
@@ -27,6 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
+from preyscape.analysis import front_predictions as fp
 from preyscape.analysis.commands import Command, Option
 from preyscape.analysis.output import (
     Bullets,
@@ -41,6 +47,7 @@ from preyscape.analysis.output import (
     write_raster,
 )
 from preyscape.analysis.settings import FRONT_THRESHOLD_SHARE, AnalysisSettings, TransectLine
+from preyscape.analysis.transects import auto_transect, transects_from_file
 from preyscape.errors import InputError
 from preyscape.names import slug
 from preyscape.store import SPECIES
@@ -61,12 +68,20 @@ COMMAND = Command(
     out_help="RUN/waves",
 )
 
+PREDICTION_COLUMNS = (
+    "landscape_km_yr", "landscape_window_km_yr", "landscape_ratio", "transect_km_yr",
+    "transect_homogenised_km_yr", "transect_window_km_yr", "transect_ratio",
+    "correction_km_yr", "far_from_asymptotic", "coarse", "transect_coarse",
+)
+"""Columns of ``fronts.csv`` from :func:`preyscape.analysis.front_predictions.columns`."""
+
 FRONTS_HEADER = [
     "transect", "species", "threshold_per_km2", "speed_km_yr", "stderr_km_yr", "r2",
     "predicted_km_yr", "ratio", "n", "wavelength_km", "period_yr", "phase_speed_km_yr",
+    "fit_start_yr", "fit_end_yr", *PREDICTION_COLUMNS,
 ]
 
-ARRIVAL_CMAP = "cividis"  # sequential, perceptually uniform, readable in grey
+ARRIVAL_CMAP = "viridis"  # sequential, perceptually uniform, no grey tones (grey: no data)
 SPEED_CMAP = "plasma"
 TRANSECT_COLOUR = "#d62728"
 
@@ -83,6 +98,8 @@ class SpeciesArrival:
         ``"given"`` or how the default was chosen.
     reached_fraction, present_at_start_fraction : float
         Share (0–1) of the data cells reached at all, and already at t = 0.
+    occupied_at_start_fraction : float
+        Share (0–1) of the data cells at or above the presence threshold at t = 0.
     median_years, latest_years : float or None
         Median and latest arrival time of the cells reached, years.
     local_speed_median : float or None
@@ -97,10 +114,28 @@ class SpeciesArrival:
     latest_years: float | None
     local_speed_median: float | None
 
+    occupied_at_start_fraction: float = 0.0
+
     @property
     def settled(self) -> bool:
-        """Whether the species occupied most of the landscape from the start (no front)."""
-        return self.present_at_start_fraction > 0.5
+        """Whether the species occupied most of the landscape from the start (no front).
+
+        Occupied: at or above the arrival threshold, or at least present (the
+        presence threshold) on most data cells at t = 0.
+        """
+        return max(self.present_at_start_fraction, self.occupied_at_start_fraction) > 0.5
+
+    @property
+    def no_front(self) -> str | None:
+        """Why there is no front of this species to follow, in words (None: there is one)."""
+        if self.threshold is None:
+            return "is absent from the run, so there is no front to follow"
+        if self.settled:
+            return "occupied most of the landscape from the start, so there is no front of it"
+        if self.reached_fraction <= self.present_at_start_fraction:
+            return (f"never reached {self.threshold:.3g} per km² beyond where it was at the "
+                    "start, so there is no front to follow")
+        return None
 
 
 @dataclass(frozen=True)
@@ -122,6 +157,18 @@ class FrontRow:
     fit_start_yr: float | None
     fit_end_yr: float | None
     figure: str
+    landscape_km_yr: float | None = None
+    landscape_window_km_yr: float | None = None
+    landscape_ratio: float | None = None
+    transect_km_yr: float | None = None
+    transect_homogenised_km_yr: float | None = None
+    transect_window_km_yr: float | None = None
+    transect_ratio: float | None = None
+    correction_km_yr: float | None = None
+    far_from_asymptotic: bool = False
+    coarse: bool = False
+    transect_coarse: bool = False
+    note: str = ""
 
 
 @dataclass(frozen=True)
@@ -151,15 +198,25 @@ class WavesOutput(Written):
     def summary_lines(self) -> list[str]:
         lines = [f"waves: {self.folder}"]
         for sp, a in self.arrival.items():
-            if a.settled:
-                lines.append(f"  {sp}: present on most of the landscape from the start, so no "
-                             "front")
-        for f in self.fronts:
-            if self.arrival[f.species].settled:
-                continue
-            lines.append(f"  {f.transect}, {f.species}: front {_fmt(f.speed_km_yr, 'km/yr')} "
-                         f"(predicted minimal {_fmt(f.predicted_km_yr, 'km/yr')})")
+            if a.no_front:
+                lines.append(f"  {sp}: {a.no_front}")
+        shown = [f for f in self.fronts if not self.arrival[f.species].no_front]
+        for f in shown:
+            lines += fp.front_lines(f)
+        if not shown:
+            lines.append("  nothing to measure: " + self.nothing_to_measure())
         return lines
+
+    def nothing_to_measure(self) -> str:
+        """Why no front speed was fitted, in words."""
+        if all(a.no_front for a in self.arrival.values()):
+            return "no species has a front in this run (see above)."
+        if not self.transects:
+            return ("no transect was given (--transects or the scenario's analysis.transects) "
+                    "and none could be drawn from the arrival map.")
+        return ("no front crossed a transect far enough from its ends, at two or more "
+                "snapshots, to fit a speed; draw a transect along the way the front moved, "
+                "or save snapshots more often.")
 
     def report_parts(self) -> list[Part]:
         return [Part("Travelling waves", tuple(_report_blocks(self)))]
@@ -169,6 +226,16 @@ def _fmt(x, unit: str = "", digits: int = 4) -> str:
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return "n/a"
     return f"{x:.{digits}g}{(' ' + unit) if unit else ''}"
+
+
+def _vs(measured: float | None, predicted: float | None) -> str:
+    """``"4.47 (1.07)"``: a predicted speed and the ratio fitted/predicted."""
+    if predicted is None:
+        return "n/a"
+    if not predicted > 0:
+        return "no invasion expected"
+    return f"{predicted:.3g} ({measured / predicted:.2f})" if measured is not None else (
+        f"{predicted:.3g}")
 
 
 def _label(out: WavesOutput, sp: str) -> str:
@@ -182,41 +249,54 @@ def _report_blocks(out: WavesOutput) -> list:
         "The arrival time of a cell is the first time its density reaches the threshold "
         f"(prey {_fmt(thr.get('prey'), 'per km²')}, predators "
         f"{_fmt(thr.get('predator'), 'per km²')}). The front speed along a transect is the "
-        "slope of the front's position against time. Predicted speeds are the published "
-        "minimal speeds for the best habitat: Fisher–KPP 2√(rD) for prey spreading into "
-        "empty habitat, and Dunbar's 2√(D(eaK/(1+ahK) − m)) for predators invading prey at "
-        "capacity. A front approaches its minimal speed from below: over a few kilometres "
-        "it is slower, and poorer habitat slows it further.")]
-    settled = {sp for sp, a in out.arrival.items() if a.settled}
-    notes = [f"{_label(out, sp)} occupied most of the landscape from the start, so there is "
-             "no front of it to follow." for sp in SPECIES if sp in settled]
-    rows = []
-    for f in out.fronts:
-        if f.species in settled or f.n < 2:
+        "slope of the front's position against time. It is set against two predictions. "
+        "The best-habitat bound is the published minimal speed in a landscape made of the "
+        "best habitat only: Fisher–KPP 2√(rD) for prey spreading into empty habitat, and "
+        "Dunbar's 2√(D(eaK/(1+ahK) − m)) for predators invading prey at capacity. The "
+        "landscape prediction is the speed through the habitat the transect crosses "
+        "(growth and movement of each class, homogenised or as periodic patches; "
+        "Shigesada, Kawasaki & Teramoto 1986), and the map-wide value from all classes. "
+        "A front from a local release approaches its speed from below, lagging by a term "
+        "that grows like ln t (Bramson 1983; Ebert & van Saarloos 2000), so the landscape "
+        "prediction is also given as the mean speed expected over the snapshots the fit "
+        "used, and the ratio is taken to that.")]
+    notes = [f"{_label(out, sp)} {a.no_front}." for sp, a in out.arrival.items() if a.no_front]
+    fronts = [f for f in out.fronts if not out.arrival[f.species].no_front]
+    rows, waves = [], []
+    for f in fronts:
+        if f.n < 2:
+            notes.append(f"{f.transect}, {f.species}: the front did not cross this transect at "
+                         "two or more snapshots, so no speed was fitted.")
             continue
-        rows.append((f.transect, _label(out, f.species), f.speed_km_yr, f.stderr_km_yr,
-                     f.predicted_km_yr, f.ratio, f.n, f.wavelength_km, f.period_yr))
-        if f.ratio is not None and math.isfinite(f.ratio):
-            notes.append(f"{f.transect}, {f.species}: the fitted front moved at "
-                         f"{100 * f.ratio:.0f} % of the minimal speed predicted for the best "
-                         "habitat. Below 100 % is expected over short distances (a front "
-                         "approaches its minimal speed from below; Bramson 1983) and where "
-                         "poorer habitat lies on the way; well above it would point to a too "
-                         "coarse step or threshold.")
+        mean = f.transect_window_km_yr
+        err = f" ± {f.stderr_km_yr:.2g}" if f.stderr_km_yr is not None else ""
+        rows.append((f.transect, _label(out, f.species), f"{f.speed_km_yr:.3g}{err}",
+                     _vs(f.speed_km_yr, f.predicted_km_yr),
+                     _vs(f.speed_km_yr, f.transect_km_yr),
+                     "n/a" if mean is None else  # too early: the lag is not known
+                     "far from it" if f.far_from_asymptotic else _vs(f.speed_km_yr, mean),
+                     _vs(f.speed_km_yr, f.landscape_km_yr)))
+        waves.append((f.transect, _label(out, f.species), f.n, f.wavelength_km, f.period_yr))
+        if f.note:
+            notes.append(f.note)
     if rows:
-        blocks.append(Table(("transect", "species", "fitted speed (km/yr)",
-                             "std. error (km/yr)", "predicted minimal speed (km/yr)",
-                             "fitted / predicted", "snapshots",
-                             "wavelength behind the front (km)", "period behind the front (yr)"),
-                            tuple(rows)))
-    else:
-        blocks.append(Paragraph("No front could be fitted (no transect, or no front crossed "
-                                "one)."))
+        blocks.append(Table(("transect", "species", "fitted", "best habitat",
+                             "landscape, transect", "its mean over the fit",
+                             "landscape, map"), tuple(rows), caption=(
+            "Front speeds in km/yr: fitted, and each prediction with fitted/predicted in "
+            "brackets. \"Its mean over the fit\": the transect's prediction averaged over the "
+            "fitted years, with Bramson's lag of a front from a release (\"far from it\": too "
+            "early in the front's life for the lag to be known).")))
+        blocks.append(Table(("transect", "species", "snapshots", "wavelength (km)",
+                             "period (yr)"), tuple(waves),
+                            caption="Fits and periodic waves behind the front"))
+    elif not notes:
+        blocks.append(Paragraph("No front speed could be fitted: " + out.nothing_to_measure()))
     if notes:
         blocks.append(Bullets(tuple(notes)))
-    shown_fronts = {f.figure for f in out.fronts if f.n >= 2 and f.species not in settled}
+    shown_fronts = {f.figure for f in fronts if f.n >= 2}
     for rec in out.files:
-        if rec.role not in ("map", "figure") or rec.species in settled:
+        if rec.role not in ("map", "figure"):
             continue
         if rec.key == "front" and rec.name not in shown_fronts:
             continue
@@ -242,53 +322,6 @@ def write(runs: Sequence, settings: AnalysisSettings, out: Path, *, overwrite: b
         settings = replace(settings, transects=transects_from_file(transects_file,
                                                                     runs[0].grid))
     return write_waves(runs[0], out, settings=settings, overwrite=overwrite)
-
-
-def transects_from_file(path: Path, grid) -> tuple[TransectLine, ...]:
-    """Transects from a GeoJSON file of lines, in ``grid``'s CRS (metres).
-
-    Raises
-    ------
-    InputError
-        If the file holds no LineString.
-    """
-    from preyscape.landscape.measures import read_geometry
-
-    out = []
-    for k, shape in enumerate(read_geometry(path, grid, source=str(path))):
-        g = shape.geometry
-        lines = list(g.geoms) if hasattr(g, "geoms") else [g]
-        for j, line in enumerate(lines):
-            if line.geom_type != "LineString":
-                continue
-            name = str(shape.properties.get("name") or f"transect {k + 1}")
-            if len(lines) > 1:
-                name += f" {j + 1}"
-            out.append(TransectLine(name, tuple((float(x), float(y))
-                                                for x, y, *_ in line.coords)))
-    if not out:
-        raise InputError("no LineString in the file; transects are lines", str(path))
-    return tuple(out)
-
-
-def _auto_line(grid, arrivals: Mapping[str, np.ndarray]) -> TransectLine | None:
-    # from where a species was first (the centroid of its earliest cells) to the
-    # cell it reached last: the longest path the front took; predators first
-    for sp in ("predator", "prey"):
-        a = arrivals.get(sp)
-        if a is None or np.count_nonzero(np.isfinite(a)) < 2:
-            continue
-        lo, hi = float(np.nanmin(a)), float(np.nanmax(a))
-        if not hi > lo:
-            continue
-        rows, cols = np.nonzero(a <= lo)
-        x0, y0 = float(np.mean(grid.x[cols])), float(np.mean(grid.y[rows]))
-        r1, c1 = np.unravel_index(int(np.nanargmax(a)), a.shape)
-        x1, y1 = float(grid.x[c1]), float(grid.y[r1])
-        if math.hypot(x1 - x0, y1 - y0) < max(grid.dx, grid.dy):
-            continue
-        return TransectLine("auto", ((x0, y0), (x1, y1)))
-    return None
 
 
 def _f(v) -> float | None:
@@ -340,7 +373,7 @@ def write_waves(run, out: str | Path, *, settings: AnalysisSettings | None = Non
         arrival, arrivals, speeds, files = _arrival_maps(tmp, run, settings)
         lines, auto = settings.transects, False
         if not lines:
-            line = _auto_line(run.grid, arrivals)
+            line = auto_transect(run.grid, arrivals)
             lines, auto = ((line,), True) if line is not None else ((), False)
         trs = _sample(run.grid, lines, auto)
         files += _draw_maps(tmp, run, arrival, arrivals, speeds, trs)
@@ -377,12 +410,15 @@ def _arrival_maps(tmp: Path, run, settings: AnalysisSettings):
             files.append(FileRecord(name, "raster", f"{sp.capitalize()} {what}", sp))
         reached = np.isfinite(a) & grid.mask
         fin = speed[np.isfinite(speed)]
+        with np.errstate(invalid="ignore"):
+            occupied = float(np.sum(run.frame(sp, 0)[grid.mask] >= settings.presence))
         arrival[sp] = SpeciesArrival(
             _f(thr), source, float(reached.sum() / max(grid.n_cells, 1)),
             float((reached & (a <= 0)).sum() / max(grid.n_cells, 1)),
             _f(float(np.median(a[reached]))) if reached.any() else None,
             _f(float(np.max(a[reached]))) if reached.any() else None,
-            _f(float(np.median(fin))) if fin.size else None)
+            _f(float(np.median(fin))) if fin.size else None,
+            occupied / max(grid.n_cells, 1))
         arrivals[sp], speeds[sp] = a, speed
     return arrival, arrivals, speeds, files
 
@@ -403,9 +439,10 @@ def _sample(grid, lines: Sequence[TransectLine], auto: bool) -> list:
 def _draw_maps(tmp: Path, run, arrival, arrivals, speeds, trs) -> list[FileRecord]:
     files = []
     for sp in SPECIES:
+        if arrival[sp].no_front:  # a sentence instead of an empty figure
+            continue
         thr = arrival[sp].threshold
-        title = (f"{sp.capitalize()} arrival (density ≥ {thr:.3g} per km²)" if thr is not None
-                 else f"{sp.capitalize()} arrival (absent)")
+        title = f"{sp.capitalize()} arrival (density ≥ {thr:.3g} per km²)"
         arrival_map(run.grid, arrivals[sp], title, tmp / f"{sp}_arrival.png", trs)
         stitle = f"{sp.capitalize()} local front speed"
         speed_map(run.grid, speeds[sp], stitle, tmp / f"{sp}_front_speed.png")
@@ -421,35 +458,62 @@ def _fit_fronts(tmp: Path, run, arrival, trs, pred) -> tuple[list[FrontRow], lis
     from preyscape.analysis import waves as W
 
     fronts, files = [], []
+    land, habitat = run.predictions.get("landscape"), run.habitat
+    series = {sp: W.transect_series(run.ds, trs, species=sp, times=run.times) if trs else []
+              for sp in SPECIES}
     for sp in SPECIES:
         thr = arrival[sp].threshold
         if not trs or thr is None:
             continue
-        series = W.transect_series(run.ds, trs, species=sp, times=run.times)
-        for tr, s in zip(trs, series, strict=True):
+        for j, (tr, s) in enumerate(zip(trs, series[sp], strict=True)):
             fit = W.front_speed(s, None, None, thr, predicted_km_yr=pred.get(sp, math.nan))
             wave = W.wave_summary(s, threshold=thr)
+            ahead = (fp.prey_ahead(series["prey"][j].values, s.values, thr)
+                     if sp == "predator" else None)
+            p = fp.predict_along(land, habitat, tr, fit, sp, _f(fit.predicted), ahead)
             name = f"front_{slug(tr.name)}_{sp}.png"
-            front_plot(fit, tmp / name, f"{sp.capitalize()} front along transect {tr.name!r}")
-            files.append(FileRecord(name, "figure", f"front {tr.name} {sp}", sp, key="front"))
+            has_fit = fit.n >= 2 and math.isfinite(fit.speed)
+            if has_fit and not arrival[sp].no_front:  # no empty plots
+                front_plot(fit, tmp / name, f"{sp.capitalize()} front along transect "
+                           f"{tr.name!r}", landscape=p.predicted)
+                files.append(FileRecord(name, "figure", f"front {tr.name} {sp}", sp,
+                                        key="front"))
+            cols = fp.columns(p, _f(fit.speed))
+            note = fp.sentence(p, fit.speed, tr.name) if has_fit else ""
             fronts.append(FrontRow(
                 tr.name, sp, thr, _f(fit.speed), _f(fit.stderr), _f(fit.r2),
                 _f(fit.predicted), _f(fit.ratio), fit.n, _f(wave.wavelength), _f(wave.period),
                 _f(wave.phase_speed), _f(float(fit.times[0])) if fit.n else None,
-                _f(float(fit.times[-1])) if fit.n else None, name))
+                _f(float(fit.times[-1])) if fit.n else None, name, **cols, note=note))
     return fronts, files
 
 
 # --- figures -------------------------------------------------------------------------
-def _draw_transects(ax, transects: Sequence) -> None:
+def _draw_transects(ax, transects: Sequence, extent: tuple[float, float, float, float]) -> None:
+    from matplotlib import patheffects
+
+    left, right, bottom, top = extent
     for tr in transects:
         pts = np.asarray(tr.line, dtype=float)
         xs, ys = pts[:, 0] / 1e3, pts[:, 1] / 1e3
         ax.plot(xs, ys, color=TRANSECT_COLOUR, lw=1.4)
         ax.plot(xs[:1], ys[:1], "o", color=TRANSECT_COLOUR, ms=4)  # start of the transect
         if tr.name:
-            ax.annotate(tr.name, (xs[-1], ys[-1]), fontsize=7, color=TRANSECT_COLOUR,
-                        xytext=(3, 3), textcoords="offset points")
+            # the label beyond the end of the line, unless that runs out of the map: then
+            # turned inwards, so it is never clipped at the frame or under the colour bar
+            x = min(max(xs[-1], left), right)
+            y = min(max(ys[-1], bottom), top)
+            ahead_east = xs[-1] >= xs[-2]
+            share = (x - left) / (right - left)  # 0 at the west edge, 1 at the east edge
+            if (share > 0.7) if ahead_east else (share < 0.3):
+                ahead_east = not ahead_east
+            north = y > 0.5 * (bottom + top)
+            ax.annotate(tr.name, (x, y), fontsize=7, color=TRANSECT_COLOUR,
+                        xytext=(4 if ahead_east else -4, -4 if north else 4),
+                        textcoords="offset points", ha="left" if ahead_east else "right",
+                        va="top" if north else "bottom", annotation_clip=False,
+                        path_effects=[patheffects.withStroke(linewidth=2.2,
+                                                             foreground="white")])
 
 
 def arrival_map(grid, arrival: np.ndarray, title: str, path: Path,
@@ -462,7 +526,7 @@ def arrival_map(grid, arrival: np.ndarray, title: str, path: Path,
     fig, ax, _ = map_figure(grid, arrival, title, ARRIVAL_CMAP, vmin=0.0,
                             vmax=max(vmax, 1e-12),
                             units="arrival time (years); grey: never or no data")
-    _draw_transects(ax, transects)
+    _draw_transects(ax, transects, _extent_km(grid))
     left, right, bottom, top = _extent_km(grid)
     ax.set_xlim(left, right)
     ax.set_ylim(bottom, top)
@@ -484,8 +548,12 @@ def speed_map(grid, speed: np.ndarray, title: str, path: Path) -> Path:
     return finish_map(fig, path)
 
 
-def front_plot(fit, path: Path, label: str) -> Path:
-    """Front position along a transect against time, with the fit and the prediction."""
+def front_plot(fit, path: Path, label: str, landscape=None) -> Path:
+    """Front position along a transect against time, with the fit and the predictions.
+
+    ``landscape`` (a :class:`~preyscape.model.theory.WindowSpeed`) adds the
+    landscape prediction as a mean over the fitted snapshots.
+    """
     from preyscape.plots import _new, _save
 
     fig = _new((6.4, 4.2))
@@ -503,8 +571,16 @@ def front_plot(fit, path: Path, label: str) -> Path:
             # the predicted speed through the centre of the fitted points
             tm, xm = float(np.mean(fit.times)), float(np.mean(fit.positions))
             ax.plot(tt, xm + fit.predicted * (tt - tm), "--", color="#b5367a", lw=1.3,
-                    label=f"predicted minimal speed: {fit.predicted:.3g} km/yr "
+                    label=f"best-habitat bound: {fit.predicted:.3g} km/yr "
                           f"(ratio {fit.ratio:.3f})")
+        if landscape is not None and landscape.asymptotic > 0:
+            tm, xm = float(np.mean(fit.times)), float(np.mean(fit.positions))
+            far = landscape.far_from_asymptotic  # too early to trust the lag: show c*
+            c = landscape.asymptotic if far else landscape.mean
+            what = ("landscape (far from asymptotic)" if far else
+                    "landscape, mean over these years")
+            ax.plot(tt, xm + c * (tt - tm), ":", color="#e08a00", lw=1.8,
+                    label=f"{what}: {c:.3g} km/yr (ratio {fit.speed / c:.3f})")
     ax.set_xlabel("time (years)")
     ax.set_ylabel("front position along the transect (km)")
     ax.set_title(label, fontsize=10)

@@ -70,14 +70,17 @@ def check_lines(path: Path, d: dict) -> list[str]:
                      "(oscillations where K > K_H; Rosenzweig 1971)")
     cp, cq = d["critical_patch_prey"], d["critical_patch_predator"]
     lines += [
-        f"prey front speed    {_fmt(d['prey_front_speed'], 'km/yr')} (Fisher–KPP 2√(rD))",
-        f"predator front      {_fmt(d['predator_front_speed'], 'km/yr')} into prey at capacity "
-        "(Dunbar 1983)",
+        f"prey front speed    {_best_speed(d, 'prey')}",
+        f"predator front      {_best_speed(d, 'predator')}",
         f"critical patch      prey: strip {_fmt(cp['strip_width'], 'km')}, square side "
         f"{_fmt(cp['square_side'], 'km')}, disc radius {_fmt(cp['disc_radius'], 'km')}",
         f"                    predator (prey at K): strip {_fmt(cq['strip_width'], 'km')}, "
         f"square side {_fmt(cq['square_side'], 'km')}, disc radius "
         f"{_fmt(cq['disc_radius'], 'km')}  (Skellam 1951; lethal surroundings)",
+    ]
+    if d.get("landscape"):
+        lines += landscape_lines(d)
+    lines += [
         f"memory estimate     {_fmt(d['memory_mb'], 'MB', 3)}",
         f"results on disk     {d['snapshots']} snapshots, at most "
         f"{_fmt(d['disk_mb'], 'MB', 3)} before compression",
@@ -131,3 +134,131 @@ def topology_lines(d: dict) -> list[str]:
                 seen.add((t["name"], t["species"], t["warning"]))
                 warnings.append(f"WARNING             {t['warning']}")
     return lines + warnings
+
+
+# --- growth per class and predictions for the landscape as it is (issue 15) -----------
+_INDENT = " " * 20
+_WIDTH = 100
+
+
+def _wrap(head: str, text: str) -> list[str]:
+    import textwrap
+
+    return textwrap.wrap(text, _WIDTH, initial_indent=f"{head:<20}", subsequent_indent=_INDENT)
+
+
+def _best_speed(d: dict, sp: str) -> str:
+    """The best-habitat speed, or in words why there is none (never a bare "0 km/yr")."""
+    v = d[f"{sp}_front_speed"]
+    if v is None or not math.isfinite(v):
+        return "not defined: prey without a carrying capacity (Lotka–Volterra)"
+    if v <= 0:
+        return ("none: prey cannot grow even in the best habitat" if sp == "prey" else
+                "none: predators cannot grow even on prey at capacity in the best habitat "
+                "(e a K/(1 + a h K) ≤ m)")
+    return _fmt(v, "km/yr") + (" (Fisher–KPP 2√(rD), best habitat)" if sp == "prey" else
+                               " into prey at capacity (Dunbar 1983, best habitat)")
+
+
+def _growth_cell(g) -> str:
+    if g is None:
+        return "n/a"
+    return f"{g:+.3g} {'source' if g > 0 else 'sink'}"
+
+
+def _species_speed(d: dict, sp: str) -> list[str]:
+    """What a species' front does on the landscape as it is, in words where it cannot spread."""
+    from preyscape.model.theory import mean_front_speed
+
+    rec = d["landscape"][sp]
+    who = "prey" if sp == "prey" else "predators"
+    best = d[f"{sp}_front_speed"]
+    if rec.get("speed") is None:
+        return _wrap(f"{sp} landscape", rec["message"])
+    if rec["status"] != "invasion expected":
+        if not rec.get("source_share"):
+            text = f"no front: {who} cannot grow in any habitat class, so they cannot invade."
+        else:
+            text = f"no invasion expected. {rec['message']}"
+        return _wrap(f"{sp} landscape", text)
+    c = rec["speed"]
+    text = f"{_fmt(c, 'km/yr', 3)} in a fine-grained mix of these classes (homogenised"
+    if best and math.isfinite(best) and best > 0:
+        text += f"; {100 * c / best:.0f} % of the best-habitat {_fmt(best, 'km/yr', 3)}"
+    text += "; Shigesada, Kawasaki & Teramoto 1986)."
+    if best and math.isfinite(best) and c > 1.005 * best:
+        text += (f" It exceeds the best-habitat value because {who} move faster through other "
+                 "classes.")
+    if rec.get("coarse"):
+        text += (f" The patches are coarse for {who} (grain {rec['grain']:.3g} > 1), so this "
+                 "value is only a guide: large source patches can carry a front even where the "
+                 "mean growth is negative, and large sinks can stop one.")
+    if rec.get("prey_smoothed"):
+        text += (" Prey spread over a distance (√(D/r)) comparable to some patches "
+                 f"({rec['prey_spread_ratio']:.2g} of their length), so they will not sit at "
+                 "each class's capacity ahead of the predators, which this value assumes: it is "
+                 "only a guide (waves uses the prey density the run had ahead of the front).")
+    years = d["steps"] * d["step_years"]
+    lam = rec.get("decay_rate")
+    if lam and years > 0:
+        # the front is fitted while it crosses the map (waves leaves out the first 20 %)
+        across = max(d["grid"]["extent_km"])
+        t1 = min(years, across / c)
+        w = mean_front_speed(c, lam, 0.2 * t1, t1)
+        span = (f"years {0.2 * t1:.3g}–{t1:.3g}"
+                + (" of this run" if t1 >= years else
+                   f" (the front needs about {t1:.3g} years to cross the {across:.3g} km map)"))
+        if w.mean <= 0:
+            text += (f" A front from a local release approaches it from below, and over {span} "
+                     f"it lags by more than this speed ({_fmt(w.correction, 'km/yr', 3)}; "
+                     "Bramson 1983): far from the asymptotic regime, hardly a front yet. Seeing "
+                     f"this speed needs a run much longer than 1/growth = "
+                     f"{1 / rec['growth']:.3g} years, on a landscape large enough for the front "
+                     "to travel that long.")
+        else:
+            text += (f" A front from a local release approaches it from below: over {span} "
+                     f"expect about {_fmt(w.mean, 'km/yr', 3)} on average (Bramson 1983)")
+            more = ("a longer run" if t1 >= years else
+                    "a larger landscape (the front is still forming while it crosses this one)")
+            text += (f", far from the asymptotic regime: {more} is needed to see this speed."
+                     if w.far_from_asymptotic else ".")
+    return _wrap(f"{sp} landscape", text)
+
+
+def landscape_lines(d: dict) -> list[str]:
+    """``check``'s lines on growth per habitat class and the landscape's own predictions.
+
+    ``d["landscape"]`` is :func:`preyscape.assemble.landscape_predictions`: the
+    growth rate at low density of each species per class (prey r·multiplier;
+    predators e f(K_class) − m_class with prey at the class's capacity),
+    source or sink, the sink share, a verdict in words, and the homogenised
+    invasion speed (``docs/method.md``, "Predictions for a mixed landscape").
+    """
+    rec = d["landscape"]
+    unit = "band" if rec["basis"] == "suitability" else "class"
+    width = max([len(unit)] + [len(c["name"]) for c in rec["classes"]]) + 2
+    lines = _wrap(f"growth per {unit}", "growth rate at low density, per year; > 0 source, "
+                  "≤ 0 sink; predators with prey at each class's capacity")
+    lines.append(f"{_INDENT}{unit:<{width}}{'share':>7}  {'patch':>9}  {'prey':<14}predator")
+    for c in rec["classes"]:
+        patch = "n/a" if c["patch_km"] is None else f"{c['patch_km']:.3g} km"
+        lines.append(f"{_INDENT}{c['name']:<{width}}{100 * c['share']:>5.1f} %  {patch:>9}  "
+                     f"{_growth_cell(c['prey_growth']):<14}{_growth_cell(c['predator_growth'])}")
+    sinks = []
+    for sp in ("prey", "predator"):
+        share = rec[sp]["sink_share"]
+        if all(c[f"{sp}_growth"] is None for c in rec["classes"]):
+            share = None  # growth not defined (predators on prey without a capacity)
+        sinks.append(f"{sp} {'n/a' if share is None else f'{100 * share:.1f} %'}")
+    lines.append(f"{'sink share':<20}" + ", ".join(sinks) + " of the landscape")
+    for sp in ("prey", "predator"):
+        lines += _wrap(f"{sp} growth", rec[sp]["verdict"])
+    for sp in ("prey", "predator"):
+        lines += _species_speed(d, sp)
+    note = (("Habitat as in the class table" if rec["basis"] == "classes" else
+             "Suitability in bands of 0.1, each taken at its mean")
+            + ", before measures (corridors, refuges, fences). "
+            "These are properties of the equations, not of the animals: a model is not a field "
+            "survey.")
+    lines += _wrap("note", note)
+    return lines

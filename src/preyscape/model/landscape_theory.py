@@ -415,6 +415,8 @@ def homogenised_speed(
         rr, DD = r[w > 0], D[w > 0]
         if np.all(ell == 0) or np.all(rr == g) and g == 0:
             grain = 0.0
+        elif np.all(rr == rr[0]) and np.all(DD == DD[0]):
+            grain = 0.0  # one kind of habitat: nothing to homogenise, whatever the patch size
         elif g == 0 or np.any(DD <= 0):
             grain = math.inf
         else:
@@ -434,7 +436,7 @@ def homogenised_speed(
         msg = (f"The mean growth at low density is {g:.3g} /yr: in a fine-grained mix no "
                "invasion is expected; the species holds on, if at all, only in source patches.")
     if coarse:
-        msg += (f" The patches are coarse (grain {grain:.2g}), so the "
+        msg += (f" The patches are coarse (grain {grain:.3g}), so the "
                 "homogenised value is only a guide: large source patches can carry a front "
                 "even when the mean growth is negative, and large sinks can stop it.")
     return HomogenisedSpeed(speed, upper, g, d, spread, grain, coarse, status, msg)
@@ -489,6 +491,38 @@ def _log_half_trace(k: np.ndarray, lengths, r, D, flux_w) -> np.ndarray:
         return np.where(tr > 0, np.log(np.where(tr > 0, tr, 1.0)) + logs, -1e3)
 
 
+def _log_half_trace_at(k: float, layers: list[tuple[float, float, float, float]]) -> float:
+    """:func:`_log_half_trace` at one ``k`` in plain floats (fast for root finding).
+
+    ``layers`` holds ``(l_j, r_j, D_j, w_j)``; the same recurrence, scaling and
+    stand-in value as the vectorised version.
+    """
+    m00, m01, m10, m11, logs = 1.0, 0.0, 0.0, 1.0, 0.0
+    for lj, rj, Dj, wj in layers:
+        q2 = (k - rj) / Dj
+        q = math.sqrt(abs(q2))
+        x = q * lj
+        if q2 >= 0:
+            e2 = math.exp(-2.0 * x)
+            C, S, sign = 0.5 * (1.0 + e2), 0.5 * (1.0 - e2), 1.0
+            logs += x
+        else:
+            C, S, sign = math.cos(x), math.sin(x), -1.0
+        if x < 1e-8:
+            s_over_q = lj * (math.exp(-x) if q2 >= 0 else 1.0)
+        else:
+            s_over_q = S / q
+        t01 = s_over_q / wj
+        t10 = sign * wj * q * S
+        a00, a01 = C * m00 + t01 * m10, C * m01 + t01 * m11
+        a10, a11 = t10 * m00 + C * m10, t10 * m01 + C * m11
+        big = max(abs(a00), abs(a01), abs(a10), abs(a11)) or 1.0
+        m00, m01, m10, m11 = a00 / big, a01 / big, a10 / big, a11 / big
+        logs += math.log(big)
+    tr = 0.5 * (m00 + m11)
+    return math.log(tr) + logs if tr > 0 else -1e3
+
+
 def _log_cosh(x: float) -> float:
     return x + math.log1p(math.exp(-2.0 * x)) - math.log(2.0)
 
@@ -505,16 +539,22 @@ class _Layers:
         # k(lambda) >= k(0) >= this (Rayleigh quotient with a constant test function)
         self.k_low = _effective(self.r, self.D, self.l / self.L, kind)[0]
         self.k_top = float(self.r.max())
-        # scanning step in s = sqrt(k_top - k): at most ~0.05 rad of phase per layer
-        self.ds = 0.05 / float(np.max(self.l / np.sqrt(self.D)))
+        # scanning step in s = sqrt(k_top - k): at most ~0.05 rad of phase over the whole
+        # period (the trace oscillates with the summed phase of all layers, so a step set by
+        # one layer would skip crossings when there are many layers)
+        self.ds = 0.05 / float(np.sum(self.l / np.sqrt(self.D)))
 
     def g(self, k, lam: float):
         return _log_half_trace(k, self.l, self.r, self.D, self.w) - _log_cosh(lam * self.L)
 
     def k_of(self, lam: float) -> float:
         """Principal growth rate of ``e^(-lam x) psi(x)``, psi periodic, 1/yr."""
+        layers = list(zip(self.l.tolist(), self.r.tolist(), self.D.tolist(), self.w.tolist(),
+                          strict=True))
+        cosh_term = _log_cosh(lam * self.L)
+
         def f(k: float) -> float:
-            return float(self.g(np.array([k]), lam)[0])
+            return _log_half_trace_at(k, layers) - cosh_term
 
         if f(self.k_top) <= 0:
             # above max r every entry of the transfer matrices grows with k, so the
@@ -852,3 +892,224 @@ def landscape_prediction(
                                      predator_move * mult("predator_movement"), shares,
                                      predator_kind, patch_length_km)
     return LandscapePrediction(table, prey, predator)
+
+
+# ---------------------------------------------------------------------------
+# the classes of a habitat map
+# ---------------------------------------------------------------------------
+SUITABILITY_EDGES = (0.0, 1e-9, 0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0)
+"""Band edges for a suitability map: zero on its own (a prey sink), then bands of 0.1."""
+
+
+@dataclass(frozen=True, eq=False)
+class MapClasses:
+    """The habitat classes (or suitability bands) of a map, as plain per-class values.
+
+    Attributes
+    ----------
+    codes : numpy.ndarray of int
+        Class code (class maps) or band index (suitability maps) per class.
+    names : tuple of str
+        Class names (suitability: the band, e.g. ``"suitability 0.2–0.3"``).
+    cells : numpy.ndarray of int
+        Cells with data of each class.
+    multipliers : dict
+        Per-class multiplier arrays named as in
+        :data:`preyscape.model.fields.MULTIPLIERS` (suitability bands: their
+        mean suitability as ``prey_capacity``).
+    patch_km : numpy.ndarray
+        Typical patch length of each class, km: the longer of its mean run
+        lengths along rows and along columns (:func:`patch_lengths`), so the
+        ``coarse`` flag errs on the side of caution whatever the direction of
+        travel.
+    kind : str
+        ``"classes"`` or ``"suitability"``.
+    """
+
+    codes: np.ndarray
+    names: tuple[str, ...]
+    cells: np.ndarray
+    multipliers: dict
+    patch_km: np.ndarray
+    kind: str
+
+    @property
+    def shares(self) -> np.ndarray:
+        """Area share of each class (cells of equal area)."""
+        return self.cells / self.cells.sum()
+
+
+def map_classes(
+    habitat: np.ndarray,
+    mask: np.ndarray,
+    dx_m: float,
+    dy_m: float,
+    table: Mapping[int, Mapping[str, float]] | None = None,
+    names: Mapping[int, str] | None = None,
+) -> MapClasses:
+    """Per-class values of a habitat map for :func:`landscape_prediction`.
+
+    With ``table`` (``{code: {multiplier name: factor}}``, as for
+    :func:`preyscape.model.fields.multipliers_from_classes`) the habitat holds
+    class codes; without it, a 0–1 suitability that scales the prey capacity,
+    taken in the bands of :data:`SUITABILITY_EDGES` (zero, a prey sink under a
+    logistic form, on its own; then bands of 0.1 represented by their mean).
+
+    Parameters
+    ----------
+    habitat : numpy.ndarray
+        Class codes or suitability per cell.
+    mask : numpy.ndarray of bool
+        Cells with data.
+    dx_m, dy_m : float
+        Cell width and height, metres.
+    table : mapping, optional
+        Class table; None for a suitability map.
+    names : mapping, optional
+        Class names by code (default: the code).
+
+    Returns
+    -------
+    MapClasses
+
+    Examples
+    --------
+    >>> hab = np.array([[1, 1, 2, 2], [1, 1, 2, 2]])
+    >>> mc = map_classes(hab, hab > 0, 100.0, 100.0, {1: {}, 2: {"prey_capacity": 0.5}},
+    ...                  {1: "open", 2: "wood"})
+    >>> mc.names, mc.shares.tolist(), mc.multipliers["prey_capacity"].tolist()
+    (('open', 'wood'), [0.5, 0.5], [1.0, 0.5])
+    >>> mc.patch_km.tolist()  # runs of 2 cells east-west, 2 north-south
+    [0.2, 0.2]
+    """
+    mask = np.asarray(mask, dtype=bool)
+    if not mask.any():
+        raise ValueError("no data cells")
+    values = np.asarray(habitat)
+    if table is not None:
+        codes_map = np.where(mask, values, 0).astype(np.int64)
+        codes, cells = np.unique(codes_map[mask], return_counts=True)
+        mult = {k: np.array([float(table[int(c)].get(k, 1.0)) for c in codes])
+                for k in MULTIPLIERS}
+        nm = tuple(str((names or {}).get(int(c), c)) for c in codes)
+        kind = "classes"
+    else:
+        s = np.nan_to_num(np.where(mask, values.astype(float), 0.0))
+        edges = np.asarray(SUITABILITY_EDGES)
+        band = np.clip(np.searchsorted(edges, s, side="right") - 1, 0, len(edges) - 2)
+        codes_map = band.astype(np.int64)
+        codes, cells = np.unique(codes_map[mask], return_counts=True)
+        total = np.bincount(codes_map[mask], weights=s[mask], minlength=len(edges) - 1)
+        ones = np.ones(codes.size)
+        mult = {k: ones.copy() for k in MULTIPLIERS}
+        mult["prey_capacity"] = total[codes] / cells
+        nm = tuple("suitability 0" if c == 0 else
+                   f"suitability {edges[c]:.1f}–{edges[c + 1]:.1f}".replace("0.0–", "0–")
+                   for c in codes)
+        kind = "suitability"
+    runs = patch_lengths(codes_map, mask, dx_m, dy_m)
+    patch = np.array([np.nanmax(runs[int(c)]) for c in codes])
+    return MapClasses(codes.astype(np.int64), nm, cells.astype(np.int64), mult, patch, kind)
+
+
+def _num(x) -> float | None:
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _species_record(g: SpeciesGrowth, s: HomogenisedSpeed | None) -> dict:
+    out = {"sink_share": _num(g.sink_share), "source_share": _num(g.source_share),
+           "mean_growth": _num(g.mean_growth), "verdict": g.verdict}
+    if s is None:
+        return {**out, "speed": None, "status": "undefined", "message": g.verdict}
+    return {**out, "speed": _num(s.speed), "upper": _num(s.upper), "growth": _num(s.growth),
+            "movement": _num(s.movement), "spread_length_km": _num(s.spread_length),
+            "decay_rate": _num(1.0 / s.spread_length) if s.spread_length > 0 else None,
+            "grain": _num(s.grain), "coarse": s.coarse, "status": s.status,
+            "message": s.message}
+
+
+PREY_SMOOTHING = 0.5
+"""Prey spread ratio (:func:`prey_spread_ratio`) above which prey are not at each class's capacity.
+
+Common practice, no source: prey density relaxes to a class's capacity over
+about ``sqrt(D/r)`` from each edge of a patch, so a patch shorter than twice
+that is edge throughout. In a generated farmland mosaic (prey r = 4 /yr,
+D = 0.5 km²/yr, patches 0.34–0.4 km, ratio 0.9) the predators' front moved
+at 0.75 of the capacity-based value; with D = 0.05 (ratio 0.3) at 1.07.
+"""
+
+
+def prey_spread_ratio(growth: np.ndarray, movement: np.ndarray, patch_km: np.ndarray,
+                      shares: np.ndarray, min_share: float = 0.01) -> float:
+    """Largest ratio of the prey's spread length to a class's patch length (dimensionless).
+
+    Prey spread over about ``sqrt(D_i / |r_i|)`` km before their growth (or
+    decline) sets their density (Skellam 1951, Biometrika 38:196). Where that
+    is comparable to the patches (ratio above :data:`PREY_SMOOTHING`), prey
+    are smoothed across patches and do not sit at each class's capacity,
+    which the predators' per-class growth assumes. Classes under
+    ``min_share`` of the map are left out.
+
+    Parameters
+    ----------
+    growth : numpy.ndarray
+        Prey growth at low density per class, 1/yr.
+    movement : numpy.ndarray
+        Prey diffusivity or motility per class, km²/yr.
+    patch_km : numpy.ndarray
+        Typical patch length per class, km.
+    shares : numpy.ndarray
+        Area share per class.
+    min_share : float
+        Smallest share counted.
+
+    Returns
+    -------
+    float
+        0 when no class qualifies.
+    """
+    r = np.abs(np.asarray(growth, float))
+    D = np.asarray(movement, float)
+    ell = np.asarray(patch_km, float)
+    keep = (np.asarray(shares, float) >= min_share) & (r > 0) & (ell > 0) & np.isfinite(ell)
+    if not keep.any():
+        return 0.0
+    return float(np.max(np.sqrt(D[keep] / r[keep]) / ell[keep]))
+
+
+def prediction_record(pred: LandscapePrediction, classes: MapClasses) -> dict:
+    """A :class:`LandscapePrediction` of a map as plain JSON values (no NaN: None).
+
+    ``classes`` lists each class with its code, name, cells, area share,
+    patch length (km), multipliers and the growth at low density of both
+    species (1/yr); ``prey`` and ``predator`` hold the sink and source
+    shares, the mean growth (1/yr), the verdict and the homogenised speed
+    (km/yr) with its effective growth (1/yr), movement (km²/yr), spread
+    length (km), leading-edge decay rate ``1/spread length`` (1/km), grain,
+    ``coarse`` flag, status and message.
+
+    Examples
+    --------
+    >>> from preyscape.model.reactions import Interaction
+    >>> mc = map_classes(np.array([[1, 2]]), np.ones((1, 2), bool), 100.0, 100.0,
+    ...                  {1: {}, 2: {"prey_capacity": 0.0}})
+    >>> p = landscape_prediction(Interaction("holling-ii", 0.25, 0.002, 0.01), 4.0, 8000.0,
+    ...                          1.0, 0.5, 5.0, mc.multipliers, mc.cells,
+    ...                          patch_length_km=mc.patch_km)
+    >>> rec = prediction_record(p, mc)
+    >>> rec["predator"]["sink_share"], [c["predator_growth"] for c in rec["classes"]]
+    (0.5, [3.0, -1.0])
+    """
+    rows = []
+    for i, code in enumerate(classes.codes):
+        rows.append({
+            "code": int(code), "name": classes.names[i], "cells": int(classes.cells[i]),
+            "share": float(classes.shares[i]), "patch_km": _num(classes.patch_km[i]),
+            "multipliers": {k: float(v[i]) for k, v in classes.multipliers.items()},
+            "prey_growth": _num(pred.growth.prey.growth[i]),
+            "predator_growth": _num(pred.growth.predator.growth[i]),
+        })
+    return {"basis": classes.kind, "classes": rows,
+            "prey": _species_record(pred.growth.prey, pred.prey),
+            "predator": _species_record(pred.growth.predator, pred.predator)}

@@ -121,13 +121,14 @@ def predator_growth_at_capacity(inter: Interaction, K: float, m: float) -> float
     return e * a * K / (1.0 + a * h * K) - m
 
 
-def predator_speed(inter: Interaction, K: float, m: float, D_P: float) -> float:
+def predator_speed(inter: Interaction, K: float | None, m: float, D_P: float) -> float:
     """Minimal speed of predators invading prey at capacity, km/yr.
 
     ``2 sqrt(D_P (e a K / (1 + a h K) - m))`` (Dunbar 1983, J Math Biol 17:11;
-    Owen & Lewis 2001, Bull Math Biol 63:655). Zero when predators cannot grow.
+    Owen & Lewis 2001, Bull Math Biol 63:655). Zero when predators cannot grow;
+    NaN when prey have no capacity (``K`` None or not finite: Lotka–Volterra).
     """
-    if not math.isfinite(K):
+    if K is None or not math.isfinite(K):
         return math.nan
     growth = predator_growth_at_capacity(inter, K, m)
     return 2.0 * math.sqrt(D_P * growth) if growth > 0 else 0.0

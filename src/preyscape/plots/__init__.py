@@ -254,24 +254,87 @@ def totals_plot(time: np.ndarray, prey: np.ndarray, predator: np.ndarray,
     return _save(fig, path)
 
 
+LOG_SPAN = 100.0
+"""Densities present spanning more than this factor (two orders of magnitude) get a log scale."""
+
+
+def choose_scale(frames, floor: float | None) -> str:
+    """``"log"`` when the densities at or above ``floor`` span more than :data:`LOG_SPAN`.
+
+    ``floor`` is the presence threshold (animals/km²): the highest density
+    shown, divided by the lowest one at or above the floor, must exceed 100.
+    A front invading at low density then shows on the map instead of
+    vanishing in the bottom colour of a scale set by its peak. Without a
+    positive floor the scale is linear.
+    """
+    if floor is None or not floor > 0:
+        return "linear"
+    top, low = 0.0, np.inf
+    for f in frames:
+        v = np.asarray(f, dtype=float)
+        present = v[np.isfinite(v) & (v >= floor)]
+        if present.size:
+            top = max(top, float(present.max()))
+            low = min(low, float(present.min()))
+    return "log" if np.isfinite(low) and top > LOG_SPAN * low else "linear"
+
+
+def density_norm(scale: str, floor: float | None, vmax: float):
+    """Colour scale of a density map: ``(norm, legend words, colour-bar extend)``.
+
+    ``"log"``: logarithmic from ``floor`` (the presence threshold) to
+    ``vmax``; lower densities take the lowest colour, and the legend says so.
+    ``"linear"``: 0 to ``vmax``.
+    """
+    from matplotlib.colors import LogNorm, Normalize
+
+    if scale == "log" and floor is not None and 0 < floor < vmax:
+        return (LogNorm(vmin=floor, vmax=vmax),
+                f"log scale; below {floor:.3g} (presence threshold): lowest colour", "min")
+    return Normalize(vmin=0.0, vmax=max(vmax, 1e-12)), "", "neither"
+
+
+def below_floor(values: np.ndarray, norm) -> np.ndarray:
+    """Values for ``norm``: on a log scale, densities under its floor (zeros included) are
+    lifted to half the floor, so they take the lowest colour instead of the no-data grey."""
+    from matplotlib.colors import LogNorm
+
+    if not isinstance(norm, LogNorm):
+        return values
+    v = np.asarray(values, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.where(np.isfinite(v) & (v < norm.vmin), 0.5 * norm.vmin, v)
+
+
 def snapshot_panels(grid: Grid, times: np.ndarray, frames: list[np.ndarray], species: str,
-                    name: str, path: Path) -> Path:
-    """A row of density maps at chosen times on one shared colour scale."""
+                    name: str, path: Path, *, scale: str = "linear",
+                    floor: float | None = None) -> Path:
+    """A row of density maps at chosen times on one shared colour scale.
+
+    ``scale`` is ``"linear"`` (0 to the highest density), ``"log"`` (from
+    ``floor``, the presence threshold in animals/km², to the highest density)
+    or ``"auto"`` (log when the densities present span more than two orders
+    of magnitude, :func:`choose_scale`); the title says which.
+    """
     n = len(frames)
     fig = _new((2.3 * n + 1.2, 2.9), layout="constrained")
     vmax = max(float(np.nanmax(f, initial=0.0)) for f in frames) or 1.0
+    if scale == "auto":
+        scale = choose_scale(frames, floor)
+    norm, words, extend = density_norm(scale, floor, vmax)
     cm = _cmap(SPECIES_CMAP.get(species, "viridis"))
     im = None
     for k, (t, f) in enumerate(zip(times, frames, strict=True)):
         ax = fig.add_subplot(1, n, k + 1)
-        data = _shown(grid, f)
-        im = ax.imshow(data, extent=_extent_km(grid), cmap=cm, vmin=0, vmax=vmax,
+        data = _shown(grid, below_floor(f, norm))
+        im = ax.imshow(data, extent=_extent_km(grid), cmap=cm, norm=norm,
                        interpolation="nearest")
         ax.set_facecolor(NO_DATA)
         ax.set_title(f"t = {t:g} yr", fontsize=9)
         ax.set_aspect("equal")
         ax.tick_params(labelsize=6)
         ax.ticklabel_format(useOffset=False, style="plain")
-    fig.suptitle(f"{species} ({name}) density, animals per km²; axes in km", fontsize=9)
-    fig.colorbar(im, ax=fig.axes, shrink=0.9, pad=0.01)
+    fig.suptitle(f"{species} ({name}) density, animals per km²"
+                 + (f" ({words})" if words else "") + "; axes in km", fontsize=9)
+    fig.colorbar(im, ax=fig.axes, shrink=0.9, pad=0.01, extend=extend)
     return _save(fig, path)

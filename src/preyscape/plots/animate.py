@@ -6,7 +6,10 @@ image data and the time stamp change between frames, so the layout does not
 jump. Every species keeps ONE colour scale for the whole animation (0 to a
 high percentile of all its shown values), so colours can be compared across
 frames. All frames share one fixed palette built from the two colour maps,
-so colours do not flicker either.
+so colours do not flicker either. With ``scale="log"`` (or ``"auto"``, which
+picks it when the densities present span more than two orders of magnitude)
+the scale is logarithmic from the presence threshold up, so a front invading
+at low density shows; the colour bar says so.
 
 Memory: one snapshot of the grid at a time is read from ``results.nc``
 (a first pass for the colour scales, a second to draw), plus the encoded
@@ -24,7 +27,17 @@ from pathlib import Path
 import numpy as np
 
 from preyscape.errors import InputError
-from preyscape.plots import NO_DATA, SPECIES_CMAP, _axes_labels, _cmap, _extent_km, _new
+from preyscape.plots import (
+    LOG_SPAN,
+    NO_DATA,
+    SPECIES_CMAP,
+    _axes_labels,
+    _cmap,
+    _extent_km,
+    _new,
+    below_floor,
+    density_norm,
+)
 
 __all__ = ["animate_run", "MAX_SIDE", "VMAX_PERCENTILE"]
 
@@ -137,6 +150,8 @@ def animate_run(
     species: Sequence[str] = ("prey", "predator"),
     names: dict[str, str] | None = None,
     title: str = "",
+    scale: str = "linear",
+    floor: float | None = None,
 ) -> Path:
     """Write an animated GIF of the densities of a run, one frame per snapshot shown.
 
@@ -166,6 +181,12 @@ def animate_run(
         ``{"prey": "field vole"}``.
     title : str, optional
         Title above the panels.
+    scale : {"linear", "log", "auto"}, optional
+        Colour scale of each species: 0 to the top, logarithmic from
+        ``floor`` to the top, or log for a species whose densities at or
+        above ``floor`` span more than two orders of magnitude.
+    floor : float, optional
+        The presence threshold, animals per km² (needed for a log scale).
 
     Returns
     -------
@@ -201,15 +222,25 @@ def animate_run(
     # pass 1: one colour scale per species for the whole animation
     vmax = {}
     above = {}
+    scales = {}
     for sp in species:
         q = _StreamingQuantile()
+        low = math.inf  # lowest density present (at or above the floor)
         for i in pick:
-            q.add(frame(sp, i))
+            f = frame(sp, i)
+            q.add(f)
+            if floor is not None and floor > 0:
+                present = f[np.isfinite(f) & (f >= floor)]
+                low = min(low, float(present.min())) if present.size else low
         top = q.quantile(VMAX_PERCENTILE)
         vmax[sp] = top if top > 0 else (q.max if q.max > 0 else 1.0)
         above[sp] = q.max > vmax[sp]
+        scales[sp] = scale
+        if scale == "auto":
+            scales[sp] = "log" if math.isfinite(low) and q.max > LOG_SPAN * low else "linear"
 
     # the figure is built once; frames only swap image data and the stamp
+    norms = {sp: density_norm(scales[sp], floor, vmax[sp]) for sp in species}
     n = len(species)
     fig = _new(figsize=(3.7 * n + 0.5, 3.75))
     extent = _extent_km(grid)
@@ -217,8 +248,9 @@ def animate_run(
     for j, sp in enumerate(species):
         ax = fig.add_subplot(1, n, j + 1)
         cm = _cmap(SPECIES_CMAP.get(sp, "viridis"))
-        im = ax.imshow(np.ma.masked_invalid(frame(sp, pick[0])), extent=extent, cmap=cm,
-                       vmin=0.0, vmax=vmax[sp], interpolation="nearest")
+        norm, words, low_end = norms[sp]
+        im = ax.imshow(np.ma.masked_invalid(below_floor(frame(sp, pick[0]), norm)),
+                       extent=extent, cmap=cm, norm=norm, interpolation="nearest")
         ax.set_facecolor(NO_DATA)
         _axes_labels(ax, grid)
         ax.tick_params(labelsize=7)
@@ -226,8 +258,10 @@ def animate_run(
         ax.yaxis.label.set_size(8)
         nm = names.get(sp)
         ax.set_title(f"{sp} ({nm})" if nm and nm != sp else sp, fontsize=9)
-        cb = fig.colorbar(im, ax=ax, shrink=0.85, extend="max" if above[sp] else "neither")
-        cb.set_label(UNITS, fontsize=8)
+        ends = {(True, True): "both", (True, False): "min", (False, True): "max"}
+        cb = fig.colorbar(im, ax=ax, shrink=0.85,
+                          extend=ends.get((low_end == "min", above[sp]), "neither"))
+        cb.set_label(UNITS + (f"\n({words})" if words else ""), fontsize=8 if not words else 7)
         cb.ax.tick_params(labelsize=7)
         images.append(im)
     fig.text(0.01, 0.985, title or "Population density", ha="left", va="top",
@@ -243,7 +277,7 @@ def animate_run(
     def frames():
         for i in pick:
             for sp, im in zip(species, images, strict=True):
-                im.set_data(np.ma.masked_invalid(frame(sp, i)))
+                im.set_data(np.ma.masked_invalid(below_floor(frame(sp, i), norms[sp][0])))
             stamp.set_text(fmt.format(times[i]))
             fig.canvas.draw()
             rgb = Image.frombuffer("RGBA", fig.canvas.get_width_height(),

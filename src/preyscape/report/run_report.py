@@ -40,6 +40,11 @@ SOURCES = [
     "Piskunov 1937. Finite-time delay of a front: Bramson 1983, Mem AMS 44(285).",
     "Predator invasion speed 2√(D(eaK/(1+ahK) − m)): Dunbar 1983, J Math Biol 17:11; Owen & "
     "Lewis 2001, Bull Math Biol 63:655.",
+    "Invasion speed of a mixed landscape (homogenised and periodic patches): Shigesada, "
+    "Kawasaki & Teramoto 1986, Theor Popul Biol 30:143; Shigesada & Kawasaki 1997, Biological "
+    "Invasions: Theory and Practice, Oxford University Press.",
+    "Finite-time speed of a front from a release: Ebert & van Saarloos 2000, Physica D 146:1; "
+    "in periodic media Hamel, Nolen, Roquejoffre & Ryzhik 2016, J Eur Math Soc 18:465.",
     "Ecological diffusion (motility): Turchin 1998, Quantitative Analysis of Movement; "
     "Garlick et al. 2011, Bull Math Biol 73:2088.",
     "Getis–Ord Gi*: Getis & Ord 1992, Geogr Anal 24:189; Ord & Getis 1995, Geogr Anal "
@@ -117,7 +122,33 @@ def _prediction_facts(run) -> list[tuple[str, str]]:
                                    f"{_num(pr.get('prey_front_speed'), 'km/yr')}; "
                                    "predators into prey at capacity "
                                    f"{_num(pr.get('predator_front_speed'), 'km/yr')}"),
-    ]
+    ] + _landscape_facts(pr)
+
+
+def _landscape_facts(pr: dict) -> list[tuple[str, str]]:
+    """The landscape's own predictions beside the best-habitat ones (docs/method.md)."""
+    land = pr.get("landscape")
+    if not land:
+        return []
+    speeds, growth = [], []
+    for sp, who in (("prey", "prey"), ("predator", "predators")):
+        rec = land[sp]
+        growth.append(rec["verdict"])
+        if rec.get("speed") is None:
+            speeds.append(f"{who}: not defined")
+        elif rec["status"] != "invasion expected":
+            speeds.append(f"{who}: no invasion expected (mean growth at low density "
+                          f"{_num(rec.get('growth'), '/yr', 3)})")
+        else:
+            why = [w for w, flag in (("patches coarse", rec.get("coarse")),
+                                     ("prey not at capacity", rec.get("prey_smoothed")))
+                   if flag]
+            speeds.append(f"{who} {_num(rec['speed'], 'km/yr', 3)}"
+                          + (f" ({', '.join(why)}: only a guide)" if why else ""))
+    return [("predicted front speeds, this landscape",
+             "; ".join(speeds) + " — homogenised over the habitat classes (Shigesada, Kawasaki "
+             "& Teramoto 1986); fronts from a release approach them from below"),
+            ("where each species can grow", " ".join(growth))]
 
 
 def _measure_rows(measures: list[dict]) -> list[list]:
@@ -264,7 +295,8 @@ def write_report(run_folder: str | Path, out: str | Path | None = None,
         gif = None
         if animate:
             gif = animate_run(run.grid, run.times, run.frame, work / "animation.gif",
-                              names=run.species_names, title=run.title)
+                              names=run.species_names, title=run.title, scale="auto",
+                              floor=run.settings().presence)
         _maps_section(rep, run, gif)
         for part in _analysis_parts(run, others, work):
             render_part(rep, part)
