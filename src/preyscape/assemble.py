@@ -39,11 +39,23 @@ from preyscape.model.fields import (
 )
 from preyscape.model.movement import Movement, build_movement
 from preyscape.model.reactions import Interaction
-from preyscape.scenario import MeasureSpec, Scenario
+from preyscape.scenario import LARGEST, MeasureSpec, Scenario
 from preyscape.solve.stepper import Stepper, StepStats, auto_step
 
-__all__ = ["Epoch", "Setup", "check_variant_measures", "derived", "epoch_state",
-           "interaction_of", "measure_epochs", "place_measures", "place_targets", "prepare"]
+__all__ = ["MAX_STEPS", "Epoch", "Setup", "available_memory_mb", "check_memory",
+           "check_steps", "check_variant_measures", "derived", "epoch_state",
+           "interaction_of", "measure_epochs", "memory_estimate_mb", "place_measures",
+           "place_targets", "prepare"]
+
+MAX_STEPS = 1_000_000
+"""Most steps (movement substeps, for the explicit scheme) a run takes unless allowed.
+
+Common practice, no source: a scenario on the automatic step needs hundreds
+to a few thousand steps; a million is a sign of a mistake (a rate, a fixed
+step, a stability bound), and costs hours on a large grid."""
+
+NS_PER_CELL_STEP = 15.0
+"""Time per cell and step on a 2-core machine, ns (measured: docs/performance.md)."""
 
 Epoch = tuple[float, float, tuple[str, ...]]
 """``(t0, t1, names of the measures acting in [t0, t1))``, years."""
@@ -162,13 +174,17 @@ def _multipliers(sc: Scenario, grid: Grid, habitat: np.ndarray) -> tuple[dict, n
     return {k: np.asarray(v, dtype=np.float32) for k, v in mult.items()}, habitat
 
 
-def prepare(sc: Scenario) -> Setup:
+def prepare(sc: Scenario, *, allow_large: bool = False) -> Setup:
     """Load the landscape and build fields, operators and the initial state.
 
     Parameters
     ----------
     sc : Scenario
         A validated scenario (:func:`preyscape.scenario.load_scenario`).
+    allow_large : bool
+        Skip the limits: a memory estimate beyond the available memory
+        (checked from the raster's header, before reading it) and more than
+        :data:`MAX_STEPS` steps (:func:`check_memory`, :func:`check_steps`).
 
     Returns
     -------
@@ -178,11 +194,14 @@ def prepare(sc: Scenario) -> Setup:
     ------
     InputError
         For unreadable rasters, habitat codes without a table row, release
-        points outside the landscape, or invalid initial densities.
+        points outside the landscape, invalid initial densities, per-cell
+        values beyond 32-bit floats, or a run beyond the limits.
     """
     from preyscape.landscape.io import read_habitat
 
     ls = sc.landscape
+    if not allow_large:
+        check_memory(sc)
     grid, habitat = read_habitat(
         sc.resolve(ls.habitat), ls.values, ls.cell_size,
         source=_source(sc, f"landscape.habitat ({ls.habitat})"))
@@ -197,8 +216,11 @@ def prepare(sc: Scenario) -> Setup:
     fields, mv_n, mv_p, refuge = epoch_state(setup, epochs[0][2])
     N0, P0 = _initial_state(sc, grid, fields)
     dt = _step(sc, setup, fields, inter, P0)
-    return replace(setup, fields=fields, prey_movement=mv_n, predator_movement=mv_p,
-                   refuge=refuge, N0=N0, P0=P0, dt=dt)
+    setup = replace(setup, fields=fields, prey_movement=mv_n, predator_movement=mv_p,
+                    refuge=refuge, N0=N0, P0=P0, dt=dt)
+    if not allow_large:
+        check_steps(setup)
+    return setup
 
 
 def _initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray, np.ndarray]:
@@ -242,6 +264,12 @@ def _initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray
         rng = np.random.default_rng(sc.run.seed)
         N0 *= 1.0 + st.noise * rng.uniform(-1, 1, N0.shape)
         P0 *= 1.0 + st.noise * rng.uniform(-1, 1, P0.shape)
+    for name, u in (("prey", N0), ("predator", P0)):
+        top = float(np.max(np.where(mask, u, 0.0)))
+        if not top <= LARGEST:
+            raise InputError(f"the start gives {name} densities up to {top:g} per km², beyond "
+                             f"what a run can hold (at most {LARGEST:g} per km²)",
+                             _source(sc, "start"))
     return (np.ascontiguousarray(np.where(mask, N0, 0.0)),
             np.ascontiguousarray(np.where(mask, P0, 0.0)))
 
@@ -388,13 +416,35 @@ def epoch_state(setup: Setup, names: tuple[str, ...]) -> tuple[
         sc.prey.move_coefficient, sc.predator.move_coefficient, setup.interaction.logistic,
     )
     ls = sc.landscape
+    _check_fields(sc, fields)
     mvs = [
         build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge, ls.nodata,
                        perm_x=on.permeability[sp][0], perm_y=on.permeability[sp][1])
         for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
                                ("predator", fields.predator_move, sc.predator))
     ]
+    for sp, mv in zip(("prey", "predator"), mvs, strict=True):
+        if not (np.isfinite(mv.cx).all() and np.isfinite(mv.cy).all()):
+            raise InputError(f"the {sp}'s movement rate per cell (diffusivity or motility over "
+                             "the squared cell size) overflows 32-bit floats; lower it or use "
+                             "larger cells", _source(sc, sp))
     return fields, mvs[0], mvs[1], on.refuge
+
+
+_FIELD_KEYS = {"K": "prey.capacity", "r": "prey.growth", "inv_K": "prey.capacity",
+               "m": "predator.mortality", "prey_move": "prey.diffusivity or motility",
+               "predator_move": "predator.diffusivity or motility"}
+
+
+def _check_fields(sc: Scenario, fields: Fields) -> None:
+    """Refuse per-cell values that 32-bit floats cannot hold (a value times its multiplier)."""
+    for name, key in _FIELD_KEYS.items():
+        a = getattr(fields, name)
+        if a.size and not np.isfinite(a).all():
+            raise InputError(
+                f"{key} times its habitat multipliers (class table or measures) exceeds what "
+                f"a per-cell value can hold (32-bit floats, at most {LARGEST:g}); lower them",
+                _source(sc, key.split(" ")[0]))
 
 
 def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
@@ -403,6 +453,35 @@ def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
     K = float(fields.K.max()) if mask.any() else (sc.prey.capacity or math.nan)
     return {"r": sc.prey.growth, "K": K, "m": sc.predator.mortality,
             "D_N": sc.prey.move_coefficient, "D_P": sc.predator.move_coefficient}
+
+
+def _step_limits(sc: Scenario, fields: Fields, inter: Interaction,
+                 P0: np.ndarray) -> list[tuple[str, float]]:
+    """What bounds the automatic step: ``(what, longest step it allows in years)``."""
+    b = _best(sc, fields)
+    K_arg = b["K"] if inter.logistic else None
+    n_eq, p_eq = theory.equilibrium(inter, b["r"], K_arg, b["m"])
+    p_scale = max(float(P0.max()), p_eq if math.isfinite(p_eq) else 0.0)
+    K = b["K"] if math.isfinite(b["K"]) else 0.0
+    rates = [
+        ("prey.growth (times its largest multiplier)", float(np.abs(fields.r).max())),
+        ("predator.mortality (times its largest multiplier)", float(fields.m.max())),
+        # per-capita predation on rare prey
+        ("interaction.attack_rate times the predator density", inter.attack_rate * p_scale),
+        # predator gain at capacity
+        ("the predators' growth on prey at capacity (interaction.efficiency, attack_rate, "
+         "prey.capacity)", theory.predator_growth_at_capacity(inter, K, 0.0)),
+    ]
+    out = [(what, AUTO_ACCURACY / abs(r)) for what, r in rates if math.isfinite(r) and r != 0]
+    period = theory.local_stability(inter, b["r"], K_arg, b["m"])["period"]
+    if period is not None and math.isfinite(period) and period > 0:
+        out.append(("the local oscillation period / 200", period / 200.0))
+    out.append(("run.save_every", sc.run.save_every))
+    return out
+
+
+AUTO_ACCURACY = 0.05
+"""The automatic step is this fraction of the fastest time scale (see ``auto_step``)."""
 
 
 def _auto_dt(sc: Scenario, fields: Fields, inter: Interaction, P0: np.ndarray) -> float:
@@ -419,6 +498,125 @@ def _auto_dt(sc: Scenario, fields: Fields, inter: Interaction, P0: np.ndarray) -
     ]
     period = theory.local_stability(inter, b["r"], K_arg, b["m"])["period"]
     return auto_step(rates, period, sc.run.save_every)
+
+
+def memory_estimate_mb(cells: int, raster_cells: int = 0) -> float:
+    """Memory a run of ``cells`` grid cells needs, MB.
+
+    About 180 bytes per cell during the run (state and transposed work, reaction
+    fields, faces, weights and pivots, habitat, start and output buffers) plus
+    about 250 MB for Python and the libraries (measured: ``benchmarks/run.py
+    --only memory``); reading a raster of ``raster_cells`` cells takes about 24
+    bytes per cell, before the run's arrays exist.
+    """
+    return 250.0 + max(cells * 180.0, raster_cells * 24.0) / 1e6
+
+
+def available_memory_mb() -> float | None:
+    """Memory available to a new run, MB (Linux ``MemAvailable``; None where unknown)."""
+    import os
+
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) / 1024.0 * 1.048576
+    except OSError:
+        pass
+    try:
+        return os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE") / 1e6
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def _raster_shape(sc: Scenario) -> tuple[int, int, float, float] | None:
+    """Rows, columns and cell sizes (m) of the habitat raster, from its header only."""
+    try:
+        import rasterio
+
+        with rasterio.open(sc.resolve(sc.landscape.habitat)) as ds:
+            return ds.height, ds.width, abs(ds.transform.a), abs(ds.transform.e)
+    except Exception:  # noqa: BLE001 - read_habitat reports unreadable rasters properly
+        return None
+
+
+def check_memory(sc: Scenario, available: float | None = None) -> None:
+    """Refuse a grid whose memory estimate exceeds the available memory, before reading it.
+
+    Parameters
+    ----------
+    sc : Scenario
+        The scenario (its habitat raster's header is read, not its cells).
+    available : float, optional
+        Memory available, MB; default :func:`available_memory_mb`.
+
+    Raises
+    ------
+    InputError
+        With the estimate, the memory available and the cell size that would fit.
+    """
+    shape = _raster_shape(sc)
+    available = available_memory_mb() if available is None else available
+    if shape is None or available is None:
+        return
+    rows, cols, dx, dy = shape
+    h = sc.landscape.cell_size
+    cells = rows * cols if h is None else int(rows * dy // h) * int(cols * dx // h)
+    need = memory_estimate_mb(cells, rows * cols)
+    if need <= available:
+        return
+    if rows * cols * 24.0 / 1e6 + 250.0 > available:
+        fix = ("the raster itself is too large to read: resample it to larger cells first "
+               "(gdalwarp -tr SIZE SIZE in.tif out.tif)")
+    else:
+        fit = max(1.0, (available - 250.0) * 1e6 / 180.0)
+        size = (h or max(dx, dy)) * math.sqrt(cells / fit)
+        size = float(f"{size * 1.05:.2g}")  # a little margin, two digits
+        fix = f"a cell size of {size:g} m or more would fit (landscape.cell_size)"
+    raise InputError(
+        f"the grid of {cells:,} cells needs about {need:,.0f} MB, more than the "
+        f"{available:,.0f} MB available; {fix}, or pass --allow-large to try anyway",
+        _source(sc, "landscape.cell_size" if h else f"landscape.habitat ({sc.landscape.habitat})"))
+
+
+def check_steps(setup: Setup) -> None:
+    """Refuse a run of more than :data:`MAX_STEPS` steps, naming what makes it so long.
+
+    For the explicit scheme every movement substep counts.
+
+    Raises
+    ------
+    InputError
+        With the step count and its cause (a rate, a fixed step, the explicit
+        scheme's stability bound).
+    """
+    sc = setup.scenario
+    steps = round(sc.run.years / setup.dt)
+    sub = 1
+    if sc.run.scheme == "explicit":
+        rate = max(setup.prey_movement.max_rate, setup.predator_movement.max_rate)
+        sub = max(1, math.ceil(setup.dt * rate / 0.9))
+    total = steps * sub
+    if total <= MAX_STEPS:
+        return
+    hours = total * setup.grid.ny * setup.grid.nx * NS_PER_CELL_STEP * 1e-9 / 3600
+    if sub > 1:
+        why = (f"the explicit scheme's stability bound: each step of {setup.dt:g} yr needs "
+               f"{sub:,} movement substeps (scheme = 'explicit'; 'adi' has no such bound)")
+        key = "run.scheme"
+    elif sc.run.step != "auto":
+        why = f"the fixed step run.step = {setup.dt:g} yr over run.years = {sc.run.years:g}"
+        key = "run.step"
+    else:
+        what, _ = min(_step_limits(sc, setup.fields, setup.interaction, setup.P0),
+                      key=lambda x: x[1])
+        why = (f"the automatic step of {setup.dt:g} yr, set by {what}; check that value and "
+               "its units (per year)")
+        key = "run.step"
+    raise InputError(
+        f"the run needs {total:,} steps (more than {MAX_STEPS:,}; about {hours:.2g} hours on "
+        f"this grid), because of {why}; pass --allow-large to run it anyway",
+        _source(sc, key))
 
 
 def predictions(setup: Setup) -> dict:
@@ -479,7 +677,7 @@ def derived(setup: Setup) -> dict:
         # per species faces and weights in two orientations (24) and pivots (32), unit
         # weights (8), habitat (4), start and output buffers: ~180 B; plus ~250 MB for
         # Python and the libraries (measured: benchmarks/run.py --only memory)
-        "memory_mb": 250 + cells * 180 / 1e6,
+        "memory_mb": memory_estimate_mb(cells),
         "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
         "snapshots": n_snap,
         "measures": [m.summary(g.cell_area_km2) for m in setup.measures],

@@ -12,6 +12,9 @@ def add_parsers(sub) -> None:
     c = sub.add_parser("check", help="validate a scenario and print what it implies")
     c.add_argument("scenario", type=Path, help="scenario file (TOML)")
     c.add_argument("--json", action="store_true", help="print the numbers as JSON")
+    c.add_argument("--allow-large", action="store_true",
+                   help="check even when the memory estimate exceeds the available memory or "
+                   "the run needs more than a million steps")
     c.set_defaults(handler=check)
 
 
@@ -21,11 +24,13 @@ def check(args) -> int:
     from preyscape.scenario import load_scenario
 
     sc = load_scenario(args.scenario)
-    d = derived(prepare(sc))
+    d = derived(prepare(sc, allow_large=args.allow_large))
     d["variant_measures"] = check_variant_measures(
         [sc.for_variant(n) for n in sc.variant_names()[1:]])
     if args.json:
-        print(json.dumps(d, indent=2, default=str))
+        from preyscape.store import json_safe
+
+        print(json.dumps(json_safe(d), indent=2, default=str, allow_nan=False))
     else:
         print("\n".join(check_lines(args.scenario, d)))
     return 0
