@@ -411,18 +411,22 @@ def epoch_state(setup: Setup, names: tuple[str, ...]) -> tuple[
     """
     sc, grid = setup.scenario, setup.grid
     on = combine([m for m in setup.measures if m.name in names], setup.multipliers)
-    fields = build_fields(
-        on.multipliers, grid.mask, sc.prey.growth, sc.prey.capacity, sc.predator.mortality,
-        sc.prey.move_coefficient, sc.predator.move_coefficient, setup.interaction.logistic,
-    )
+    with np.errstate(over="ignore", invalid="ignore"):  # overflow is refused just below
+        fields = build_fields(
+            on.multipliers, grid.mask, sc.prey.growth, sc.prey.capacity,
+            sc.predator.mortality, sc.prey.move_coefficient, sc.predator.move_coefficient,
+            setup.interaction.logistic,
+        )
     ls = sc.landscape
     _check_fields(sc, fields)
-    mvs = [
-        build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge, ls.nodata,
-                       perm_x=on.permeability[sp][0], perm_y=on.permeability[sp][1])
-        for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
-                               ("predator", fields.predator_move, sc.predator))
-    ]
+    with np.errstate(over="ignore", invalid="ignore"):
+        mvs = [
+            build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge,
+                           ls.nodata, perm_x=on.permeability[sp][0],
+                           perm_y=on.permeability[sp][1])
+            for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
+                                   ("predator", fields.predator_move, sc.predator))
+        ]
     for sp, mv in zip(("prey", "predator"), mvs, strict=True):
         if not (np.isfinite(mv.cx).all() and np.isfinite(mv.cy).all()):
             raise InputError(f"the {sp}'s movement rate per cell (diffusivity or motility over "
@@ -440,11 +444,11 @@ def _check_fields(sc: Scenario, fields: Fields) -> None:
     """Refuse per-cell values that 32-bit floats cannot hold (a value times its multiplier)."""
     for name, key in _FIELD_KEYS.items():
         a = getattr(fields, name)
-        if a.size and not np.isfinite(a).all():
+        if a.size and not (np.isfinite(a).all() and float(np.abs(a).max()) <= LARGEST):
             raise InputError(
-                f"{key} times its habitat multipliers (class table or measures) exceeds what "
-                f"a per-cell value can hold (32-bit floats, at most {LARGEST:g}); lower them",
-                _source(sc, key.split(" ")[0]))
+                "this value times its habitat multipliers (class table or measures) exceeds "
+                f"what a per-cell value can hold (32-bit floats, at most {LARGEST:g}); lower "
+                "one of them", _source(sc, key.split(" ")[0]))
 
 
 def _best(sc: Scenario, fields: Fields) -> dict[str, float]:

@@ -303,12 +303,16 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
     store.check_output(out, overwrite, "run folder", protect=_inputs(sc))  # before any work
     partial = _partial_to_continue(sc, out, overwrite=overwrite, resume=resume)
     setup = prepare(sc, allow_large=allow_large)
+    started = time.time()
     try:
         with store.output_folder(out, overwrite, "run folder", adopt=partial, keep=_resumable,
                                  protect=_inputs(sc)) as tmp:
             _run_into(tmp, setup, progress=progress, maps=maps)
     except KeyboardInterrupt:
         kept = interrupted_run(out)
+        if kept is None and _finished_since(out, started):
+            raise RunInterrupted(f"{out}: the run had finished; its run folder is complete",
+                                 None, False) from None
         if kept is None:
             raise RunInterrupted(f"{out}: stopped before the first save point; nothing was "
                                  "kept") from None
@@ -318,6 +322,18 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
     except NonFiniteDensities as exc:
         raise InputError(_blow_up(sc, setup.dt, exc), str(sc.path)) from None
     return out
+
+
+def _finished_since(out: Path, started: float) -> bool:
+    """Whether ``out`` holds a run folder completed after ``started`` (seconds since epoch).
+
+    An interrupt that arrives while the finished folder is moved into place
+    is delivered just after (see :func:`preyscape.store.commit_folder`).
+    """
+    try:
+        return (out / "run.json").stat().st_mtime >= started - 1.0
+    except OSError:
+        return False
 
 
 def _blow_up(sc: Scenario, dt: float, exc: NonFiniteDensities) -> str:

@@ -670,6 +670,9 @@ def parse_scenario(
         return sc
     for key, rel in sc.input_files():
         f = sc.resolve(rel)
+        if f.is_dir():
+            raise InputError(f"{key}: '{rel}' is a folder ({f}); give the path of a file",
+                             source=str(path))
         if not f.is_file():
             raise InputError(
                 f"{key}: file '{rel}' not found (looked for {f}); paths are relative to "

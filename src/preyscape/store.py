@@ -433,11 +433,13 @@ def _alive(pid: int) -> bool:
     return True
 
 
-def stale_partials(out: str | Path, marker: str = ".partial-") -> list[Path]:
+def stale_partials(out: str | Path, marker: str = ".partial-", *,
+                   files: bool = False) -> list[Path]:
     """Temporary folders of ``out`` left by processes that were killed or interrupted.
 
     A folder ``.NAME<marker>PID`` beside ``out`` whose process no longer runs
-    (or is this process, but not writing it now). Newest first.
+    (or is this process, but not writing it now). Newest first. With
+    ``files``, temporary files instead (``.NAME.tmp-PID`` of a report).
     """
     out = Path(out)
     if not out.parent.is_dir():
@@ -445,7 +447,8 @@ def stale_partials(out: str | Path, marker: str = ".partial-") -> list[Path]:
     found = []
     for p in out.parent.glob(f".{glob_escape(out.name)}{marker}*"):
         pid = _pid_of(p, marker)
-        if pid is not None and p.is_dir() and p not in _ACTIVE and not _alive(pid):
+        if (pid is not None and (p.is_file() if files else p.is_dir())
+                and p not in _ACTIVE and not _alive(pid)):
             found.append(p)
     return sorted(found, key=lambda p: p.stat().st_mtime, reverse=True)
 
@@ -622,7 +625,7 @@ def commit_folder(tmp: Path, out: Path) -> None:
     last; a later run into the same place deletes it if this one was killed
     first, or puts it back if ``out`` is missing. At every moment ``out`` is
     either the old folder or the complete new one. Ctrl-C and SIGTERM wait
-    until the new folder is in place.
+    until the new folder is in place and the old one deleted.
     """
     import shutil
 
@@ -636,7 +639,7 @@ def commit_folder(tmp: Path, out: Path) -> None:
         else:
             os.replace(out, aside)
             os.replace(tmp, out)
-    shutil.rmtree(aside, ignore_errors=True)
+        shutil.rmtree(aside, ignore_errors=True)
 
 
 @contextmanager

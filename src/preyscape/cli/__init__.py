@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import errno
 import os
 import signal
 import sys
@@ -22,6 +23,10 @@ import sys
 from preyscape.cautions import CAUTION
 
 __all__ = ["CAUTION", "main"]
+
+_ENVIRONMENT = {errno.ENOSPC, errno.EDQUOT, errno.EROFS, errno.EACCES, errno.EPERM}
+"""Errors of the machine rather than of preyscape: one message and exit status 2."""
+
 
 def _parser() -> argparse.ArgumentParser:
     from preyscape import __version__
@@ -88,6 +93,14 @@ def main(argv: list[str] | None = None) -> int:
         with contextlib.suppress(OSError):
             os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 128 + int(signal.SIGPIPE)
+    except OSError as exc:
+        if exc.errno not in _ENVIRONMENT:
+            raise
+        # the disk is full, read-only or forbidden: the user can fix that; temporary
+        # files were removed on the way out
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"preyscape: error: {where}{exc.strerror or exc}", file=sys.stderr)
+        return 2
 
 
 if __name__ == "__main__":  # pragma: no cover
