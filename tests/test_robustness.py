@@ -656,3 +656,255 @@ def test_table_is_large_enough():
     # design requirement: at least 60 malformed-input cases, with distinct ids
     assert len(TABLE) >= 60
     assert len({i for i, _, _ in TABLE}) == len(TABLE)
+
+
+# ---------------------------------------------------------------------------
+# kill tests: subprocesses stopped by a signal at chosen points
+# ---------------------------------------------------------------------------
+DRIVER = r'''
+import os, signal, sys
+
+point, signame, *argv = sys.argv[1:]
+sig = getattr(signal, signame)
+from preyscape import runfolder, store
+
+
+def fire():
+    os.kill(os.getpid(), sig)
+
+
+def at(owner, name, n=1, before=False):
+    real = getattr(owner, name)
+    calls = [0]
+
+    def wrapped(*a, **k):
+        calls[0] += 1
+        if before and calls[0] == n:
+            fire()
+        out = real(*a, **k)
+        if not before and calls[0] == n:
+            fire()
+        return out
+
+    setattr(owner, name, wrapped)
+
+
+kind, _, n = point.partition(":")
+n = int(n or 1)
+if kind != "maps":  # maps take most of a tiny run's time; the tests look at results
+    runfolder.draw_run_maps = lambda *a, **k: []
+if kind == "checkpoint":  # after the n-th checkpoint is written
+    at(store, "save_checkpoint", n)
+elif kind == "snapshot":  # after the n-th snapshot is written, before its checkpoint
+    at(store.ResultWriter, "write", n)
+elif kind == "prepare":  # while the scenario is prepared, before any folder exists
+    at(runfolder, "prepare", before=True)
+elif kind == "maps":  # after the last step, while the maps are drawn
+    at(runfolder, "draw_run_maps", before=True)
+elif kind == "before-swap":  # the new run is complete, the old one not yet replaced
+    at(store, "_exchange", before=True)
+elif kind == "swap":  # right after the atomic exchange, before the old one is deleted
+    at(store, "_exchange")
+elif kind == "aside":  # no exchange: between renaming the old one aside and the new one in
+    store._exchange = lambda a, b: False
+    real = os.replace
+
+    def replace(src, dst):
+        real(src, dst)
+        if ".replaced-" in str(dst):
+            fire()
+
+    os.replace = replace
+from preyscape.cli import main
+
+sys.exit(main(argv))
+'''
+
+KILL_RUN = {"run.years": 1.0}  # four save points of 0.25 yr: room to stop in between
+
+
+@pytest.fixture
+def no_maps(monkeypatch):
+    """Runs in this process draw no maps (they take most of a tiny run's time)."""
+    import preyscape.runfolder
+
+    monkeypatch.setattr(preyscape.runfolder, "draw_run_maps", lambda *a, **k: [])
+
+
+@pytest.fixture(scope="module")
+def kill_env(tmp_path_factory) -> dict[str, Path]:
+    """The shared kill scenario, an uninterrupted reference run of it, and the driver."""
+    from preyscape.runfolder import simulate
+
+    folder = tmp_path_factory.mktemp("robust_kill")
+    write_habitat(folder / "habitat.tif")
+    sc = folder / "scenario.toml"
+    sc.write_text(to_toml(apply_overrides(BASE, KILL_RUN)))
+    old = folder / "old.toml"  # a shorter run: the "old result" an --overwrite replaces
+    old.write_text(to_toml(BASE))
+    driver = folder / "driver.py"
+    driver.write_text(DRIVER)
+    ref = simulate(sc, folder / "reference", maps=False, progress=False)
+    return {"folder": folder, "scenario": sc, "old": old, "driver": driver, "ref": ref}
+
+
+def stop(env: dict, point: str, signame: str, *argv: str) -> subprocess.CompletedProcess:
+    """Run ``preyscape`` in a subprocess that sends itself ``signame`` at ``point``."""
+    return subprocess.run([sys.executable, str(env["driver"]), point, signame, *argv],
+                          capture_output=True, text=True, timeout=600,
+                          env={**os.environ, "PYTHONUNBUFFERED": "1"})
+
+
+def hidden(folder: Path) -> list[str]:
+    return sorted(p.name for p in folder.iterdir() if p.name.startswith("."))
+
+
+def assert_same_results(a: Path, b: Path) -> None:
+    """Every variable of two results.nc files bitwise equal, and the same attributes."""
+    import netCDF4
+
+    with netCDF4.Dataset(a / "results.nc") as x, netCDF4.Dataset(b / "results.nc") as y:
+        assert sorted(x.variables) == sorted(y.variables)
+        for name in x.variables:
+            u, v = x[name][...], y[name][...]
+            assert u.dtype == v.dtype and u.shape == v.shape, name
+            assert np.array_equal(np.ma.filled(u, np.nan), np.ma.filled(v, np.nan),
+                                  equal_nan=True), name
+            assert x[name].ncattrs() == y[name].ncattrs(), name
+        skip = {"history"}  # when the run started
+        assert ({k: x.getncattr(k) for k in x.ncattrs() if k not in skip}
+                == {k: y.getncattr(k) for k in y.ncattrs() if k not in skip})
+
+
+EXIT = {"SIGINT": 130, "SIGTERM": 143, "SIGKILL": -signal.SIGKILL}
+
+
+@pytest.mark.parametrize("point,signame", [
+    ("checkpoint:2", "SIGINT"), ("checkpoint:2", "SIGTERM"), ("checkpoint:2", "SIGKILL"),
+    ("snapshot:4", "SIGKILL"), ("maps", "SIGINT")])
+def test_stopped_run_is_kept_and_resumes_bitwise(kill_env, point, signame, tmp_path, capsys,
+                                                 no_maps):
+    # design requirement: an interrupted run keeps its partial folder with its checkpoint;
+    # --resume continues it to results bitwise equal to an uninterrupted run's
+    out = tmp_path / "runs" / "moor"
+    proc = stop(kill_env, point, signame, "run", str(kill_env["scenario"]), "--out", str(out),
+                "--quiet")
+    assert proc.returncode == EXIT[signame], proc.stderr
+    assert "Traceback" not in proc.stderr
+    if signame != "SIGKILL":
+        name = "Ctrl-C" if signame == "SIGINT" else "SIGTERM"
+        assert proc.stderr.startswith(f"preyscape: interrupted ({name}): {out}: stopped at t = ")
+        assert "continue with: preyscape run" in proc.stderr and "--resume" in proc.stderr
+    assert not out.exists()
+    kept = hidden(out.parent)
+    assert len(kept) == 1 and kept[0].startswith(".moor.partial-")
+    assert {"checkpoint.npz", "partial.json", "results.nc"} <= {
+        p.name for p in (out.parent / kept[0]).iterdir()}
+    # without --resume the kept run is neither lost nor overwritten
+    assert main(["run", str(kill_env["scenario"]), "--out", str(out), "--quiet"]) == 2
+    assert "--resume" in capsys.readouterr().err and hidden(out.parent) == kept
+    assert main(["run", str(kill_env["scenario"]), "--out", str(out), "--quiet",
+                 "--resume"]) == 0, capsys.readouterr().err
+    assert hidden(out.parent) == []
+    assert not (out / "partial.json").exists()
+    assert_same_results(out, kill_env["ref"])
+    info = json.loads((out / "run.json").read_text())
+    ref = json.loads((kill_env["ref"] / "run.json").read_text())
+    assert info["steps"] == ref["steps"] and info["resumed_from_step"] > 0
+    assert info["positivity_clip_total"] == ref["positivity_clip_total"]
+
+
+def test_stopped_before_any_save_point_leaves_nothing(kill_env, tmp_path, capsys, no_maps):
+    # design requirement: nothing to resume, nothing left; a killed run's temporary folder
+    # is removed by the next run into the same place
+    out = tmp_path / "moor"
+    proc = stop(kill_env, "prepare", "SIGTERM", "run", str(kill_env["scenario"]), "--out",
+                str(out), "--quiet")
+    assert proc.returncode == 143 and "Traceback" not in proc.stderr
+    assert proc.stderr.startswith("preyscape: interrupted (SIGTERM): ")
+    assert sorted(p.name for p in tmp_path.iterdir()) == []
+    proc = stop(kill_env, "snapshot:1", "SIGKILL", "run", str(kill_env["scenario"]), "--out",
+                str(out), "--quiet")
+    assert proc.returncode == -signal.SIGKILL
+    assert [p.startswith(".moor.partial-") for p in hidden(tmp_path)] == [True]
+    assert main(["run", str(kill_env["old"]), "--out", str(out), "--quiet"]) == 0
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["moor"]
+
+
+def run_years(folder: Path) -> float:
+    return json.loads((folder / "run.json").read_text())["years"]
+
+
+@pytest.mark.parametrize("point,signame,after", [
+    ("before-swap", "SIGKILL", "old"), ("swap", "SIGKILL", "new"), ("swap", "SIGTERM", "new"),
+    ("aside", "SIGKILL", "old")])
+def test_stopped_overwrite_leaves_old_or_new(kill_env, point, signame, after, tmp_path,
+                                            capsys, no_maps):
+    # design requirement: while --overwrite replaces a run folder, a stop leaves the old
+    # folder or the complete new one, never a mix; the next run tidies what a kill left
+    out = tmp_path / "moor"
+    assert main(["run", str(kill_env["old"]), "--out", str(out), "--quiet"]) == 0
+    old_files = listing(out)
+    proc = stop(kill_env, point, signame, "run", str(kill_env["scenario"]), "--out", str(out),
+                "--quiet", "--overwrite")
+    assert proc.returncode == EXIT[signame], proc.stderr
+    assert "Traceback" not in proc.stderr
+    if point == "aside":  # renamed aside, not yet replaced: the next run puts it back
+        from preyscape.store import remove_stale
+
+        assert not out.exists()
+        remove_stale(out)
+    if after == "old":
+        assert listing(out) == old_files and run_years(out) == 0.5
+    else:
+        assert run_years(out) == 1.0
+        assert_same_results(out, kill_env["ref"])
+    if signame == "SIGTERM":  # held until the swap was done: nothing else is left
+        assert "the run had finished" in proc.stderr
+        assert hidden(tmp_path) == []
+    capsys.readouterr()
+    assert main(["run", str(kill_env["old"]), "--out", str(out), "--quiet",
+                 "--overwrite"]) == 0, capsys.readouterr().err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["moor"]
+    assert run_years(out) == 0.5
+
+
+def test_stopped_variants_say_what_finished_and_resume_without_mixing(kill_env, tmp_path,
+                                                                      capsys, no_maps):
+    # design requirement: an interrupted run of variants says which finished; --resume
+    # keeps those, continues the stopped one bitwise, runs the rest, and refuses to mix
+    # variants made from different versions of the scenario
+    from preyscape.runfolder import simulate
+    from preyscape.scenario import load_scenario
+
+    write_habitat(tmp_path / "habitat.tif")
+    for name, doc in VARIANT_FILES.items():
+        put(tmp_path, name, doc)
+    data = apply_overrides(BASE, {**KILL_RUN, **VARIANTS, "variants": [
+        {"name": "fenced", "add": ["north fence"]},
+        {"name": "no-refuge", "remove": ["fen refuge"]}]})
+    sc = tmp_path / "variants.toml"
+    sc.write_text(to_toml(data))
+    out = tmp_path / "runs"
+    proc = stop(kill_env, "checkpoint:6", "SIGINT", "run", str(sc), "--out", str(out),
+                "--quiet")  # four checkpoints per variant: the second variant is stopped
+    assert proc.returncode == 130 and "Traceback" not in proc.stderr, proc.stderr
+    assert "variants finished: baseline; stopped: fenced; not started: no-refuge" in proc.stderr
+    assert "continue with: preyscape run" in proc.stderr
+    names = sorted(p.name for p in out.iterdir())
+    assert names[1:] == ["baseline"] and names[0].startswith(".fenced.partial-")
+    finished = (out / "baseline" / "run.json").read_bytes()
+
+    sc.write_text(to_toml(apply_overrides(data, {"prey.growth": 3.0})))
+    assert main(["run", str(sc), "--out", str(out), "--quiet", "--resume"]) == 2
+    err = capsys.readouterr().err
+    assert f"{out / 'baseline'}: this run folder was made from another version" in err
+    assert sorted(p.name for p in out.iterdir()) == names
+
+    sc.write_text(to_toml(data))
+    assert main(["run", str(sc), "--out", str(out), "--quiet", "--resume"]) == 0
+    assert sorted(p.name for p in out.iterdir()) == ["baseline", "fenced", "no-refuge"]
+    assert (out / "baseline" / "run.json").read_bytes() == finished  # kept, not run again
+    ref = simulate(load_scenario(sc).for_variant("fenced"), tmp_path / "ref", maps=False,
+                   progress=False)
+    assert_same_results(out / "fenced", ref)

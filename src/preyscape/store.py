@@ -601,19 +601,33 @@ def _exchange(a: Path, b: Path) -> bool:
 
 @contextmanager
 def _signals_held():
-    """Hold Ctrl-C and SIGTERM (delivered afterwards) while a folder is swapped in."""
+    """Hold Ctrl-C and SIGTERM while a folder is swapped in; deliver them afterwards.
+
+    The Python-level handlers are replaced by a recorder (a signal mask would
+    not do: a signal sent to the process may land on one of numba's or the
+    libraries' threads), then restored, and a signal that arrived is passed
+    to the handler that was in place.
+    """
     import signal
     import threading
 
-    held = {signal.SIGINT, signal.SIGTERM}
     if threading.current_thread() is not threading.main_thread():
         yield
         return
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
+    caught: list[int] = []
+    held = (signal.SIGINT, signal.SIGTERM)
+    old = {s: signal.signal(s, lambda signum, _frame: caught.append(signum)) for s in held}
     try:
         yield
     finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+        for s, h in old.items():
+            signal.signal(s, h)
+        if caught:
+            h = old[caught[0]]
+            if callable(h):
+                h(caught[0], None)
+            elif h == signal.SIG_DFL:
+                os.kill(os.getpid(), caught[0])
 
 
 def commit_folder(tmp: Path, out: Path) -> None:
