@@ -19,6 +19,7 @@ DOCTESTED = [
     "preyscape.names",
     "preyscape.scenario",
     "preyscape.landscape.placed",
+    "preyscape.store",
     "preyscape.assemble",
     "preyscape.runfolder",
     "preyscape.analysis.settings",

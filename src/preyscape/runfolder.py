@@ -16,6 +16,17 @@ Examples
 ...                             progress=False)
 >>> sorted(folders)
 ['baseline', 'fenced', 'no-refuge']
+
+A run stopped by Ctrl-C or SIGTERM after its first save point keeps its
+temporary folder with the checkpoint; ``resume=True`` continues it (and, for
+variants, keeps the ones finished before):
+
+>>> interrupted_run(out_folder / "runs" / "baseline") is None
+True
+>>> again = simulate_variants(scenario_path, out_folder / "runs", maps=False,
+...                           progress=False, resume=True)  # all finished: nothing to run
+>>> again == folders
+True
 """
 
 from __future__ import annotations

@@ -531,6 +531,16 @@ def check_output(out: str | Path, overwrite: bool = False, what: str = "output f
         For an existing ``out`` without ``overwrite``, or one that must not be replaced.
     FileProblem
         For a path under a file, of the wrong kind, or in a place that cannot be written.
+
+    Examples
+    --------
+    >>> check_output(out_folder / "runs" / "moor", what="run folder")  # fine: nothing made
+    >>> (out_folder / "notes.txt").write_text("field notes")
+    11
+    >>> check_output(out_folder / "notes.txt" / "moor", what="run folder")
+    Traceback (most recent call last):
+    ...
+    preyscape.errors.FileProblem: .../notes.txt/moor: cannot create the run folder here: ...
     """
     import tempfile
 
@@ -722,6 +732,11 @@ def json_safe(value: Any) -> Any:
     """``value`` with every non-finite float (NaN, ±infinity) replaced by None.
 
     Standard JSON has no NaN or Infinity; ``null`` says "no such value".
+
+    Examples
+    --------
+    >>> json_safe({"equilibrium": [float("nan"), 2.5], "period": float("inf")})
+    {'equilibrium': [None, 2.5], 'period': None}
     """
     import math
 
