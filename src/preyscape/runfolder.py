@@ -385,8 +385,10 @@ def _start_state(tmp: Path, setup: Setup) -> tuple:
             raise ValueError("its step or grid differs from this scenario's")
         writer = store.ResultWriter.reopen(tmp / "results.nc", grid, step // per_save + 1)
     except (OSError, ValueError, KeyError) as err:
-        raise FileProblem(f"the interrupted run kept in {tmp} cannot be continued ({err}); "
-                          "pass --overwrite to start again", str(tmp.parent)) from None
+        raise FileProblem(f"the interrupted run kept for this folder cannot be continued "
+                          f"({err}), so it was discarded; run the scenario again to start "
+                          "from the beginning", str(tmp.parent / tmp.name.split(".partial-")[0][1:])
+                          ) from None
     stats = StepStats(steps=step, clipped=float(extra.get("clipped", 0.0)))
     return writer, N, P, stats, step, float(extra.get("elapsed_s", 0.0))
 
