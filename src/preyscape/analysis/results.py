@@ -463,8 +463,6 @@ _INFO_TYPES: dict[str, tuple] = {
 
 def _info_problem(info: dict) -> str | None:
     """What is wrong with the structure of a ``run.json``, or None."""
-    if "years" not in info:
-        return "has no 'years'"
     for key, types in _INFO_TYPES.items():
         v = info.get(key)
         if key in info and (not isinstance(v, types) or isinstance(v, bool)):
@@ -472,8 +470,8 @@ def _info_problem(info: dict) -> str | None:
                                {int: "a number", float: "a number", str: "text",
                                 dict: "an object", list: "a list"}[t] for t in types)
             return f"has {key!r} of the wrong type ({type(v).__name__}; expected {want})"
-    if not (isinstance(info["years"], (int, float)) and math.isfinite(info["years"])
-            and info["years"] > 0):
+    years = info.get("years", 1.0)
+    if not (math.isfinite(years) and years > 0):
         return "has 'years' that is not a positive number"
     for key, needs in (("measures", ("name", "kind")), ("targets", ("name", "cells_file"))):
         for k, rec in enumerate(info.get(key) or []):

@@ -96,11 +96,15 @@ def analyse(args) -> int:
 def report(args) -> int:
     """Write the HTML report of a run (compared with the other runs given)."""
     from preyscape.analysis.results import open_run
+    from preyscape.errors import FileProblem
     from preyscape.report.run_report import write_report
     from preyscape.store import check_output, stale_partials
 
     for r in (args.run, *args.others):
-        open_run(r).close()  # a damaged or foreign folder: one message before any work
+        with open_run(r) as run:  # a damaged or foreign folder: one message before any work
+            if "years" not in run.info:
+                raise FileProblem("run.json has no 'years'; the folder is damaged or was not "
+                                  "written by preyscape", str(r))
     out = args.out or args.run / "report.html"
     check_output(out, args.overwrite, "report file", kind="file",
                  protect=[r / name for r in (args.run, *args.others)
