@@ -197,7 +197,7 @@ def test_failed_overwrite_keeps_old_folder(scenario_path, tmp_path, monkeypatch)
 # ---------------------------------------------------------------------------
 def test_memory_beyond_what_is_available_is_refused_with_a_cell_size_that_fits(
         write_scenario):
-    from preyscape.assemble import check_memory, memory_estimate_mb
+    from preyscape.limits import check_memory, memory_estimate_mb
 
     sc = load_scenario(write_scenario({"landscape.cell_size": 10.0}))  # 100 x the cells
     cells = SHAPE[0] * SHAPE[1] * 100
@@ -224,7 +224,7 @@ def test_memory_limit_applies_before_the_raster_is_read(write_scenario, monkeypa
 
 
 def test_absurd_step_counts_are_refused_with_their_cause(write_scenario):
-    from preyscape.assemble import MAX_STEPS
+    from preyscape.limits import MAX_STEPS
 
     sc = load_scenario(write_scenario({"run.step": 1e-7}))
     with pytest.raises(InputError) as err:

@@ -20,6 +20,7 @@ DOCTESTED = [
     "preyscape.scenario",
     "preyscape.landscape.placed",
     "preyscape.store",
+    "preyscape.limits",
     "preyscape.assemble",
     "preyscape.runfolder",
     "preyscape.analysis.settings",

@@ -23,7 +23,7 @@ RANK = {
     "scenario": 1, "landscape": 1,
     "model": 2,
     "solve": 3,
-    "store": 4,
+    "store": 4, "limits": 4,
     "assemble": 5, "plots": 5,
     "analysis": 6,
     "runfolder": 7,

@@ -27,6 +27,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from preyscape import limits
 from preyscape.errors import InputError
 from preyscape.landscape.grid import Grid
 from preyscape.landscape.placed import PlacedMeasure, combine
@@ -42,20 +43,8 @@ from preyscape.model.reactions import Interaction
 from preyscape.scenario import LARGEST, MeasureSpec, Scenario
 from preyscape.solve.stepper import Stepper, StepStats, auto_step
 
-__all__ = ["MAX_STEPS", "Epoch", "Setup", "available_memory_mb", "check_memory",
-           "check_steps", "check_variant_measures", "derived", "epoch_state",
-           "interaction_of", "measure_epochs", "memory_estimate_mb", "place_measures",
-           "place_targets", "prepare"]
-
-MAX_STEPS = 1_000_000
-"""Most steps (movement substeps, for the explicit scheme) a run takes unless allowed.
-
-Common practice, no source: a scenario on the automatic step needs hundreds
-to a few thousand steps; a million is a sign of a mistake (a rate, a fixed
-step, a stability bound), and costs hours on a large grid."""
-
-NS_PER_CELL_STEP = 15.0
-"""Time per cell and step on a 2-core machine, ns (measured: docs/performance.md)."""
+__all__ = ["Epoch", "Setup", "check_variant_measures", "derived", "epoch_state",
+           "interaction_of", "measure_epochs", "place_measures", "place_targets", "prepare"]
 
 Epoch = tuple[float, float, tuple[str, ...]]
 """``(t0, t1, names of the measures acting in [t0, t1))``, years."""
@@ -184,7 +173,7 @@ def prepare(sc: Scenario, *, allow_large: bool = False) -> Setup:
     allow_large : bool
         Skip the limits: a memory estimate beyond the available memory
         (checked from the raster's header, before reading it) and more than
-        :data:`MAX_STEPS` steps (:func:`check_memory`, :func:`check_steps`).
+        :data:`~preyscape.limits.MAX_STEPS` steps (:mod:`preyscape.limits`).
 
     Returns
     -------
@@ -201,7 +190,7 @@ def prepare(sc: Scenario, *, allow_large: bool = False) -> Setup:
 
     ls = sc.landscape
     if not allow_large:
-        check_memory(sc)
+        limits.check_memory(sc)
     grid, habitat = read_habitat(
         sc.resolve(ls.habitat), ls.values, ls.cell_size,
         source=_source(sc, f"landscape.habitat ({ls.habitat})"))
@@ -219,7 +208,7 @@ def prepare(sc: Scenario, *, allow_large: bool = False) -> Setup:
     setup = replace(setup, fields=fields, prey_movement=mv_n, predator_movement=mv_p,
                     refuge=refuge, N0=N0, P0=P0, dt=dt)
     if not allow_large:
-        check_steps(setup)
+        _check_steps(setup)
     return setup
 
 
@@ -418,7 +407,7 @@ def epoch_state(setup: Setup, names: tuple[str, ...]) -> tuple[
             setup.interaction.logistic,
         )
     ls = sc.landscape
-    _check_fields(sc, fields)
+    limits.check_fields(fields, lambda key: _source(sc, key))
     with np.errstate(over="ignore", invalid="ignore"):
         mvs = [
             build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge,
@@ -427,28 +416,8 @@ def epoch_state(setup: Setup, names: tuple[str, ...]) -> tuple[
             for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
                                    ("predator", fields.predator_move, sc.predator))
         ]
-    for sp, mv in zip(("prey", "predator"), mvs, strict=True):
-        if not (np.isfinite(mv.cx).all() and np.isfinite(mv.cy).all()):
-            raise InputError(f"the {sp}'s movement rate per cell (diffusivity or motility over "
-                             "the squared cell size) overflows 32-bit floats; lower it or use "
-                             "larger cells", _source(sc, sp))
+    limits.check_movement(mvs, lambda key: _source(sc, key))
     return fields, mvs[0], mvs[1], on.refuge
-
-
-_FIELD_KEYS = {"K": "prey.capacity", "r": "prey.growth", "inv_K": "prey.capacity",
-               "m": "predator.mortality", "prey_move": "prey.diffusivity or motility",
-               "predator_move": "predator.diffusivity or motility"}
-
-
-def _check_fields(sc: Scenario, fields: Fields) -> None:
-    """Refuse per-cell values that 32-bit floats cannot hold (a value times its multiplier)."""
-    for name, key in _FIELD_KEYS.items():
-        a = getattr(fields, name)
-        if a.size and not (np.isfinite(a).all() and float(np.abs(a).max()) <= LARGEST):
-            raise InputError(
-                "this value times its habitat multipliers (class table or measures) exceeds "
-                f"what a per-cell value can hold (32-bit floats, at most {LARGEST:g}); lower "
-                "one of them", _source(sc, key.split(" ")[0]))
 
 
 def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
@@ -459,168 +428,42 @@ def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
             "D_N": sc.prey.move_coefficient, "D_P": sc.predator.move_coefficient}
 
 
-def _step_limits(sc: Scenario, fields: Fields, inter: Interaction,
-                 P0: np.ndarray) -> list[tuple[str, float]]:
-    """What bounds the automatic step: ``(what, longest step it allows in years)``."""
+def _rates(sc: Scenario, fields: Fields, inter: Interaction,
+           P0: np.ndarray) -> tuple[dict[str, float], float | None]:
+    """The rates (1/yr) and local period (yr) the automatic step follows, by what sets them."""
     b = _best(sc, fields)
     K_arg = b["K"] if inter.logistic else None
     n_eq, p_eq = theory.equilibrium(inter, b["r"], K_arg, b["m"])
     p_scale = max(float(P0.max()), p_eq if math.isfinite(p_eq) else 0.0)
     K = b["K"] if math.isfinite(b["K"]) else 0.0
-    rates = [
-        ("prey.growth (times its largest multiplier)", float(np.abs(fields.r).max())),
-        ("predator.mortality (times its largest multiplier)", float(fields.m.max())),
+    rates = {
+        "prey.growth (times its largest multiplier)": float(np.abs(fields.r).max()),
+        "predator.mortality (times its largest multiplier)": float(fields.m.max()),
         # per-capita predation on rare prey
-        ("interaction.attack_rate times the predator density", inter.attack_rate * p_scale),
+        "interaction.attack_rate times the predator density": inter.attack_rate * p_scale,
         # predator gain at capacity
-        ("the predators' growth on prey at capacity (interaction.efficiency, attack_rate, "
-         "prey.capacity)", theory.predator_growth_at_capacity(inter, K, 0.0)),
-    ]
-    out = [(what, AUTO_ACCURACY / abs(r)) for what, r in rates if math.isfinite(r) and r != 0]
+        "the predators' growth on prey at capacity (interaction.efficiency, attack_rate, "
+        "prey.capacity)": theory.predator_growth_at_capacity(inter, K, 0.0),
+    }
     period = theory.local_stability(inter, b["r"], K_arg, b["m"])["period"]
-    if period is not None and math.isfinite(period) and period > 0:
-        out.append(("the local oscillation period / 200", period / 200.0))
-    out.append(("run.save_every", sc.run.save_every))
-    return out
-
-
-AUTO_ACCURACY = 0.05
-"""The automatic step is this fraction of the fastest time scale (see ``auto_step``)."""
+    return rates, period
 
 
 def _auto_dt(sc: Scenario, fields: Fields, inter: Interaction, P0: np.ndarray) -> float:
-    b = _best(sc, fields)
-    K_arg = b["K"] if inter.logistic else None
-    n_eq, p_eq = theory.equilibrium(inter, b["r"], K_arg, b["m"])
-    p_scale = max(float(P0.max()), p_eq if math.isfinite(p_eq) else 0.0)
-    K = b["K"] if math.isfinite(b["K"]) else 0.0
-    rates = [
-        float(np.abs(fields.r).max()),
-        float(fields.m.max()),
-        inter.attack_rate * p_scale,  # per-capita predation on rare prey
-        theory.predator_growth_at_capacity(inter, K, 0.0),  # predator gain at capacity
-    ]
-    period = theory.local_stability(inter, b["r"], K_arg, b["m"])["period"]
-    return auto_step(rates, period, sc.run.save_every)
+    rates, period = _rates(sc, fields, inter, P0)
+    return auto_step(list(rates.values()), period, sc.run.save_every)
 
 
-def memory_estimate_mb(cells: int, raster_cells: int = 0) -> float:
-    """Memory a run of ``cells`` grid cells needs, MB.
-
-    About 180 bytes per cell during the run (state and transposed work, reaction
-    fields, faces, weights and pivots, habitat, start and output buffers) plus
-    about 250 MB for Python and the libraries (measured: ``benchmarks/run.py
-    --only memory``); reading a raster of ``raster_cells`` cells takes about 24
-    bytes per cell, before the run's arrays exist.
-    """
-    return 250.0 + max(cells * 180.0, raster_cells * 24.0) / 1e6
-
-
-def available_memory_mb() -> float | None:
-    """Memory available to a new run, MB (Linux ``MemAvailable``; None where unknown)."""
-    import os
-
-    try:
-        with open("/proc/meminfo") as fh:
-            for line in fh:
-                if line.startswith("MemAvailable:"):
-                    return int(line.split()[1]) / 1024.0 * 1.048576
-    except OSError:
-        pass
-    try:
-        return os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE") / 1e6
-    except (ValueError, OSError, AttributeError):
-        return None
-
-
-def _raster_shape(sc: Scenario) -> tuple[int, int, float, float] | None:
-    """Rows, columns and cell sizes (m) of the habitat raster, from its header only."""
-    try:
-        import rasterio
-
-        with rasterio.open(sc.resolve(sc.landscape.habitat)) as ds:
-            return ds.height, ds.width, abs(ds.transform.a), abs(ds.transform.e)
-    except Exception:  # noqa: BLE001 - read_habitat reports unreadable rasters properly
-        return None
-
-
-def check_memory(sc: Scenario, available: float | None = None) -> None:
-    """Refuse a grid whose memory estimate exceeds the available memory, before reading it.
-
-    Parameters
-    ----------
-    sc : Scenario
-        The scenario (its habitat raster's header is read, not its cells).
-    available : float, optional
-        Memory available, MB; default :func:`available_memory_mb`.
-
-    Raises
-    ------
-    InputError
-        With the estimate, the memory available and the cell size that would fit.
-    """
-    shape = _raster_shape(sc)
-    available = available_memory_mb() if available is None else available
-    if shape is None or available is None:
-        return
-    rows, cols, dx, dy = shape
-    h = sc.landscape.cell_size
-    cells = rows * cols if h is None else int(rows * dy // h) * int(cols * dx // h)
-    need = memory_estimate_mb(cells, rows * cols)
-    if need <= available:
-        return
-    if rows * cols * 24.0 / 1e6 + 250.0 > available:
-        fix = ("the raster itself is too large to read: resample it to larger cells first "
-               "(gdalwarp -tr SIZE SIZE in.tif out.tif)")
-    else:
-        fit = max(1.0, (available - 250.0) * 1e6 / 180.0)
-        size = (h or max(dx, dy)) * math.sqrt(cells / fit)
-        size = float(f"{size * 1.05:.2g}")  # a little margin, two digits
-        fix = f"a cell size of {size:g} m or more would fit (landscape.cell_size)"
-    raise InputError(
-        f"the grid of {cells:,} cells needs about {need:,.0f} MB, more than the "
-        f"{available:,.0f} MB available; {fix}, or pass --allow-large to try anyway",
-        _source(sc, "landscape.cell_size" if h else f"landscape.habitat ({sc.landscape.habitat})"))
-
-
-def check_steps(setup: Setup) -> None:
-    """Refuse a run of more than :data:`MAX_STEPS` steps, naming what makes it so long.
-
-    For the explicit scheme every movement substep counts.
-
-    Raises
-    ------
-    InputError
-        With the step count and its cause (a rate, a fixed step, the explicit
-        scheme's stability bound).
-    """
+def _check_steps(setup: Setup) -> None:
+    """Refuse an absurd number of steps (:func:`preyscape.limits.check_steps`)."""
     sc = setup.scenario
-    steps = round(sc.run.years / setup.dt)
-    sub = 1
-    if sc.run.scheme == "explicit":
-        rate = max(setup.prey_movement.max_rate, setup.predator_movement.max_rate)
-        sub = max(1, math.ceil(setup.dt * rate / 0.9))
-    total = steps * sub
-    if total <= MAX_STEPS:
-        return
-    hours = total * setup.grid.ny * setup.grid.nx * NS_PER_CELL_STEP * 1e-9 / 3600
-    if sub > 1:
-        why = (f"the explicit scheme's stability bound: each step of {setup.dt:g} yr needs "
-               f"{sub:,} movement substeps (scheme = 'explicit'; 'adi' has no such bound)")
-        key = "run.scheme"
-    elif sc.run.step != "auto":
-        why = f"the fixed step run.step = {setup.dt:g} yr over run.years = {sc.run.years:g}"
-        key = "run.step"
-    else:
-        what, _ = min(_step_limits(sc, setup.fields, setup.interaction, setup.P0),
-                      key=lambda x: x[1])
-        why = (f"the automatic step of {setup.dt:g} yr, set by {what}; check that value and "
-               "its units (per year)")
-        key = "run.step"
-    raise InputError(
-        f"the run needs {total:,} steps (more than {MAX_STEPS:,}; about {hours:.2g} hours on "
-        f"this grid), because of {why}; pass --allow-large to run it anyway",
-        _source(sc, key))
+    explicit = (max(setup.prey_movement.max_rate, setup.predator_movement.max_rate)
+                if sc.run.scheme == "explicit" else None)
+    limits.check_steps(
+        years=sc.run.years, dt=setup.dt, step=sc.run.step, save_every=sc.run.save_every,
+        cells=setup.grid.ny * setup.grid.nx, explicit_rate=explicit,
+        rates=lambda: _rates(sc, setup.fields, setup.interaction, setup.P0),
+        source=lambda key: _source(sc, key))
 
 
 def predictions(setup: Setup) -> dict:
@@ -681,7 +524,7 @@ def derived(setup: Setup) -> dict:
         # per species faces and weights in two orientations (24) and pivots (32), unit
         # weights (8), habitat (4), start and output buffers: ~180 B; plus ~250 MB for
         # Python and the libraries (measured: benchmarks/run.py --only memory)
-        "memory_mb": memory_estimate_mb(cells),
+        "memory_mb": limits.memory_estimate_mb(cells),
         "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
         "snapshots": n_snap,
         "measures": [m.summary(g.cell_area_km2) for m in setup.measures],

@@ -293,7 +293,7 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
         scenario and input files must be unchanged).
     allow_large : bool
         Run even beyond the memory and step-count limits
-        (:func:`preyscape.assemble.check_limits`).
+        (:mod:`preyscape.limits`).
 
     Returns
     -------
