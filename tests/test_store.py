@@ -352,3 +352,18 @@ def test_distance_band_beyond_the_landscape_is_refused_by_its_name(run):
         with pytest.raises(InputError, match="larger than the landscape") as err:
             r.settings({"hotspot_distance": 1e6}, {"hotspot_distance": "--distance"})
         assert err.value.source == "--distance"
+
+
+def test_a_folder_that_appears_meanwhile_is_not_replaced(tmp_path):
+    # design requirement: without --overwrite nothing is replaced, even when another
+    # process creates the folder while this one writes
+    from preyscape.errors import InputError
+    from preyscape.store import output_folder
+
+    out = tmp_path / "out"
+    with pytest.raises(InputError, match="another process"), output_folder(out) as tmp:
+        (tmp / "new.txt").write_text("new")
+        out.mkdir()
+        (out / "theirs.txt").write_text("theirs")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+    assert [p.name for p in out.iterdir()] == ["theirs.txt"]

@@ -640,7 +640,7 @@ def _signals_held():
                 os.kill(os.getpid(), caught[0])
 
 
-def commit_folder(tmp: Path, out: Path) -> None:
+def commit_folder(tmp: Path, out: Path, overwrite: bool = True, what: str = "folder") -> None:
     """Move the finished folder ``tmp`` to ``out``, replacing an existing ``out``.
 
     An existing ``out`` is swapped with ``tmp`` in one atomic step where the
@@ -650,14 +650,26 @@ def commit_folder(tmp: Path, out: Path) -> None:
     first, or puts it back if ``out`` is missing. At every moment ``out`` is
     either the old folder or the complete new one. Ctrl-C and SIGTERM wait
     until the new folder is in place and the old one deleted.
+
+    Raises
+    ------
+    InputError
+        If ``out`` appeared while ``tmp`` was written (another process) and
+        ``overwrite`` is False; ``tmp`` is left for the caller to remove.
     """
     import shutil
+
+    from preyscape.errors import InputError
 
     aside = out.parent / f".{out.name}.replaced-{os.getpid()}"
     with _signals_held():
         if not out.exists():
             os.replace(tmp, out)
             return
+        if not overwrite:
+            raise InputError(f"the {what} was created by another process while this one was "
+                             "writing it; it was left as it is, and this result discarded",
+                             str(out))
         if _exchange(tmp, out):
             os.replace(tmp, aside)
         else:
@@ -723,7 +735,11 @@ def output_folder(out: str | Path, overwrite: bool = False,
         except BaseException:
             shutil.rmtree(tmp, ignore_errors=True)
             raise
-        commit_folder(tmp, out)
+        try:
+            commit_folder(tmp, out, overwrite, what)
+        except BaseException:
+            shutil.rmtree(tmp, ignore_errors=True)
+            raise
     finally:
         _ACTIVE.discard(tmp)
 
