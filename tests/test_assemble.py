@@ -259,7 +259,7 @@ def test_densities_that_overflow_end_in_a_message_and_leave_nothing(write_scenar
     path = write_scenario({"interaction.form": "lotka-volterra",
                            "interaction.handling_time": 0.0, "prey.growth": 120.0,
                            "start.prey": "uniform", "start.prey_density": 1e20,
-                           "start.releases": [], "run.years": 1.0, "run.save_every": 0.5})
+                           "start.releases": [], "run.years": 0.5, "run.save_every": 0.5})
     out = tmp_path / "runs" / "lv"
     with pytest.raises(InputError) as err:
         simulate(path, out, maps=False, progress=False)

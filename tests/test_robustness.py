@@ -423,7 +423,7 @@ TABLE = [
     ("blow-up-lotka-volterra", run_scenario({
         "interaction.form": "lotka-volterra", "interaction.handling_time": 0.0,
         "prey.growth": 120.0, "start.prey": "uniform", "start.prey_density": 1e20,
-        "start.releases": [], "run.years": 1.0, "run.save_every": 0.5}),
+        "start.releases": [], "run.years": 0.5, "run.save_every": 0.5}),
      ["{scenario}", "stopped being finite", "lotka-volterra"]),
     # --- rasters
     ("raster-missing", run_scenario({"landscape.habitat": "gone.tif"}),
