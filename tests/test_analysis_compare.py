@@ -67,7 +67,7 @@ def write_run(folder: Path, prey, pred, times=TIMES, grid: Grid | None = None,
     w.close()
     (folder / "run.json").write_text(json.dumps(
         {"title": title, "species": {"prey": "bank vole", "predator": "stoat"},
-         "variant": variant, "classes": {"1": "meadow", "2": "scrub"}}))
+         "variant": variant or folder.name, "classes": {"1": "meadow", "2": "scrub"}}))
     return folder
 
 

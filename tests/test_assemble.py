@@ -1,4 +1,5 @@
-"""Tests for preyscape.assemble: the initial state, derived numbers, the step."""
+"""Tests for preyscape.assemble and preyscape.preview: the initial state, the step, and the
+numbers derived before a run (what check prints)."""
 
 from __future__ import annotations
 
@@ -23,8 +24,9 @@ from conftest import (
     habitat_array,
 )
 
-from preyscape.assemble import derived, prepare
+from preyscape.assemble import prepare
 from preyscape.errors import InputError
+from preyscape.preview import derived
 from preyscape.runfolder import simulate
 from preyscape.scenario import load_scenario
 
@@ -218,3 +220,77 @@ def test_derived_landscape_predictions_worked_by_hand(setup):
     # and along columns ((22 + 23 + 16 * 24)/18 = 23.83 cells) of 100 m
     assert rows[1]["patch_km"] == pytest.approx(0.1 * 429 / 18)
     assert land["constants"]["capacity"] == CAPACITY and land["measures_included"] is False
+# ---------------------------------------------------------------------------
+# limits checked before a run (design requirements; estimates from docs/performance.md)
+# ---------------------------------------------------------------------------
+def test_memory_beyond_what_is_available_is_refused_with_a_cell_size_that_fits(
+        write_scenario):
+    from preyscape.limits import check_memory, memory_estimate_mb
+
+    sc = load_scenario(write_scenario({"landscape.cell_size": 10.0}))  # 100 x the cells
+    cells = SHAPE[0] * SHAPE[1] * 100
+    check_memory(sc, available=memory_estimate_mb(cells) + 1.0)  # fits
+    with pytest.raises(InputError) as err:
+        check_memory(sc, available=250.0 + cells * 180 / 1e6 / 10)  # a tenth of the grid fits
+    text = str(err.value)
+    assert "landscape.cell_size" in text and "--allow-large" in text
+    size = float(text.split("a cell size of ")[1].split(" m")[0])
+    # a grid of a tenth of the cells fits: cells √10 times larger, plus a margin
+    assert 10.0 * math.sqrt(10) <= size <= 1.2 * 10.0 * math.sqrt(10)
+
+
+def test_memory_limit_applies_before_the_raster_is_read(write_scenario, monkeypatch):
+    import preyscape.landscape.io as io
+
+    def never(*a, **k):
+        raise AssertionError("the raster was read")
+
+    monkeypatch.setattr(io, "read_habitat", never)
+    path = write_scenario({"landscape.cell_size": 0.01})  # 7.2e10 cells
+    with pytest.raises(InputError, match="landscape.cell_size"):
+        prepare(load_scenario(path))
+
+
+def test_absurd_step_counts_are_refused_with_their_cause(write_scenario):
+    from preyscape.limits import MAX_STEPS
+
+    sc = load_scenario(write_scenario({"run.step": 1e-7}))
+    with pytest.raises(InputError) as err:
+        prepare(sc)
+    assert "run.step" in str(err.value) and "5,000,000 steps" in str(err.value)
+    assert round(0.5 / prepare(sc, allow_large=True).dt) > MAX_STEPS  # allowed when asked
+    sc = load_scenario(write_scenario({"prey.growth": 1e6}))
+    with pytest.raises(InputError, match="set by prey.growth"):
+        prepare(sc)
+
+
+def test_a_value_times_its_multiplier_beyond_float32_is_refused(write_scenario):
+    path = write_scenario({"prey.capacity": 1e30, "landscape.classes.1.prey_capacity": 10.0})
+    with pytest.raises(InputError, match="prey.capacity: this value times its habitat"):
+        prepare(load_scenario(path))
+
+
+def test_a_start_beyond_what_a_run_holds_is_refused(write_scenario, tmp_path):
+    from conftest import utm_grid
+
+    from preyscape.landscape.io import write_geotiff
+
+    write_geotiff(tmp_path / "dense.tif", utm_grid(), np.full(SHAPE, 1e35, np.float32))
+    path = write_scenario({"start.prey": "raster", "start.prey_raster": "dense.tif"})
+    with pytest.raises(InputError, match="start: the start gives prey densities up to"):
+        prepare(load_scenario(path))
+
+
+def test_densities_that_overflow_end_in_a_message_and_leave_nothing(write_scenario,
+                                                                   tmp_path):
+    # prey-only Lotka-Volterra: N0 e^{rt} passes 3.4e38 (float32) at t = ln(3.4e18)/120
+    path = write_scenario({"interaction.form": "lotka-volterra",
+                           "interaction.handling_time": 0.0, "prey.growth": 120.0,
+                           "start.prey": "uniform", "start.prey_density": 1e20,
+                           "start.releases": [], "run.years": 0.5, "run.save_every": 0.5})
+    out = tmp_path / "runs" / "lv"
+    with pytest.raises(InputError) as err:
+        simulate(path, out, maps=False, progress=False)
+    assert "stopped being finite at t = 0.5 yr" in str(err.value)
+    assert "lotka-volterra" in str(err.value)
+    assert not out.exists() and list(out.parent.iterdir()) == []

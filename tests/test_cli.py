@@ -507,3 +507,37 @@ def test_analysis_command_refuses_an_existing_out(variant_runs, command, tmp_pat
     else:
         assert [p.name for p in out.iterdir()] == ["keep.txt"]
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+
+
+def test_check_json_is_standard_json_with_null(write_scenario, capsys):
+    # design requirement: NaN and Infinity are not JSON; an equilibrium that does not
+    # exist (predators cannot persist: mortality above their gain at capacity) is null
+    path = write_scenario({"predator.mortality": 50.0})
+    assert main(["check", str(path), "--json"]) == 0
+
+    def refuse(token):
+        raise AssertionError(f"non-standard JSON token {token}")
+
+    d = json.loads(capsys.readouterr().out, parse_constant=refuse)
+    assert None in d["equilibrium"]
+
+
+def test_sigterm_ends_a_command_like_ctrl_c(scenario_path, tmp_path, capsys, monkeypatch):
+    # design requirement: SIGTERM gives a message and exit status 143 (128 + 15)
+    import os
+    import signal
+
+    import preyscape.runfolder as rf
+
+    def stopped(*args, **kwargs):
+        os.kill(os.getpid(), signal.SIGTERM)
+        return real(*args, **kwargs)
+
+    real = rf.prepare
+    monkeypatch.setattr(rf, "prepare", stopped)
+    out = tmp_path / "runs" / "stopped"
+    status = main(["run", str(scenario_path), "--out", str(out), "--quiet"])
+    err = capsys.readouterr().err
+    assert status == 143 and err.startswith("preyscape: interrupted (SIGTERM): ")
+    assert "Traceback" not in err and not (tmp_path / "runs").exists()
+    assert signal.getsignal(signal.SIGTERM) is signal.SIG_DFL  # restored afterwards

@@ -23,8 +23,9 @@ RANK = {
     "scenario": 1, "landscape": 1,
     "model": 2,
     "solve": 3,
-    "store": 4,
+    "store": 4, "limits": 4,
     "assemble": 5, "plots": 5, "starter": 5,
+    "preview": 6,
     "analysis": 6,
     "runfolder": 7,
     "report": 8,
@@ -32,7 +33,7 @@ RANK = {
     "cli": 10, "__main__": 11,
 }
 
-SIZE_CHECKED = ("analysis", "assemble", "runfolder", "report")
+SIZE_CHECKED = ("analysis", "assemble", "preview", "runfolder", "report")
 MAX_MODULE_LINES = 600
 MAX_FUNCTION_LINES = 80
 

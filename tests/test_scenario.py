@@ -289,3 +289,50 @@ def test_analysis_settings(write_scenario):
     text = load_error(write_scenario({"analysis": {"transects": [{"name": "t",
                                                                   "points": [[1.0, 2.0]]}]}}))
     assert "analysis.transects[0].points" in text
+
+
+REFUGE = {"name": "fen", "kind": "refuge", "raster": "habitat.tif", "protected_fraction": 0.5}
+
+
+@pytest.mark.parametrize("key", ["baseline", "closed_to_predators"])
+@pytest.mark.parametrize("value", ["yes", "true", 1, 0])
+def test_booleans_are_strict(write_scenario, key, value):
+    # design requirement: like numbers, booleans are not guessed from text or integers
+    path = write_scenario({"measures": [{**REFUGE, key: value}]})
+    text = load_error(path)
+    assert f"measures[0].{key}" in text and "boolean" in text
+
+
+def test_real_booleans_are_accepted(write_scenario):
+    sc = load_scenario(write_scenario({"measures": [{**REFUGE, "baseline": False,
+                                                     "closed_to_predators": True}]}))
+    assert sc.measures[0].baseline is False and sc.measures[0].closed_to_predators is True
+
+
+@pytest.mark.parametrize("key,value", [("prey.capacity", 1e300), ("prey.capacity", 1e31),
+                                       ("prey.growth", 1e-40), ("predator.diffusivity", 1e35),
+                                       ("landscape.classes.1.prey_capacity", 1e-38)])
+def test_values_beyond_32_bit_fields_are_refused_with_the_range(write_scenario, key, value):
+    # design requirement: per-cell fields are float32 (IEEE 754 single: up to 3.4e38,
+    # normal down to 1.2e-38); values that would overflow or vanish are refused
+    path = write_scenario({key: value})
+    text = load_error(path)
+    assert "between 1e-30 and 1e+30" in text
+    where = key.replace(".1.", "[1].")
+    assert where in text
+
+
+def test_zero_and_the_ends_of_the_range_are_accepted(write_scenario):
+    sc = load_scenario(write_scenario({"landscape.classes.1.prey_capacity": 0.0,
+                                       "prey.capacity": 1e30, "prey.growth": 1e-30}))
+    assert sc.prey.capacity == 1e30 and sc.landscape.classes[1].prey_capacity == 0.0
+
+
+def test_negative_seed_is_refused(write_scenario):
+    assert "run.seed" in load_error(write_scenario({"run.seed": -3}))
+
+
+def test_a_folder_for_a_file_is_named_as_such(write_scenario, tmp_path):
+    (tmp_path / "maps").mkdir()
+    text = load_error(write_scenario({"landscape.habitat": "maps"}))
+    assert "landscape.habitat" in text and "'maps' is a folder" in text

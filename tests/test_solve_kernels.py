@@ -125,3 +125,24 @@ def test_reaction_step_against_scipy_one_step_error():
                         [2.0, 1.0], method="DOP853", rtol=1e-13, atol=1e-15).y[:, -1]
         errs.append(abs(N[0, 0] - ref[0]) + abs(P[0, 0] - ref[1]))
     assert 20 < errs[0] / errs[1] < 45
+
+
+def test_log_fall_back_keeps_absent_predators_at_zero_when_the_exponent_overflows():
+    # a prey-only Lotka-Volterra cell with prey near 2e8 per km²: the predators' per-capita
+    # rate e a N - m = 5e5 /yr times the step is far past exp's range (709), and 0 * inf
+    # would be NaN; absent predators stay absent and prey grow exactly as dN/dt = rN
+    # (exact solution N0 e^{r t}, textbook), since RK4 on logs is exact for constant rates
+    f4 = np.float32
+    N = np.array([[2e8, 2e8]])
+    P = np.array([[0.0, 0.0]])
+    r = np.full((1, 2), 2.0, dtype=f4)
+    kernels.react(N, P, 0.02, 1, r, np.zeros((1, 2), f4), np.ones((1, 2), f4),
+                  0.25, 0.0, 0.0, 0.01, np.zeros((1, 1), f4))
+    assert np.all(P == 0.0)
+    assert N == pytest.approx(np.full((1, 2), 2e8 * np.exp(2.0 * 0.02)), rel=1e-12)
+    # the same with substeps (nsub > 1: RK4 on logs throughout)
+    N = np.array([[2e8]])
+    P = np.array([[0.0]])
+    kernels.react(N, P, 0.02, 4, r[:, :1], np.zeros((1, 1), f4), np.ones((1, 1), f4),
+                  0.25, 0.0, 0.0, 0.01, np.zeros((1, 1), f4))
+    assert P[0, 0] == 0.0 and N[0, 0] == pytest.approx(2e8 * np.exp(0.04), rel=1e-12)

@@ -123,3 +123,35 @@ def test_epochs_resume_bitwise_and_restart_damped():
     with pytest.raises(ValueError):
         integrate_epochs(make, [(0.0, 0.5), (0.75, 2.0)], *_start(), 0.25, 0.05, Keep(),
                          progress=False)
+
+
+class _Blowing:
+    """A stand-in stepper whose densities go bad in the second save interval."""
+
+    def __init__(self, how):
+        from preyscape.solve.stepper import StepStats
+
+        self.dt, self.how, self.stats = 0.05, how, StepStats()
+
+    def advance(self, N, P, index, n):
+        if index >= 5:
+            if self.how == "inf":
+                N[0, 0] = np.inf
+            elif self.how == "float32":
+                P[0, 0] = 1e39  # finite, but beyond what a float32 snapshot holds
+            else:  # a NaN the positivity fix met: the field is zeros, the clip total NaN
+                self.stats.clipped = np.nan
+
+
+@pytest.mark.parametrize("how,species", [("inf", "prey"), ("float32", "predator"),
+                                         ("clip", "prey or predator")])
+def test_densities_that_stop_being_finite_are_reported(how, species):
+    # design requirement: a run never continues (or ends) silently on non-finite densities
+    from preyscape.solve.run import NonFiniteDensities
+
+    N, P = _start()
+    sink = Keep()
+    with pytest.raises(NonFiniteDensities) as err:
+        integrate(_Blowing(how), N, P, 1.0, 0.25, sink, progress=False)
+    assert err.value.species == species and err.value.time == 0.5
+    assert sink.times == [0.0, 0.25]  # the bad snapshot was not stored

@@ -185,3 +185,185 @@ def test_final_geotiff_and_checkpoint_hold_last_state(run, results):
     ok = np.isfinite(last)
     np.testing.assert_array_equal(P[ok].astype(np.float32), last[ok])
     assert N.dtype == np.float64
+
+
+# ---------------------------------------------------------------------------
+# output paths, atomic replacement, stale temporary folders (design requirements)
+# ---------------------------------------------------------------------------
+def ended_pid() -> int:
+    """The id of a process that has ended."""
+    import subprocess
+    import sys
+
+    p = subprocess.Popen([sys.executable, "-c", "pass"])
+    p.wait()
+    return p.pid
+
+
+def test_check_output_refuses_before_creating_anything(tmp_path):
+    from pathlib import Path
+
+    from preyscape.errors import InputError
+    from preyscape.store import check_output
+
+    (tmp_path / "f").write_text("x")
+    (tmp_path / "d").mkdir()
+    check_output(tmp_path / "new" / "deeper")  # fine, and nothing is created
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["d", "f"]
+    with pytest.raises(FileProblem, match="is a file, not a folder"):
+        check_output(tmp_path / "f" / "out")
+    for overwrite in (False, True):
+        with pytest.raises(FileProblem, match="not a folder"):
+            check_output(tmp_path / "f", overwrite)
+        with pytest.raises(FileProblem, match="is a folder"):
+            check_output(tmp_path / "d", overwrite, kind="file")
+    with pytest.raises(InputError, match="--overwrite"):
+        check_output(tmp_path / "d")
+    check_output(tmp_path / "d", True)
+    with pytest.raises(InputError, match="an input of this command"):
+        check_output(tmp_path / "d", True, protect=[tmp_path / "d" / "scenario.toml"])
+    with pytest.raises(InputError, match="current folder"):
+        check_output(Path.cwd(), True)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["d", "f"]
+
+
+def test_check_output_refuses_a_place_that_cannot_be_written(tmp_path):
+    import os
+    from pathlib import Path
+
+    from preyscape.store import check_output
+
+    if os.geteuid() == 0:  # root writes anywhere but in read-only system folders
+        place = Path("/sys/preyscape-test")
+    else:
+        place = tmp_path / "locked"
+        place.mkdir()
+        place.chmod(0o555)
+    try:
+        with pytest.raises(FileProblem, match="not writable"):
+            check_output(place / "out")
+    finally:
+        if place.is_relative_to(tmp_path):
+            place.chmod(0o755)
+
+
+@pytest.mark.parametrize("exchange", [True, False])
+def test_overwrite_replaces_the_whole_folder(tmp_path, monkeypatch, exchange):
+    import preyscape.store as store
+
+    if not exchange:  # a system without an atomic exchange: rename aside, rename in
+        monkeypatch.setattr(store, "_exchange", lambda a, b: False)
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "old.txt").write_text("old")
+    with store.output_folder(out, overwrite=True) as tmp:
+        (tmp / "new.txt").write_text("new")
+        assert (out / "old.txt").is_file()  # untouched until the new one is complete
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+    assert sorted(p.name for p in out.iterdir()) == ["new.txt"]
+
+
+def test_interrupted_block_keeps_its_folder_only_when_asked(tmp_path):
+    from preyscape.store import output_folder, partial_path
+
+    out = tmp_path / "out"
+    with pytest.raises(KeyboardInterrupt), output_folder(out, keep=lambda t: True) as tmp:
+        (tmp / "checkpoint.npz").write_bytes(b"x")
+        raise KeyboardInterrupt
+    assert [p.name for p in tmp_path.iterdir()] == [partial_path(out).name]
+    with pytest.raises(KeyboardInterrupt), output_folder(out) as tmp:
+        raise KeyboardInterrupt  # not kept; the stale one of before is removed first
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_stale_temporary_folders_are_removed_or_restored(tmp_path):
+    from preyscape.store import partial_path, remove_stale, stale_partials
+
+    out = tmp_path / "out"
+    import os
+
+    gone, alive = ended_pid(), os.getppid()
+    (partial_path(out, gone)).mkdir()
+    (partial_path(out, alive)).mkdir()  # a running process's: never touched
+    aside = tmp_path / f".out.replaced-{gone}"
+    aside.mkdir()
+    (aside / "run.json").write_text("{}")
+    assert stale_partials(out) == [partial_path(out, gone)]
+    remove_stale(out)  # out is missing: the folder set aside is the old one, put back
+    assert (out / "run.json").is_file()
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(
+        ["out", partial_path(out, alive).name])
+    aside.mkdir()
+    remove_stale(out)  # out exists: the old one set aside is deleted
+    assert not aside.exists() and (out / "run.json").is_file()
+
+
+def test_json_safe_writes_standard_json(tmp_path):
+    from preyscape.store import json_safe, write_json
+
+    rec = {"a": float("nan"), "b": [1.0, float("inf"), np.float32(2.5)], "c": (np.int64(3),)}
+    assert json_safe(rec) == {"a": None, "b": [1.0, None, 2.5], "c": [3]}
+    write_json(tmp_path / "r.json", rec)
+
+    def refuse(token):
+        raise AssertionError(f"non-standard JSON token {token}")
+
+    assert json.loads((tmp_path / "r.json").read_text(), parse_constant=refuse)["a"] is None
+
+
+def test_result_writer_reopen_continues_and_overwrites_later_snapshots(tmp_path):
+    grid = utm_grid()
+    w = ResultWriter(tmp_path / "r.nc", grid, {}, {"title": "t"})
+    ones = np.ones(grid.shape)
+    for k in range(3):
+        w.write(0.25 * k, ones * k, ones)
+    w.close()
+    w = ResultWriter.reopen(tmp_path / "r.nc", grid, 2)  # the third was after a checkpoint
+    w.write(0.5, ones * 7, ones)
+    w.write(0.75, ones * 8, ones)
+    w.close()
+    with xr.open_dataset(tmp_path / "r.nc", decode_times=False) as ds:
+        assert ds["time"].values.tolist() == [0.0, 0.25, 0.5, 0.75]
+        assert [float(ds["prey"][k].max()) for k in range(4)] == [0.0, 1.0, 7.0, 8.0]
+    with pytest.raises(OSError):
+        ResultWriter.reopen(tmp_path / "r.nc", grid, 9)
+
+
+def test_find_damage_names_the_damaged_folder(run, tmp_path):
+    import shutil
+
+    from preyscape.analysis.results import find_damage
+
+    bad = tmp_path / "bad"
+    shutil.copytree(run["out"], bad)
+    b = bytearray((bad / "results.nc").read_bytes())
+    b[len(b) // 2:len(b) // 2 + 2000] = bytes(2000)
+    (bad / "results.nc").write_bytes(bytes(b))
+    assert find_damage([run["out"]]) is None
+    problem = find_damage([run["out"], bad])
+    assert isinstance(problem, FileProblem) and problem.source == str(bad)
+
+
+def test_distance_band_beyond_the_landscape_is_refused_by_its_name(run):
+    from preyscape.errors import InputError
+
+    with open_run(run["out"]) as r:
+        assert r.settings({"hotspot_distance": 500.0}).hotspot_distance == 500.0
+        with pytest.raises(InputError, match="larger than the landscape") as err:
+            r.settings({"hotspot_distance": 1e6}, {"hotspot_distance": "--distance"})
+        assert err.value.source == "--distance"
+
+
+def test_a_folder_that_appears_meanwhile_is_not_replaced(tmp_path):
+    # design requirement: without --overwrite nothing is replaced, even when another
+    # process creates the folder while this one writes
+    from preyscape.errors import InputError
+    from preyscape.store import output_folder
+
+    out = tmp_path / "out"
+    with pytest.raises(InputError, match="another process"), output_folder(out) as tmp:
+        (tmp / "new.txt").write_text("new")
+        out.mkdir()
+        (out / "theirs.txt").write_text("theirs")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+    assert [p.name for p in out.iterdir()] == ["theirs.txt"]

@@ -17,7 +17,7 @@ _LAZY = {
     "simulate": "preyscape.runfolder",
     "simulate_variants": "preyscape.runfolder",
     "prepare": "preyscape.assemble",
-    "derived": "preyscape.assemble",
+    "derived": "preyscape.preview",
     "open_run": "preyscape.analysis.results",
     "compare": "preyscape.analysis.compare",
     "AnalysisSettings": "preyscape.analysis.settings",

@@ -16,7 +16,7 @@ Examples
 >>> setup = prepare(load_scenario(scenario_path))
 >>> setup.N0.shape == setup.grid.shape and setup.dt > 0
 True
->>> derived(setup)["prey_front_speed"] > 0
+>>> setup.epochs[0][:2] == (0.0, setup.scenario.run.years)
 True
 """
 
@@ -27,6 +27,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from preyscape import limits
 from preyscape.errors import InputError
 from preyscape.landscape.grid import Grid
 from preyscape.landscape.placed import PlacedMeasure, combine
@@ -39,12 +40,11 @@ from preyscape.model.fields import (
 )
 from preyscape.model.movement import Movement, build_movement
 from preyscape.model.reactions import Interaction
-from preyscape.scenario import MeasureSpec, Scenario
+from preyscape.scenario import LARGEST, MeasureSpec, Scenario
 from preyscape.solve.stepper import Stepper, StepStats, auto_step
 
-__all__ = ["Epoch", "Setup", "check_variant_measures", "derived", "epoch_state",
-           "fence_topology", "interaction_of", "landscape_predictions", "measure_epochs",
-           "place_measures", "place_targets", "prepare", "variant_fence_topology"]
+__all__ = ["Epoch", "Setup", "check_variant_measures", "epoch_state", "interaction_of",
+           "measure_epochs", "place_measures", "place_targets", "prepare"]
 
 Epoch = tuple[float, float, tuple[str, ...]]
 """``(t0, t1, names of the measures acting in [t0, t1))``, years."""
@@ -163,13 +163,17 @@ def _multipliers(sc: Scenario, grid: Grid, habitat: np.ndarray) -> tuple[dict, n
     return {k: np.asarray(v, dtype=np.float32) for k, v in mult.items()}, habitat
 
 
-def prepare(sc: Scenario) -> Setup:
+def prepare(sc: Scenario, *, allow_large: bool = False) -> Setup:
     """Load the landscape and build fields, operators and the initial state.
 
     Parameters
     ----------
     sc : Scenario
         A validated scenario (:func:`preyscape.scenario.load_scenario`).
+    allow_large : bool
+        Skip the limits: a memory estimate beyond the available memory
+        (checked from the raster's header, before reading it) and more than
+        :data:`~preyscape.limits.MAX_STEPS` steps (:mod:`preyscape.limits`).
 
     Returns
     -------
@@ -179,11 +183,14 @@ def prepare(sc: Scenario) -> Setup:
     ------
     InputError
         For unreadable rasters, habitat codes without a table row, release
-        points outside the landscape, or invalid initial densities.
+        points outside the landscape, invalid initial densities, per-cell
+        values beyond 32-bit floats, or a run beyond the limits.
     """
     from preyscape.landscape.io import read_habitat
 
     ls = sc.landscape
+    if not allow_large:
+        limits.check_memory(sc)
     grid, habitat = read_habitat(
         sc.resolve(ls.habitat), ls.values, ls.cell_size,
         source=_source(sc, f"landscape.habitat ({ls.habitat})"))
@@ -198,8 +205,11 @@ def prepare(sc: Scenario) -> Setup:
     fields, mv_n, mv_p, refuge = epoch_state(setup, epochs[0][2])
     N0, P0 = _initial_state(sc, grid, fields)
     dt = _step(sc, setup, fields, inter, P0)
-    return replace(setup, fields=fields, prey_movement=mv_n, predator_movement=mv_p,
-                   refuge=refuge, N0=N0, P0=P0, dt=dt)
+    setup = replace(setup, fields=fields, prey_movement=mv_n, predator_movement=mv_p,
+                    refuge=refuge, N0=N0, P0=P0, dt=dt)
+    if not allow_large:
+        _check_steps(setup)
+    return setup
 
 
 def _initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray, np.ndarray]:
@@ -243,6 +253,12 @@ def _initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray
         rng = np.random.default_rng(sc.run.seed)
         N0 *= 1.0 + st.noise * rng.uniform(-1, 1, N0.shape)
         P0 *= 1.0 + st.noise * rng.uniform(-1, 1, P0.shape)
+    for name, u in (("prey", N0), ("predator", P0)):
+        top = float(np.max(np.where(mask, u, 0.0)))
+        if not top <= LARGEST:
+            raise InputError(f"the start gives {name} densities up to {top:g} per km², beyond "
+                             f"what a run can hold (at most {LARGEST:g} per km²)",
+                             _source(sc, "start"))
     return (np.ascontiguousarray(np.where(mask, N0, 0.0)),
             np.ascontiguousarray(np.where(mask, P0, 0.0)))
 
@@ -384,17 +400,23 @@ def epoch_state(setup: Setup, names: tuple[str, ...]) -> tuple[
     """
     sc, grid = setup.scenario, setup.grid
     on = combine([m for m in setup.measures if m.name in names], setup.multipliers)
-    fields = build_fields(
-        on.multipliers, grid.mask, sc.prey.growth, sc.prey.capacity, sc.predator.mortality,
-        sc.prey.move_coefficient, sc.predator.move_coefficient, setup.interaction.logistic,
-    )
+    with np.errstate(over="ignore", invalid="ignore"):  # overflow is refused just below
+        fields = build_fields(
+            on.multipliers, grid.mask, sc.prey.growth, sc.prey.capacity,
+            sc.predator.mortality, sc.prey.move_coefficient, sc.predator.move_coefficient,
+            setup.interaction.logistic,
+        )
     ls = sc.landscape
-    mvs = [
-        build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge, ls.nodata,
-                       perm_x=on.permeability[sp][0], perm_y=on.permeability[sp][1])
-        for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
-                               ("predator", fields.predator_move, sc.predator))
-    ]
+    limits.check_fields(fields, lambda key: _source(sc, key))
+    with np.errstate(over="ignore", invalid="ignore"):
+        mvs = [
+            build_movement(coef, grid.mask, grid.dx, grid.dy, spec.movement, ls.edge,
+                           ls.nodata, perm_x=on.permeability[sp][0],
+                           perm_y=on.permeability[sp][1])
+            for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
+                                   ("predator", fields.predator_move, sc.predator))
+        ]
+    limits.check_movement(mvs, lambda key: _source(sc, key))
     return fields, mvs[0], mvs[1], on.refuge
 
 
@@ -406,164 +428,42 @@ def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
             "D_N": sc.prey.move_coefficient, "D_P": sc.predator.move_coefficient}
 
 
-def _auto_dt(sc: Scenario, fields: Fields, inter: Interaction, P0: np.ndarray) -> float:
+def _rates(sc: Scenario, fields: Fields, inter: Interaction,
+           P0: np.ndarray) -> tuple[dict[str, float], float | None]:
+    """The rates (1/yr) and local period (yr) the automatic step follows, by what sets them."""
     b = _best(sc, fields)
     K_arg = b["K"] if inter.logistic else None
     n_eq, p_eq = theory.equilibrium(inter, b["r"], K_arg, b["m"])
     p_scale = max(float(P0.max()), p_eq if math.isfinite(p_eq) else 0.0)
     K = b["K"] if math.isfinite(b["K"]) else 0.0
-    rates = [
-        float(np.abs(fields.r).max()),
-        float(fields.m.max()),
-        inter.attack_rate * p_scale,  # per-capita predation on rare prey
-        theory.predator_growth_at_capacity(inter, K, 0.0),  # predator gain at capacity
-    ]
-    period = theory.local_stability(inter, b["r"], K_arg, b["m"])["period"]
-    return auto_step(rates, period, sc.run.save_every)
-
-
-def predictions(setup: Setup) -> dict:
-    """The published predictions a report sets results against (from :func:`derived`)."""
-    d = derived(setup)
-    keys = ("equilibrium", "stable", "period_years", "hopf_capacity", "lv_period_years",
-            "prey_front_speed", "predator_front_speed", "best_habitat")
-    out = {k: d[k] for k in keys}
-    out["equilibrium"] = [None if not math.isfinite(v) else v for v in out["equilibrium"]]
-    out["predator_growth_at_capacity"] = d["predator_growth_at_capacity"]
-    sc = setup.scenario
-    out["growth"] = sc.prey.growth
-    out["prey_movement"] = sc.prey.move_coefficient
-    out["predator_movement"] = sc.predator.move_coefficient
-    out["landscape"] = d["landscape"]
-    return out
-
-
-def landscape_predictions(setup: Setup) -> dict:
-    """Predictions for the landscape as it is: growth per class, speeds of the mix.
-
-    The habitat classes (or suitability bands) before measures, through
-    :func:`preyscape.model.landscape_theory.landscape_prediction`; JSON values
-    (:func:`~preyscape.model.landscape_theory.prediction_record`) plus the
-    constants that rebuild per-cell growth along a transect.
-    """
-    from preyscape.model import landscape_theory as lt
-
-    sc, g, inter = setup.scenario, setup.grid, setup.interaction
-    ls = sc.landscape
-    table = ({c.code: c.model_dump() for c in ls.classes} if ls.values == "classes" else None)
-    classes = lt.map_classes(setup.habitat, g.mask, g.dx, g.dy, table,
-                             {c.code: c.name or str(c.code) for c in ls.classes})
-    K = sc.prey.capacity if inter.logistic else None
-    pred = lt.landscape_prediction(
-        inter, sc.prey.growth, K, sc.predator.mortality, sc.prey.move_coefficient,
-        sc.predator.move_coefficient, classes.multipliers, classes.cells,
-        prey_kind=sc.prey.movement, predator_kind=sc.predator.movement,
-        patch_length_km=classes.patch_km, names=classes.names)
-    rec = lt.prediction_record(pred, classes)
-    smooth = lt.prey_spread_ratio(pred.growth.prey.growth, sc.prey.move_coefficient
-                                  * classes.multipliers["prey_movement"], classes.patch_km,
-                                  classes.shares)
-    rec["predator"]["prey_spread_ratio"] = smooth
-    rec["predator"]["prey_smoothed"] = bool(smooth > lt.PREY_SMOOTHING)
-    rec["constants"] = {
-        "form": inter.form, "attack_rate": inter.attack_rate, "handling_time": inter.h,
-        "efficiency": inter.efficiency, "interference": inter.c, "growth": sc.prey.growth,
-        "capacity": K, "mortality": sc.predator.mortality,
-        "prey_move": sc.prey.move_coefficient, "predator_move": sc.predator.move_coefficient,
-        "prey_kind": sc.prey.movement, "predator_kind": sc.predator.movement}
-    rec["measures_included"] = False
-    return rec
-
-
-def derived(setup: Setup) -> dict:
-    """Numbers that describe a scenario before it runs (printed by ``check``).
-
-    Returns a dict with the grid, the step, per-species movement numbers
-    (cells crossed per step), best-habitat equilibria and stability, the
-    Rosenzweig–MacArthur Hopf capacity, predicted front speeds, critical patch
-    sizes, and estimates of memory and disk use.
-    """
-    sc, g, inter = setup.scenario, setup.grid, setup.interaction
-    b = _best(sc, setup.fields)
-    K_arg = b["K"] if inter.logistic else None
-    stab = theory.local_stability(inter, b["r"], K_arg, b["m"])
-    n_snap = round(sc.run.years / sc.run.save_every) + 1
-    h_km2 = (min(g.dx, g.dy) / 1000.0) ** 2
-    cells = g.ny * g.nx
-    growth_P = (theory.predator_growth_at_capacity(inter, b["K"], b["m"])
-                if math.isfinite(b["K"]) else None)
-    return {
-        "grid": {
-            "rows": g.ny, "cols": g.nx, "cells_with_data": g.n_cells,
-            "cell_size_m": (g.dx, g.dy), "extent_km": (g.width_m / 1e3, g.height_m / 1e3),
-        },
-        "step_years": setup.dt,
-        "steps": round(sc.run.years / setup.dt),
-        "scheme": sc.run.scheme,
-        "movement_per_step": {"prey": b["D_N"] * setup.dt / h_km2,
-                              "predator": b["D_P"] * setup.dt / h_km2},
-        "best_habitat": b,
-        "equilibrium": stab["equilibrium"],
-        "stable": stab["stable"],
-        "period_years": stab["period"],
-        "hopf_capacity": theory.hopf_capacity(inter, b["m"]) if inter.h > 0 else None,
-        "lv_period_years": theory.lv_period(b["r"], b["m"]),
-        "prey_front_speed": theory.fisher_speed(b["r"], b["D_N"]),
-        "predator_front_speed": theory.predator_speed(inter, b["K"], b["m"], b["D_P"]),
-        "predator_growth_at_capacity": growth_P,
-        "critical_patch_prey": theory.critical_patch(b["r"], b["D_N"]),
-        "critical_patch_predator": theory.critical_patch(
-            growth_P if growth_P is not None else math.nan, b["D_P"]),
-        # per cell during the run: state and transposed work (32 B), reaction fields (12),
-        # per species faces and weights in two orientations (24) and pivots (32), unit
-        # weights (8), habitat (4), start and output buffers: ~180 B; plus ~250 MB for
-        # Python and the libraries (measured: benchmarks/run.py --only memory)
-        "memory_mb": 250 + cells * 180 / 1e6,
-        "disk_mb": n_snap * cells * 2 * 4 / 1e6,  # float32 snapshots before compression
-        "snapshots": n_snap,
-        "measures": [m.summary(g.cell_area_km2) for m in setup.measures],
-        "fence_topology": fence_topology(sc, g, setup.measures),
-        "landscape": landscape_predictions(setup),
-        "variants": [
-            {"name": v.name, "add": list(v.add), "remove": list(v.remove), "set": dict(v.set)}
-            for v in sc.variants
-        ],
+    rates = {
+        "prey.growth (times its largest multiplier)": float(np.abs(fields.r).max()),
+        "predator.mortality (times its largest multiplier)": float(fields.m.max()),
+        # per-capita predation on rare prey
+        "interaction.attack_rate times the predator density": inter.attack_rate * p_scale,
+        # predator gain at capacity
+        "the predators' growth on prey at capacity (interaction.efficiency, attack_rate, "
+        "prey.capacity)": theory.predator_growth_at_capacity(inter, K, 0.0),
     }
+    period = theory.local_stability(inter, b["r"], K_arg, b["m"])["period"]
+    return rates, period
 
 
-def fence_topology(sc: Scenario, grid: Grid, measures) -> list[dict]:
-    """Length, open ends and separation of each fence and closed refuge outline.
-
-    See :func:`preyscape.landscape.topology.measure_topologies`; the warnings
-    name the species as the scenario does.
-    """
-    from preyscape.landscape.topology import measure_topologies
-
-    who = {"prey": "prey", "predator": "predators"}
-    for sp, spec in (("prey", sc.prey), ("predator", sc.predator)):
-        who[sp] += f" ({spec.name})" if spec.name else ""
-    return measure_topologies(grid, measures, who)
+def _auto_dt(sc: Scenario, fields: Fields, inter: Interaction, P0: np.ndarray) -> float:
+    rates, period = _rates(sc, fields, inter, P0)
+    return auto_step(list(rates.values()), period, sc.run.save_every)
 
 
-def variant_fence_topology(scenarios: list[Scenario]) -> dict[str, list[dict]]:
-    """:func:`fence_topology` of every variant's measures, before any run.
-
-    Returns variant name to its records; variants without fences or closed
-    refuges are left out.
-    """
-    from preyscape.landscape.io import read_habitat
-
-    if not scenarios:
-        return {}
-    ls = scenarios[0].landscape
-    grid, _ = read_habitat(scenarios[0].resolve(ls.habitat), ls.values, ls.cell_size,
-                           source=_source(scenarios[0], f"landscape.habitat ({ls.habitat})"))
-    out = {}
-    for v in scenarios:
-        recs = fence_topology(v, grid, place_measures(v, grid))
-        if recs:
-            out[v.variant] = recs
-    return out
+def _check_steps(setup: Setup) -> None:
+    """Refuse an absurd number of steps (:func:`preyscape.limits.check_steps`)."""
+    sc = setup.scenario
+    explicit = (max(setup.prey_movement.max_rate, setup.predator_movement.max_rate)
+                if sc.run.scheme == "explicit" else None)
+    limits.check_steps(
+        years=sc.run.years, dt=setup.dt, step=sc.run.step, save_every=sc.run.save_every,
+        cells=setup.grid.ny * setup.grid.nx, explicit_rate=explicit,
+        rates=lambda: _rates(sc, setup.fields, setup.interaction, setup.P0),
+        source=lambda key: _source(sc, key))
 
 
 def check_variant_measures(scenarios: list[Scenario]) -> list[dict]:

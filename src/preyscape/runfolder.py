@@ -16,31 +16,62 @@ Examples
 ...                             progress=False)
 >>> sorted(folders)
 ['baseline', 'fenced', 'no-refuge']
+
+A run stopped by Ctrl-C or SIGTERM after its first save point keeps its
+temporary folder with the checkpoint; ``resume=True`` continues it (and, for
+variants, keeps the ones finished before):
+
+>>> interrupted_run(out_folder / "runs" / "baseline") is None
+True
+>>> again = simulate_variants(scenario_path, out_folder / "runs", maps=False,
+...                           progress=False, resume=True)  # all finished: nothing to run
+>>> again == folders
+True
 """
 
 from __future__ import annotations
 
+import json
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
 
 from preyscape import __version__, store
-from preyscape.assemble import (
-    Setup,
-    check_variant_measures,
-    fence_topology,
-    place_targets,
-    predictions,
-    prepare,
-)
+from preyscape.assemble import Setup, check_variant_measures, place_targets, prepare
+from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
 from preyscape.landscape.placed import Outline, PlacedMeasure
 from preyscape.names import slug
+from preyscape.preview import fence_topology, predictions
 from preyscape.scenario import Scenario, load_scenario
+from preyscape.solve.run import NonFiniteDensities, schedule
 from preyscape.solve.stepper import Stepper, StepStats
 
-__all__ = ["plan_variants", "simulate", "simulate_variants"]
+__all__ = ["RunInterrupted", "interrupted_run", "plan_variants", "simulate",
+           "simulate_variants"]
+
+PARTIAL_RECORD = "partial.json"
+"""What an interrupted run folder was made from (removed when the run completes)."""
+
+
+class RunInterrupted(KeyboardInterrupt):
+    """A run stopped by Ctrl-C or SIGTERM; its message says what was kept.
+
+    Attributes
+    ----------
+    kept : pathlib.Path or None
+        The temporary folder kept for :func:`simulate` with ``resume=True``.
+    resumable : bool
+        Whether ``resume=True`` would save work (a kept folder, or finished variants).
+    """
+
+    def __init__(self, message: str, kept: Path | None = None,
+                 resumable: bool | None = None) -> None:
+        super().__init__(message)
+        self.kept = kept
+        self.resumable = kept is not None if resumable is None else resumable
 
 
 def _return_freed_memory() -> None:
@@ -59,18 +90,28 @@ def _return_freed_memory() -> None:
 
 
 class _FolderSink:
-    """Where the run loop puts snapshots (``results.nc``) and checkpoints."""
+    """Where the run loop puts snapshots (``results.nc``) and checkpoints.
 
-    def __init__(self, writer, folder: Path, dt: float) -> None:
+    A checkpoint also records what a resumed run needs to finish exactly as
+    an uninterrupted one would: the step, the positivity clip total so far,
+    the time reached and the wall time spent.
+    """
+
+    def __init__(self, writer, folder: Path, dt: float, stats: StepStats,
+                 clock: Callable[[], float]) -> None:
         self.writer = writer
         self.folder = folder
         self.dt = dt
+        self.stats = stats
+        self.clock = clock
 
     def write(self, t, N, P):
         self.writer.write(t, N, P)
 
     def checkpoint(self, step, N, P):
-        store.save_checkpoint(self.folder / "checkpoint.npz", step, N, P, {"dt": self.dt})
+        store.save_checkpoint(self.folder / "checkpoint.npz", step, N, P,
+                              {"dt": self.dt, "clipped": self.stats.clipped,
+                               "years": step * self.dt, "elapsed_s": self.clock()})
 
 
 def _outline(m: PlacedMeasure) -> Outline:
@@ -99,26 +140,26 @@ def _write_targets(tmp: Path, sc: Scenario, grid: Grid) -> list[dict]:
     return targets
 
 
-def _integrate(tmp: Path, setup: Setup, N: np.ndarray, P: np.ndarray, writer,
-               stats: StepStats, progress) -> None:
-    """Run every epoch from ``N``, ``P`` (advanced in place), saving snapshots,
-    checkpoints and each epoch's operators."""
+def _integrate(tmp: Path, setup: Setup, N: np.ndarray, P: np.ndarray, sink: _FolderSink,
+               progress, start_step: int = 0) -> None:
+    """Run every epoch from ``N``, ``P`` (advanced in place) from ``start_step``,
+    saving snapshots, checkpoints and each epoch's operators."""
     from preyscape.solve.run import integrate_epochs
 
     epochs = setup.epochs
 
     def make_stepper(k: int) -> Stepper:
-        st = setup.epoch_stepper(k, stats)
+        st = setup.epoch_stepper(k, sink.stats)
         store.save_operators(tmp / "operators" / f"epoch_{k}.npz", epochs[k][:2],
                              st.prey_movement, st.predator_movement)
         return st
 
     try:
         integrate_epochs(make_stepper, [e[:2] for e in epochs], N, P,
-                         setup.scenario.run.save_every, setup.dt,
-                         _FolderSink(writer, tmp, setup.dt), progress=progress)
+                         setup.scenario.run.save_every, setup.dt, sink, start_step,
+                         progress=progress)
     finally:
-        writer.close()
+        sink.writer.close()
 
 
 def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_snapshots: int,
@@ -158,13 +199,78 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
     }
 
 
+def _resumable(folder: Path) -> bool:
+    """Whether a temporary run folder can be continued (checkpoint, no run record yet)."""
+    return ((folder / "checkpoint.npz").is_file() and (folder / PARTIAL_RECORD).is_file()
+            and not (folder / "run.json").exists())
+
+
+def interrupted_run(out: str | Path) -> Path | None:
+    """The kept temporary folder of an interrupted run into ``out``, or None.
+
+    Newest first, when there are several (see :func:`preyscape.store.stale_partials`).
+    """
+    return next((p for p in store.stale_partials(out) if _resumable(p)), None)
+
+
+def _reached(folder: Path) -> float:
+    """Years reached by the checkpoint of ``folder`` (NaN if unreadable)."""
+    try:
+        with np.load(folder / "checkpoint.npz") as z:
+            return float(json.loads(str(z["extra"])).get("years", np.nan))
+    except (OSError, ValueError, KeyError):
+        return float("nan")
+
+
+def _partial_to_continue(sc: Scenario, out: Path, *, overwrite: bool,
+                         resume: bool) -> Path | None:
+    """The interrupted run of ``out`` to continue, after checking it may be continued.
+
+    Raises
+    ------
+    InputError
+        When an interrupted run is kept and neither ``resume`` nor
+        ``overwrite`` says what to do with it, or when it was made from
+        another version of the scenario or of its input files.
+    """
+    found = interrupted_run(out)
+    if found is None or (overwrite and not resume):
+        return None  # an unwanted one is removed with the other stale folders
+    if not resume:
+        raise InputError(
+            f"an interrupted run into this folder is kept in {found} (it reached t = "
+            f"{_reached(found):g} of {sc.run.years:g} yr); continue it with --resume, or "
+            "pass --overwrite to start again", str(out))
+    try:
+        made_from = json.loads((found / PARTIAL_RECORD).read_text()).get("scenario_sha256")
+    except (OSError, ValueError, AttributeError):
+        made_from = None
+    if made_from != sc.digest():
+        if overwrite:
+            return None
+        raise InputError(
+            f"the interrupted run kept in {found} was made from another version of the "
+            "scenario or of its input files, so it cannot be continued with this one; pass "
+            "--overwrite to start again", str(out))
+    return found
+
+
+def _inputs(sc: Scenario) -> list[Path]:
+    """The scenario file and the files it names (never deleted by --overwrite)."""
+    return [sc.path] + [sc.resolve(rel) for _, rel in sc.input_files()]
+
+
 def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: bool = False,
-             progress: bool | None = None, maps: bool = True) -> Path:
+             progress: bool | None = None, maps: bool = True, resume: bool = False,
+             allow_large: bool = False) -> Path:
     """Run a scenario into a run folder.
 
     The run is written to a temporary folder beside ``out`` and renamed to
     ``out`` only when complete, so an interrupted or failed run never leaves
-    a half-written run folder.
+    a half-written run folder. A run stopped by Ctrl-C or SIGTERM after its
+    first save point keeps the temporary folder with its checkpoint, which
+    ``resume=True`` continues to the same results, bitwise, as an
+    uninterrupted run.
 
     Parameters
     ----------
@@ -173,55 +279,146 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
     out : str or pathlib.Path
         The run folder to create.
     overwrite : bool
-        Replace an existing run folder (otherwise it is refused).
+        Replace an existing run folder (otherwise it is refused), and discard
+        an interrupted run kept for ``out``.
     progress : bool, optional
         Progress bar; default only on a terminal.
     maps : bool
         Draw PNG maps and the totals plot.
+    resume : bool
+        Continue the interrupted run kept for ``out``, if there is one (its
+        scenario and input files must be unchanged).
+    allow_large : bool
+        Run even beyond the memory and step-count limits
+        (:mod:`preyscape.limits`).
 
     Returns
     -------
     pathlib.Path
         The run folder.
-    """
-    from preyscape.solve.kernels import warm_up
 
+    Raises
+    ------
+    RunInterrupted
+        On Ctrl-C (or SIGTERM, when the command line turns it into Ctrl-C).
+    InputError
+        For bad input, and for densities that stop being finite (naming the
+        likely cause); nothing is left behind.
+    """
     _return_freed_memory()
     sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
     out = Path(out)
-    store.refuse_existing(out, overwrite, "run folder")  # before any work
-    setup = prepare(sc)
-    t0 = time.perf_counter()
-    with store.output_folder(out, overwrite, "run folder") as tmp:
-        warm_up()
-        compiled = time.perf_counter() - t0
-        grid, habitat = setup.grid, setup.habitat
+    store.check_output(out, overwrite, "run folder", protect=_inputs(sc))  # before any work
+    partial = _partial_to_continue(sc, out, overwrite=overwrite, resume=resume)
+    setup = prepare(sc, allow_large=allow_large)
+    started = time.time()
+    try:
+        with store.output_folder(out, overwrite, "run folder", adopt=partial, keep=_resumable,
+                                 protect=_inputs(sc)) as tmp:
+            _run_into(tmp, setup, progress=progress, maps=maps)
+    except KeyboardInterrupt:
+        kept = interrupted_run(out)
+        if kept is None and _finished_since(out, started):
+            raise RunInterrupted(f"{out}: the run had finished; its run folder is complete",
+                                 None, False) from None
+        if kept is None:
+            raise RunInterrupted(f"{out}: stopped before the first save point; nothing was "
+                                 "kept") from None
+        raise RunInterrupted(f"{out}: stopped at t = {_reached(kept):g} of {sc.run.years:g} "
+                             f"yr; the run so far is kept in {kept} and can be continued "
+                             "with --resume", kept) from None
+    except NonFiniteDensities as exc:
+        raise InputError(_blow_up(sc, setup.dt, exc), str(sc.path)) from None
+    return out
+
+
+def _finished_since(out: Path, started: float) -> bool:
+    """Whether ``out`` holds a run folder completed after ``started`` (seconds since epoch).
+
+    An interrupt that arrives while the finished folder is moved into place
+    is delivered just after (see :func:`preyscape.store.commit_folder`).
+    """
+    try:
+        return (out / "run.json").stat().st_mtime >= started - 1.0
+    except OSError:
+        return False
+
+
+def _blow_up(sc: Scenario, dt: float, exc: NonFiniteDensities) -> str:
+    """Why densities stopped being finite, in words."""
+    causes = []
+    if sc.interaction.form == "lotka-volterra":
+        causes.append("with form = 'lotka-volterra' prey grow without limit where predators "
+                      "are scarce (dN/dt = rN): use form = 'logistic-prey' with "
+                      "prey.capacity, or a shorter run.years")
+    if sc.run.step != "auto":
+        causes.append(f"the fixed step run.step = {dt:g} yr is too long for the rates: try "
+                      "step = 'auto'")
+    causes.append("extreme rates, capacities or start densities (prey.growth, prey.capacity, "
+                  "interaction.attack_rate, interaction.efficiency, [start])")
+    return (f"the {exc.species} densities stopped being finite at t = {exc.time:g} yr (they "
+            f"grew beyond {3.4e38:.3g} per km² or became undefined); likely cause: "
+            + "; or ".join(causes) + ". No run folder was written")
+
+
+def _start_state(tmp: Path, setup: Setup) -> tuple:
+    """``(writer, N, P, stats, step, elapsed)``: a new run, or the checkpoint of a kept one."""
+    sc, grid = setup.scenario, setup.grid
+    if not _resumable(tmp):
+        store.write_json(tmp / PARTIAL_RECORD, {
+            "scenario": str(sc.path), "variant": sc.variant, "scenario_sha256": sc.digest(),
+            "years": sc.run.years, "started": store.now_iso()})
         writer = store.ResultWriter(
             tmp / "results.nc", grid, {"prey": sc.prey.name, "predator": sc.predator.name},
             {"title": sc.title or sc.path.stem, "source": f"preyscape {__version__}",
              "scenario_sha256": sc.digest(), "history": f"{store.now_iso()} preyscape run"},
-            habitat=habitat,
+            habitat=setup.habitat,
         )
-        preds = predictions(setup)
-        topology = fence_topology(sc, grid, setup.measures)
-        measures = store.write_measures(tmp / "measures", grid, setup.measures)
-        outlines = [_outline(m) for m in setup.measures]
-        targets = _write_targets(tmp, sc, grid)
-        stats = StepStats()
-        N, P = setup.N0, setup.P0  # this setup is private to the run: no copies
-        dt, epochs = setup.dt, setup.epochs
-        setup = setup.without_build_arrays()  # memory: one copy of each field during the run
-        _integrate(tmp, setup, N, P, writer, stats, progress)
-        finals = {k: np.where(grid.mask, v, np.nan) for k, v in (("prey", N), ("predator", P))}
-        del N, P, setup  # free the run's arrays before the summaries
-        means = store.time_means(tmp / "results.nc", grid.mask)
-        store.write_summaries(tmp / "summary", grid, means, finals)
-        if maps:
-            draw_run_maps(tmp, sc, grid, habitat, means, finals, outlines)
-        record = _record(sc, grid, dt, epochs, stats, writer.n, measures, targets, preds,
-                         time.perf_counter() - t0, compiled, topology)
-        store.write_json(tmp / "run.json", record)
-    return out
+        return writer, setup.N0, setup.P0, StepStats(), 0, 0.0
+    try:
+        step, N, P, extra = store.load_checkpoint(tmp / "checkpoint.npz")
+        per_save = schedule(sc.run.years, sc.run.save_every, setup.dt)[1]
+        if extra.get("dt") != setup.dt or N.shape != grid.shape:
+            raise ValueError("its step or grid differs from this scenario's")
+        writer = store.ResultWriter.reopen(tmp / "results.nc", grid, step // per_save + 1)
+    except (OSError, ValueError, KeyError) as err:
+        raise FileProblem(f"the interrupted run kept for this folder cannot be continued "
+                          f"({err}), so it was discarded; run the scenario again to start "
+                          "from the beginning", str(tmp.parent / tmp.name.split(".partial-")[0][1:])
+                          ) from None
+    stats = StepStats(steps=step, clipped=float(extra.get("clipped", 0.0)))
+    return writer, N, P, stats, step, float(extra.get("elapsed_s", 0.0))
+
+
+def _run_into(tmp: Path, setup: Setup, *, progress, maps: bool) -> None:
+    """Run (or continue) ``setup`` in the temporary run folder ``tmp`` and write its files."""
+    from preyscape.solve.kernels import warm_up
+
+    t0 = time.perf_counter()
+    warm_up()
+    compiled = time.perf_counter() - t0
+    sc, grid, habitat = setup.scenario, setup.grid, setup.habitat
+    writer, N, P, stats, step, before = _start_state(tmp, setup)
+    preds = predictions(setup)
+    topology = fence_topology(sc, grid, setup.measures)
+    measures = store.write_measures(tmp / "measures", grid, setup.measures)
+    outlines = [_outline(m) for m in setup.measures]
+    targets = _write_targets(tmp, sc, grid)
+    dt, epochs = setup.dt, setup.epochs
+    setup = setup.without_build_arrays()  # memory: one copy of each field during the run
+    sink = _FolderSink(writer, tmp, dt, stats, lambda: before + time.perf_counter() - t0)
+    _integrate(tmp, setup, N, P, sink, progress, step)
+    finals = {k: np.where(grid.mask, v, np.nan) for k, v in (("prey", N), ("predator", P))}
+    del N, P, setup  # free the run's arrays before the summaries
+    means = store.time_means(tmp / "results.nc", grid.mask)
+    store.write_summaries(tmp / "summary", grid, means, finals)
+    if maps:
+        draw_run_maps(tmp, sc, grid, habitat, means, finals, outlines)
+    record = _record(sc, grid, dt, epochs, stats, writer.n, measures, targets, preds,
+                     sink.clock(), compiled, topology)
+    record["resumed_from_step"] = step or None
+    (tmp / PARTIAL_RECORD).unlink()
+    store.write_json(tmp / "run.json", record)
 
 
 def draw_run_maps(folder: Path, sc: Scenario, grid: Grid, habitat: np.ndarray, means: dict,
@@ -268,9 +465,40 @@ def draw_run_maps(folder: Path, sc: Scenario, grid: Grid, habitat: np.ndarray, m
     return out
 
 
+def _finished_digest(folder: Path) -> str | None:
+    """The scenario digest a finished run folder records (None if unreadable)."""
+    try:
+        info = json.loads((folder / "run.json").read_text())
+        return str(info["scenario_sha256"])
+    except (OSError, ValueError, KeyError, TypeError):
+        return None
+
+
+def _finished_before(v: Scenario, folder: Path, *, overwrite: bool) -> bool:
+    """With ``resume``: whether ``folder`` is this variant's finished run (checked first).
+
+    Raises
+    ------
+    InputError
+        When it was made from another version of the scenario (and
+        ``overwrite`` is not given): the variants would not be comparable.
+    """
+    if not (folder / "run.json").is_file():
+        return False
+    if _finished_digest(folder) == v.digest():
+        return True
+    if overwrite:
+        return False
+    raise InputError(
+        f"this run folder was made from another version of the scenario or of its input "
+        f"files than variant '{v.variant}' now describes; continuing would mix variants "
+        "computed from different versions: pass --overwrite to run them again", str(folder))
+
+
 def plan_variants(scenario: Scenario | str | Path, out: str | Path,
                   variants: list[str] | None = None, *,
-                  overwrite: bool = False) -> dict[str, tuple[Scenario, Path]]:
+                  overwrite: bool = False, resume: bool = False,
+                  ) -> dict[str, tuple[Scenario, Path]]:
     """The scenario and run folder of each variant to run, checked before any run starts.
 
     A scenario without ``[[variants]]`` (and no ``variants`` asked for) has
@@ -280,8 +508,10 @@ def plan_variants(scenario: Scenario | str | Path, out: str | Path,
     Raises
     ------
     InputError
-        For an unknown variant name, an invalid override, or an existing run
-        folder when ``overwrite`` is False.
+        For an unknown variant name, an invalid override, an existing run
+        folder when ``overwrite`` is False, an interrupted run kept for a
+        folder when neither ``resume`` nor ``overwrite`` is given, or (with
+        ``resume``) a finished or interrupted run of another scenario version.
     """
     sc = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
     out = Path(out)
@@ -290,8 +520,11 @@ def plan_variants(scenario: Scenario | str | Path, out: str | Path,
     else:
         names = variants or sc.variant_names()
         plan = {n: (sc.for_variant(n), out / n) for n in dict.fromkeys(names)}
-    for _, folder in plan.values():
-        store.refuse_existing(folder, overwrite, "run folder")
+    for v, folder in plan.values():
+        if resume and _finished_before(v, folder, overwrite=overwrite):
+            continue
+        store.check_output(folder, overwrite, "run folder", protect=_inputs(v))
+        _partial_to_continue(v, folder, overwrite=overwrite, resume=resume)
     if len(plan) > 1:
         check_variant_measures([v for v, _ in plan.values()])
     return plan
@@ -299,7 +532,8 @@ def plan_variants(scenario: Scenario | str | Path, out: str | Path,
 
 def simulate_variants(scenario: Scenario | str | Path, out: str | Path,
                       variants: list[str] | None = None, *, overwrite: bool = False,
-                      progress: bool | None = None, maps: bool = True) -> dict[str, Path]:
+                      progress: bool | None = None, maps: bool = True, resume: bool = False,
+                      allow_large: bool = False) -> dict[str, Path]:
     """Run the baseline and the variants of a scenario, each into its own run folder.
 
     Parameters
@@ -310,14 +544,41 @@ def simulate_variants(scenario: Scenario | str | Path, out: str | Path,
         The run folder (no variants) or the folder of run folders.
     variants : list of str, optional
         Names to run (``"baseline"`` included); default all.
-    overwrite, progress, maps
+    overwrite, progress, maps, allow_large
         As for :func:`simulate`.
+    resume : bool
+        Keep the variants finished before (from the same scenario version),
+        continue the interrupted one and run the rest.
 
     Returns
     -------
     dict
-        Variant name to run folder, in the order run.
+        Variant name to run folder, in the order planned.
+
+    Raises
+    ------
+    RunInterrupted
+        Saying which variants finished, which one was stopped (and whether it
+        was kept) and which did not start.
     """
-    plan = plan_variants(scenario, out, variants, overwrite=overwrite)
-    return {name: simulate(sc, folder, overwrite=overwrite, progress=progress, maps=maps)
-            for name, (sc, folder) in plan.items()}
+    plan = plan_variants(scenario, out, variants, overwrite=overwrite, resume=resume)
+    before = {n for n, (v, folder) in plan.items()
+              if resume and _finished_before(v, folder, overwrite=overwrite)}
+    done: dict[str, Path] = {}
+    for name, (sc, folder) in plan.items():
+        if name in before:
+            done[name] = folder
+            continue
+        try:
+            done[name] = simulate(sc, folder, overwrite=overwrite, progress=progress,
+                                  maps=maps, resume=resume, allow_large=allow_large)
+        except RunInterrupted as exc:
+            if len(plan) == 1:
+                raise
+            rest = [n for n in plan if n not in done and n != name]
+            raise RunInterrupted(
+                f"{exc.args[0]}\n  variants finished: {', '.join(done) or 'none'}; "
+                f"stopped: {name}; not started: {', '.join(rest) or 'none'}", exc.kept,
+                exc.resumable or bool(done),
+            ) from None
+    return done

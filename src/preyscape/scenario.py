@@ -17,9 +17,11 @@ from pathlib import Path
 from typing import Annotated, Any, Literal
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     ConfigDict,
     Field,
+    StrictBool,
     StrictInt,
     ValidationError,
     field_validator,
@@ -28,9 +30,25 @@ from pydantic import (
 
 from preyscape.errors import FileProblem, InputError
 
+LARGEST = 1e30
+"""Largest magnitude of a rate, capacity, density or length: per-cell values are 32-bit
+floats (at most 3.4e38), and a value is multiplied by habitat multipliers first."""
+SMALLEST = 1e-30
+"""Smallest non-zero magnitude (32-bit floats lose smaller values to zero)."""
+
+
+def _storable(v: float) -> float:
+    if v != 0 and not SMALLEST <= abs(v) <= LARGEST:
+        raise ValueError(f"{v:g} is outside the range a run can hold: use a value between "
+                         f"{SMALLEST:g} and {LARGEST:g} (per-cell values are 32-bit floats)")
+    return v
+
+
 # strict: a quoted number or a boolean is a mistake in a scenario file, not a number
-Positive = Annotated[float, Field(gt=0, allow_inf_nan=False, strict=True)]
-NonNegative = Annotated[float, Field(ge=0, allow_inf_nan=False, strict=True)]
+Positive = Annotated[float, Field(gt=0, allow_inf_nan=False, strict=True),
+                     AfterValidator(_storable)]
+NonNegative = Annotated[float, Field(ge=0, allow_inf_nan=False, strict=True),
+                        AfterValidator(_storable)]
 Fraction = Annotated[float, Field(ge=0, le=1, allow_inf_nan=False, strict=True)]
 Coordinate = Annotated[float, Field(allow_inf_nan=False, strict=True)]
 EdgeRule = Literal["closed", "hostile"]
@@ -176,7 +194,7 @@ class RunSpec(_Strict):
     years: Positive
     save_every: Positive
     step: Positive | Literal["auto"] = "auto"
-    seed: StrictInt = 0
+    seed: Annotated[int, Field(ge=0, strict=True)] = 0
     scheme: Literal["adi", "implicit-euler", "explicit"] = "adi"
 
     @model_validator(mode="after")
@@ -236,7 +254,7 @@ class MeasureSpec(_Strict):
     crs: str | None = None
     start_year: NonNegative = 0.0
     end_year: Positive | None = None
-    baseline: bool = True
+    baseline: StrictBool = True
     # fence
     permeability: Permeability | None = None
     gaps: tuple[Gap, ...] = ()
@@ -250,7 +268,7 @@ class MeasureSpec(_Strict):
     suitability: Fraction | None = None
     # refuge
     protected_fraction: Fraction | None = None
-    closed_to_predators: bool = False
+    closed_to_predators: StrictBool = False
 
     @model_validator(mode="before")
     @classmethod
@@ -661,6 +679,9 @@ def parse_scenario(
         return sc
     for key, rel in sc.input_files():
         f = sc.resolve(rel)
+        if f.is_dir():
+            raise InputError(f"{key}: '{rel}' is a folder ({f}); give the path of a file",
+                             source=str(path))
         if not f.is_file():
             raise InputError(
                 f"{key}: file '{rel}' not found (looked for {f}); paths are relative to "

@@ -124,6 +124,35 @@ class ResultWriter:
         self._time = t
         self.n = 0
 
+    @classmethod
+    def reopen(cls, path: Path, grid: Grid, n: int) -> ResultWriter:
+        """Continue a results file after its first ``n`` snapshots (resuming a run).
+
+        Snapshots the file holds beyond ``n`` (written after the last
+        checkpoint) are overwritten, with the same values, as the run repeats
+        them.
+        """
+        import netCDF4
+
+        self = cls.__new__(cls)
+        self.grid, self.path = grid, Path(path)
+        self._ds = ds = netCDF4.Dataset(self.path, "a")
+        try:
+            self._vars = {sp: ds[sp] for sp in SPECIES}
+            self._totals = {sp: ds[f"{sp}_total"] for sp in SPECIES}
+            self._time = ds["time"]
+        except (KeyError, IndexError):
+            ds.close()
+            raise OSError(f"{path} lacks a variable of a run's results") from None
+        held = ds.dimensions["time"].size
+        if held < n:
+            ds.close()
+            raise OSError(f"{path} holds {held} snapshots, not {n}")
+        for v in self._vars.values():
+            v.set_var_chunk_cache(size=0)
+        self.n = n
+        return self
+
     def write(self, t: float, N: np.ndarray, P: np.ndarray) -> None:
         """Append one snapshot at time ``t`` (years); densities in animals/km²."""
         k = self.n
@@ -370,20 +399,289 @@ def load_operators(folder: Path) -> list[dict]:
     return out
 
 
+# ---------------------------------------------------------------------------
+# output paths: checks before any work, atomic folders, stale temporary folders
+# ---------------------------------------------------------------------------
+_ACTIVE: set[Path] = set()
+"""Temporary folders this process is writing now (never stale)."""
+
+
+def partial_path(out: str | Path, pid: int | None = None) -> Path:
+    """The hidden temporary folder beside ``out`` that a process writes first.
+
+    ``.NAME.partial-PID``: renamed to ``out`` when complete. A run that was
+    interrupted keeps it (with its checkpoint) so that it can be resumed.
+    """
+    out = Path(out)
+    return out.parent / f".{out.name}.partial-{os.getpid() if pid is None else pid}"
+
+
+def _pid_of(path: Path, marker: str) -> int | None:
+    tail = path.name.rpartition(marker)[2]
+    return int(tail) if tail.isdigit() else None
+
+
+def _alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return False  # ours: stale unless it is in _ACTIVE (checked by the caller)
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except OSError:  # another user's process
+        return True
+    return True
+
+
+def stale_partials(out: str | Path, marker: str = ".partial-", *,
+                   files: bool = False) -> list[Path]:
+    """Temporary folders of ``out`` left by processes that were killed or interrupted.
+
+    A folder ``.NAME<marker>PID`` beside ``out`` whose process no longer runs
+    (or is this process, but not writing it now). Newest first. With
+    ``files``, temporary files instead (``.NAME.tmp-PID`` of a report).
+    """
+    out = Path(out)
+    if not out.parent.is_dir():
+        return []
+    found = []
+    for p in out.parent.glob(f".{glob_escape(out.name)}{marker}*"):
+        pid = _pid_of(p, marker)
+        if (pid is not None and (p.is_file() if files else p.is_dir())
+                and p not in _ACTIVE and not _alive(pid)):
+            found.append(p)
+    return sorted(found, key=lambda p: p.stat().st_mtime, reverse=True)
+
+
+def glob_escape(name: str) -> str:
+    """``name`` with the characters glob treats specially escaped."""
+    import glob
+
+    return glob.escape(name)
+
+
+def remove_stale(out: str | Path, keep=None) -> list[Path]:
+    """Remove the stale temporary folders of ``out`` (see :func:`stale_partials`).
+
+    A folder set aside while an older ``out`` was being replaced
+    (``.NAME.replaced-PID``) is put back when ``out`` is missing (the
+    replacement never arrived), else removed. ``keep(path)`` may spare a
+    partial folder (one that can be resumed). Returns the folders removed.
+    """
+    import shutil
+
+    out = Path(out)
+    removed = []
+    for old in stale_partials(out, ".replaced-"):
+        if not out.exists():
+            os.replace(old, out)
+        else:
+            shutil.rmtree(old, ignore_errors=True)
+            removed.append(old)
+    for p in stale_partials(out):
+        if keep is None or not keep(p):
+            shutil.rmtree(p, ignore_errors=True)
+            removed.append(p)
+    return removed
+
+
+def _nearest_existing(path: Path) -> Path:
+    p = path
+    while not os.path.lexists(p) and p != p.parent:
+        p = p.parent
+    return p
+
+
+def _inside(inner: Path, outer: Path) -> bool:
+    try:
+        inner.relative_to(outer)
+    except ValueError:
+        return False
+    return True
+
+
+def check_output(out: str | Path, overwrite: bool = False, what: str = "output folder", *,
+                 kind: str = "folder", protect=(), option: str = "--out") -> None:
+    """Refuse an output path that cannot or may not be written, before any work starts.
+
+    Nothing is created. Refused: a path under a file; a place that cannot be
+    written; a file where a folder goes or a folder where a file goes (also
+    with ``overwrite``); an existing ``out`` unless ``overwrite``; and, with
+    ``overwrite``, a folder whose deletion would take the inputs (``protect``),
+    the current folder or the home folder with it.
+
+    Parameters
+    ----------
+    out : str or pathlib.Path
+        The folder (or file) to create.
+    overwrite : bool
+        Whether an existing ``out`` may be replaced.
+    what : str
+        What ``out`` is, for the message ("run folder", "report file").
+    kind : {"folder", "file"}
+        What ``out`` must be.
+    protect : iterable of paths
+        Inputs that replacing ``out`` must not delete (keyword only).
+    option : str
+        The command-line option that named ``out`` (keyword only).
+
+    Raises
+    ------
+    InputError
+        For an existing ``out`` without ``overwrite``, or one that must not be replaced.
+    FileProblem
+        For a path under a file, of the wrong kind, or in a place that cannot be written.
+
+    Examples
+    --------
+    >>> check_output(out_folder / "runs" / "moor", what="run folder")  # fine: nothing made
+    >>> (out_folder / "notes.txt").write_text("field notes")
+    11
+    >>> check_output(out_folder / "notes.txt" / "moor", what="run folder")
+    Traceback (most recent call last):
+    ...
+    preyscape.errors.FileProblem: .../notes.txt/moor: cannot create the run folder here: ...
+    """
+    import tempfile
+
+    from preyscape.errors import FileProblem, InputError
+
+    out = Path(out)
+    here = str(out)
+    base = _nearest_existing(out.parent)
+    if base.exists() and not base.is_dir():
+        raise FileProblem(f"cannot create the {what} here: {base} is a file, not a folder; "
+                          f"choose another {option}", here)
+    if out.exists() or out.is_symlink():
+        is_dir = out.is_dir()
+        if kind == "folder" and not is_dir:
+            raise FileProblem(f"this is a file, not a folder; the {what} is a folder: choose "
+                              f"another {option} (--overwrite replaces only a folder)", here)
+        if kind == "file" and is_dir:
+            raise FileProblem(f"this is a folder; the {what} is a file: choose another "
+                              f"{option} (--overwrite replaces only a file)", here)
+        if not overwrite:
+            raise InputError(f"{what} already exists; choose another with {option} or pass "
+                             "--overwrite to replace it", here)
+        real = out.resolve()
+        keep = [Path.cwd().resolve(), Path.home().resolve(), Path(real.anchor)]
+        if kind == "folder" and any(_inside(k, real) for k in keep):
+            raise InputError(f"--overwrite would delete this folder, which holds the current "
+                             f"folder or your home folder; choose another {option}", here)
+        for p in protect:
+            q = Path(p).resolve()
+            if q == real or (kind == "folder" and _inside(q, real)):
+                raise InputError(f"--overwrite would delete {p}, an input of this command; "
+                                 f"choose another {option}", here)
+    try:
+        probe = tempfile.mkdtemp(prefix=".preyscape-probe-", dir=base)
+    except OSError as err:
+        raise FileProblem(f"cannot write the {what} here: {base} is not writable "
+                          f"({err.strerror or err}); choose another {option}", here) from None
+    os.rmdir(probe)
+
+
 def refuse_existing(out: Path, overwrite: bool, what: str = "output folder") -> None:
-    """Raise :class:`~preyscape.errors.InputError` if ``out`` exists and may not be replaced."""
+    """Refuse an output folder that exists (unless ``overwrite``) or cannot be written.
+
+    See :func:`check_output`.
+    """
+    check_output(out, overwrite, what)
+
+
+def _exchange(a: Path, b: Path) -> bool:
+    """Swap two paths atomically (Linux ``renameat2``); False where that is not available."""
+    import ctypes
+
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        fn = libc.renameat2
+    except (OSError, AttributeError):
+        return False
+    at_fdcwd, rename_exchange = -100, 2
+    if fn(at_fdcwd, os.fsencode(a), at_fdcwd, os.fsencode(b), rename_exchange) == 0:
+        return True
+    err = ctypes.get_errno()
+    import errno
+
+    if err in (errno.ENOSYS, errno.EINVAL, errno.ENOTSUP, errno.EXDEV):
+        return False
+    raise OSError(err, os.strerror(err), str(b))
+
+
+@contextmanager
+def _signals_held():
+    """Hold Ctrl-C and SIGTERM while a folder is swapped in; deliver them afterwards.
+
+    The Python-level handlers are replaced by a recorder (a signal mask would
+    not do: a signal sent to the process may land on one of numba's or the
+    libraries' threads), then restored, and a signal that arrived is passed
+    to the handler that was in place.
+    """
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught: list[int] = []
+    held = (signal.SIGINT, signal.SIGTERM)
+    old = {s: signal.signal(s, lambda signum, _frame: caught.append(signum)) for s in held}
+    try:
+        yield
+    finally:
+        for s, h in old.items():
+            signal.signal(s, h)
+        if caught:
+            h = old[caught[0]]
+            if callable(h):
+                h(caught[0], None)
+            elif h == signal.SIG_DFL:
+                os.kill(os.getpid(), caught[0])
+
+
+def commit_folder(tmp: Path, out: Path, overwrite: bool = True, what: str = "folder") -> None:
+    """Move the finished folder ``tmp`` to ``out``, replacing an existing ``out``.
+
+    An existing ``out`` is swapped with ``tmp`` in one atomic step where the
+    system allows it (Linux ``renameat2``); elsewhere it is renamed aside and
+    ``tmp`` renamed in. The old folder, now ``.NAME.replaced-PID``, is deleted
+    last; a later run into the same place deletes it if this one was killed
+    first, or puts it back if ``out`` is missing. At every moment ``out`` is
+    either the old folder or the complete new one. Ctrl-C and SIGTERM wait
+    until the new folder is in place and the old one deleted.
+
+    Raises
+    ------
+    InputError
+        If ``out`` appeared while ``tmp`` was written (another process) and
+        ``overwrite`` is False; ``tmp`` is left for the caller to remove.
+    """
+    import shutil
+
     from preyscape.errors import InputError
 
-    if Path(out).exists() and not overwrite:
-        raise InputError(
-            f"{what} already exists; choose another with --out or pass --overwrite to "
-            "replace it", str(out),
-        )
+    aside = out.parent / f".{out.name}.replaced-{os.getpid()}"
+    with _signals_held():
+        if not out.exists():
+            os.replace(tmp, out)
+            return
+        if not overwrite:
+            raise InputError(f"the {what} was created by another process while this one was "
+                             "writing it; it was left as it is, and this result discarded",
+                             str(out))
+        if _exchange(tmp, out):
+            os.replace(tmp, aside)
+        else:
+            os.replace(out, aside)
+            os.replace(tmp, out)
+        shutil.rmtree(aside, ignore_errors=True)
 
 
 @contextmanager
 def output_folder(out: str | Path, overwrite: bool = False,
-                  what: str = "output folder") -> Iterator[Path]:
+                  what: str = "output folder", *, adopt: Path | None = None,
+                  keep=None, protect=()) -> Iterator[Path]:
     """Create the folder ``out`` atomically: yield a temporary folder, rename it when done.
 
     Parameters
@@ -395,37 +693,84 @@ def output_folder(out: str | Path, overwrite: bool = False,
         :class:`~preyscape.errors.InputError` and is left untouched.
     what : str
         What the folder is, for the message.
+    adopt : pathlib.Path, optional
+        A temporary folder of an interrupted run to continue in (renamed to
+        this process's temporary folder) instead of an empty one (keyword only).
+    keep : callable, optional
+        ``keep(tmp)``: whether to keep the temporary folder when the block is
+        interrupted (Ctrl-C, SIGTERM), so that it can be resumed (keyword only).
+    protect : iterable of paths
+        Inputs that replacing ``out`` must not delete (:func:`check_output`).
 
     Yields
     ------
     pathlib.Path
         A hidden temporary folder beside ``out`` (``.NAME.partial-PID``). If the
-        block raises (or is interrupted), the temporary folder is removed and
-        ``out`` is unchanged.
+        block raises (or is interrupted), the temporary folder is removed
+        (unless ``keep`` says otherwise) and ``out`` is unchanged. Stale
+        temporary folders of ``out`` left by killed processes are removed first.
     """
     import shutil
 
     out = Path(out)
-    refuse_existing(out, overwrite, what)
+    check_output(out, overwrite, what, protect=protect)
+    tmp = partial_path(out)
+    remove_stale(out, keep=lambda p: p == adopt)
     out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.parent / f".{out.name}.partial-{os.getpid()}"
-    if tmp.exists():
+    if tmp.exists() and tmp != adopt:
         shutil.rmtree(tmp)
-    tmp.mkdir()
+    _ACTIVE.add(tmp)
     try:
-        yield tmp
-        if out.exists():  # overwrite was asked for
-            shutil.rmtree(out)
-        os.replace(tmp, out)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+        if adopt is not None:
+            if adopt != tmp:
+                os.replace(adopt, tmp)
+        else:
+            tmp.mkdir()
+        try:
+            yield tmp
+        except KeyboardInterrupt:
+            if keep is None or not keep(tmp):
+                shutil.rmtree(tmp, ignore_errors=True)
+            raise
+        except BaseException:
+            shutil.rmtree(tmp, ignore_errors=True)
+            raise
+        try:
+            commit_folder(tmp, out, overwrite, what)
+        except BaseException:
+            shutil.rmtree(tmp, ignore_errors=True)
+            raise
+    finally:
+        _ACTIVE.discard(tmp)
+
+
+def json_safe(value: Any) -> Any:
+    """``value`` with every non-finite float (NaN, ±infinity) replaced by None.
+
+    Standard JSON has no NaN or Infinity; ``null`` says "no such value".
+
+    Examples
+    --------
+    >>> json_safe({"equilibrium": [float("nan"), 2.5], "period": float("inf")})
+    {'equilibrium': [None, 2.5], 'period': None}
+    """
+    import math
+
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    if isinstance(value, np.generic):
+        return json_safe(value.item())
+    return value
 
 
 def write_json(path: Path, record: dict) -> None:
     """Write ``record`` as indented JSON, atomically."""
     tmp = path.with_name(path.name + ".tmp")
-    tmp.write_text(json.dumps(record, indent=2, default=str) + "\n")
+    tmp.write_text(json.dumps(json_safe(record), indent=2, default=str, allow_nan=False) + "\n")
     os.replace(tmp, path)
 
 

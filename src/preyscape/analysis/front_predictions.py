@@ -9,7 +9,7 @@ is set against three predictions, all for pulled fronts:
 - the **landscape** speed, from homogenising growth and movement over the
   whole map (Shigesada, Kawasaki & Teramoto 1986, Theor Popul Biol 30:143;
   Shigesada & Kawasaki 1997; see ``docs/method.md``), also recorded when the
-  run was made (:func:`preyscape.assemble.landscape_predictions`);
+  run was made (:func:`preyscape.preview.landscape_predictions`);
 - the **transect** speed, from the habitat under the stretch of the transect
   the front crossed while it was fitted, taken as one period of a periodic
   landscape (:func:`preyscape.model.landscape_theory.transect_speed`). For
@@ -154,7 +154,7 @@ def transect_classes(record: Mapping, habitat_values: np.ndarray, species: str,
     ----------
     record : mapping
         The run's ``predictions["landscape"]``
-        (:func:`preyscape.assemble.landscape_predictions`).
+        (:func:`preyscape.preview.landscape_predictions`).
     habitat_values : numpy.ndarray
         The habitat layer (class codes or suitability) at the cells.
     species : {"prey", "predator"}

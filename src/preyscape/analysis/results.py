@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import json
 import math
+import zipfile
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from functools import cached_property
@@ -48,7 +49,8 @@ from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
 from preyscape.store import SPECIES, data_mask, frames, grid_of, used_snapshots
 
-__all__ = ["CellStatistics", "RunResults", "cell_statistics", "open_run", "SPECIES"]
+__all__ = ["CellStatistics", "RunResults", "cell_statistics", "find_damage", "open_run",
+           "SPECIES"]
 
 
 @dataclass(frozen=True)
@@ -266,25 +268,54 @@ class RunResults:
         f = self.path / str(record["cells_file"])
         try:
             with rasterio.open(f) as src:
-                return src.read(1) == 1
-        except rasterio.errors.RasterioIOError as err:
-            raise FileProblem(f"cannot read {record['cells_file']} of this run folder ({err})",
-                              str(self.path)) from None
+                cells = src.read(1) == 1
+        except rasterio.errors.RasterioError as err:
+            raise FileProblem(f"cannot read {record['cells_file']} of this run folder ({err}); "
+                              "run the scenario again", str(self.path)) from None
+        if cells.shape != self.grid.shape:
+            raise FileProblem(f"{record['cells_file']} of this run folder does not match its "
+                              "grid; run the scenario again", str(self.path))
+        return cells
+
+    def _member(self, name: str, read):
+        """``read(path)`` of the file ``name`` of the folder; damage becomes a FileProblem."""
+        try:
+            return read(self.path / name)
+        except (OSError, ValueError, KeyError, TypeError, IndexError, AttributeError,
+                zipfile.BadZipFile) as err:
+            what = "is missing" if not (self.path / name).exists() else "is damaged"
+            raise FileProblem(f"{name} of this run folder {what} ({type(err).__name__}: "
+                              f"{err}); run the scenario again", str(self.path)) from None
 
     def faces_of(self, record: Mapping[str, Any]) -> tuple[np.ndarray, np.ndarray] | None:
         """Fence faces (between columns, between rows) of a record, or None."""
         if not record.get("faces_file"):
             return None
-        with np.load(self.path / str(record["faces_file"])) as z:
-            return z["between_columns"].copy(), z["between_rows"].copy()
+
+        def read(f: Path) -> tuple[np.ndarray, np.ndarray]:
+            with np.load(f) as z:
+                cols, rows = z["between_columns"].copy(), z["between_rows"].copy()
+            ny, nx = self.grid.shape
+            if cols.shape != (ny, nx + 1) or rows.shape != (ny + 1, nx):
+                raise ValueError("its faces do not match the run grid")
+            return cols, rows
+
+        return self._member(str(record["faces_file"]), read)
 
     def lines_of(self, record: Mapping[str, Any]) -> list[np.ndarray]:
         """Line and ring vertices (k × 2, map metres) of a record's ``geometry_file``."""
         if not record.get("geometry_file"):
             return []
-        doc = json.loads((self.path / str(record["geometry_file"])).read_text())
-        return [np.asarray(line, dtype=float) for f in doc.get("features", [])
-                for line in _lines_of(f.get("geometry") or {})]
+
+        def read(f: Path) -> list[np.ndarray]:
+            doc = json.loads(f.read_text())
+            out = [np.asarray(line, dtype=float) for ft in doc.get("features", [])
+                   for line in _lines_of(ft.get("geometry") or {})]
+            if any(a.ndim != 2 or a.shape[1] < 2 for a in out):
+                raise ValueError("its coordinates are not lists of points")
+            return [a[:, :2] for a in out]
+
+        return self._member(str(record["geometry_file"]), read)
 
     def overlays(self) -> list:
         """The run's measures as map overlays (:class:`preyscape.landscape.placed.Outline`)."""
@@ -305,7 +336,7 @@ class RunResults:
         """The movement operators of every epoch (:func:`preyscape.store.load_operators`)."""
         from preyscape.store import load_operators
 
-        ops = load_operators(self.path)
+        ops = self._member("operators", lambda _folder: load_operators(self.path))
         if not ops:
             raise FileProblem("the run folder has no movement operators (operators/); it was "
                               "made by an older preyscape: run it again to compute fluxes",
@@ -317,8 +348,23 @@ class RunResults:
         """The run's :class:`~preyscape.analysis.settings.AnalysisSettings`, with overrides."""
         from preyscape.analysis.settings import AnalysisSettings
 
-        return AnalysisSettings.build(self.info.get("analysis") or {}, overrides, spelled,
-                                      stored_as=f"{self.path / 'run.json'}: analysis")
+        stored_as = f"{self.path / 'run.json'}: analysis"
+        s = AnalysisSettings.build(self.info.get("analysis") or {}, overrides, spelled,
+                                   stored_as=stored_as)
+        band = s.hotspot_distance
+        if band is not None:
+            given = (overrides or {}).get("hotspot_distance") is not None
+            where = ((spelled or {}).get("hotspot_distance", "hotspot_distance") if given
+                     else f"{stored_as}.hotspot_distance")
+            g = self.grid
+            diagonal = math.hypot(g.width_m, g.height_m)
+            if band > diagonal:
+                raise InputError(
+                    f"a distance band of {band:g} m is larger than the landscape (its diagonal "
+                    f"is {diagonal:.0f} m): every cell would be every other cell's neighbour "
+                    f"and the test would say nothing; give at most {diagonal:.0f} m, "
+                    "typically a few cells to a few per cent of the landscape", where)
+        return s
 
     @property
     def predictions(self) -> dict:
@@ -340,21 +386,98 @@ def _lines_of(geom: Mapping[str, Any]) -> list:
     return []
 
 
+_NEEDED = ("time", "x", "y", *SPECIES, *(f"{sp}_total" for sp in SPECIES))
+
+
 def _open_results(path: Path):
     import xarray as xr
 
     nc = Path(path) / "results.nc"
     try:
+        with open(nc, "rb") as fh:
+            head = fh.read(8)
+    except OSError as err:
+        raise FileProblem(f"results.nc cannot be read ({err.strerror or err})",
+                          str(path)) from None
+    if not (head.startswith(b"\x89HDF") or head.startswith(b"CDF")):
+        what = "is empty" if not head else "is not a NetCDF file"
+        raise FileProblem(f"results.nc {what}; the run folder is damaged or was not written "
+                          "by preyscape: run the scenario again", str(path))
+    try:
         ds = xr.open_dataset(nc, decode_times=False)
-    except (OSError, ValueError) as err:
-        raise FileProblem(f"results.nc cannot be read as NetCDF ({type(err).__name__}: {err}); "
-                          "the run folder is damaged: run the scenario again", str(path)) from None
-    missing = [v for v in ("time", "x", "y", *SPECIES) if v not in ds.variables]
-    if missing:
+    except (OSError, ValueError, RuntimeError) as err:
+        raise FileProblem(f"results.nc cannot be read as NetCDF ({type(err).__name__}: "
+                          f"{str(err).splitlines()[0][:200]}); the file is truncated or "
+                          "damaged: run the scenario again", str(path)) from None
+    problem = _layout_problem(ds)
+    if problem:
         ds.close()
-        raise FileProblem(f"results.nc has no variable {missing[0]!r}; it was not written by "
-                          "preyscape or is damaged", str(path))
+        raise FileProblem(f"results.nc {problem}; it was not written by preyscape or is "
+                          "damaged", str(path))
     return ds
+
+
+def _layout_problem(ds) -> str | None:
+    """What is wrong with the variables of an opened ``results.nc``, or None."""
+    missing = [v for v in _NEEDED if v not in ds.variables]
+    if missing:
+        return f"has no variable {missing[0]!r}"
+    ny, nx, nt = ds["y"].size, ds["x"].size, ds["time"].size
+    for sp in SPECIES:
+        if ds[sp].dims != ("time", "y", "x"):
+            return f"has {sp} on dimensions {ds[sp].dims}, not (time, y, x)"
+    if nt == 0 or ny == 0 or nx == 0:
+        return "holds no snapshots" if nt == 0 else "has an empty grid"
+    if "mask" in ds.variables and ds["mask"].shape != (ny, nx):
+        return "has a data mask of another shape than its grid"
+    return None
+
+
+def find_damage(paths: Sequence[str | Path]) -> FileProblem | None:
+    """The first run folder whose ``results.nc`` cannot be read through, as a FileProblem.
+
+    Reads every variable in full: meant for the moment a read has failed, to
+    say which folder is damaged.
+    """
+    import netCDF4
+
+    for p in paths:
+        nc = Path(p) / "results.nc"
+        try:
+            with netCDF4.Dataset(nc) as ds:
+                for v in ds.variables.values():
+                    for k in range(v.shape[0] if v.ndim == 3 else 1):
+                        _ = v[k] if v.ndim == 3 else v[...]
+        except (OSError, RuntimeError, ValueError, IndexError) as err:
+            return FileProblem(f"results.nc is damaged: part of it cannot be read ({err}); run "
+                               "the scenario again", str(p))
+    return None
+
+
+_INFO_TYPES: dict[str, tuple] = {
+    "years": (int, float), "variant": (str,), "title": (str,), "species": (dict,),
+    "analysis": (dict, type(None)), "measures": (list,), "targets": (list,),
+    "classes": (dict, type(None)), "predictions": (dict,), "settings": (dict,),
+}
+
+
+def _info_problem(info: dict) -> str | None:
+    """What is wrong with the structure of a ``run.json``, or None."""
+    for key, types in _INFO_TYPES.items():
+        v = info.get(key)
+        if key in info and (not isinstance(v, types) or isinstance(v, bool)):
+            want = " or ".join("null" if t is type(None) else
+                               {int: "a number", float: "a number", str: "text",
+                                dict: "an object", list: "a list"}[t] for t in types)
+            return f"has {key!r} of the wrong type ({type(v).__name__}; expected {want})"
+    years = info.get("years", 1.0)
+    if not (math.isfinite(years) and years > 0):
+        return "has 'years' that is not a positive number"
+    for key, needs in (("measures", ("name", "kind")), ("targets", ("name", "cells_file"))):
+        for k, rec in enumerate(info.get(key) or []):
+            if not isinstance(rec, dict) or any(n not in rec for n in needs):
+                return f"has {key}[{k}] without {' and '.join(needs)}"
+    return None
 
 
 def open_run(path: str | Path) -> RunResults:
@@ -368,23 +491,39 @@ def open_run(path: str | Path) -> RunResults:
     Returns
     -------
     RunResults
-        The opened run (``results.nc`` is opened lazily).
+        The opened run (``results.nc`` is checked, closed, and opened again
+        lazily when needed).
 
     Raises
     ------
     FileProblem
-        If ``path`` is not a finished run folder or its ``run.json`` is damaged.
+        If ``path`` is not a finished run folder, or its ``run.json`` or
+        ``results.nc`` is damaged (naming the folder and what is wrong).
     """
     p = Path(path)
     rec = p / "run.json"
     if not rec.is_file() or not (p / "results.nc").is_file():
-        what = "does not exist" if not p.exists() else "has no run.json and results.nc"
-        raise FileProblem(f"not a finished run folder: it {what}", str(p))
+        if not p.exists():
+            what = "it does not exist"
+        elif not p.is_dir():
+            what = "it is a file, not a folder"
+        elif (p / "results.nc").is_file():
+            what = "it has results.nc but no run.json"
+        elif rec.is_file():
+            what = "it has run.json but no results.nc"
+        else:
+            what = "it has no run.json and results.nc"
+        raise FileProblem(f"not a finished run folder: {what}", str(p))
     try:
-        info = json.loads(rec.read_text())
+        info = json.loads(rec.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, json.JSONDecodeError) as err:
         raise FileProblem(f"run.json is not valid JSON ({err})", str(p)) from None
     if not isinstance(info, dict):
         raise FileProblem("run.json does not hold a JSON object; the folder is damaged or not "
                           "a run folder", str(p))
+    problem = _info_problem(info)
+    if problem:
+        raise FileProblem(f"run.json {problem}; the folder is damaged or was not written by "
+                          "preyscape", str(p))
+    _open_results(p).close()
     return RunResults(p, info)

@@ -54,11 +54,29 @@ def add_parsers(sub, argv: list[str] | None = None) -> None:
     rp.set_defaults(handler=report)
 
 
+def _named(exc, inputs: dict[str, Path | None]):
+    """``exc`` with its source prefixed by the option that named the file, when it is one."""
+    for flag, path in inputs.items():
+        if path is not None and exc.source and str(path) in exc.source and flag not in exc.source:
+            return type(exc)(exc.message, f"{flag} {exc.source}")
+    return exc
+
+
+def _damaged(folders) -> None:
+    """After a failed read: raise the FileProblem naming the damaged run folder, if one is."""
+    from preyscape.analysis.results import find_damage
+
+    problem = find_damage([f for f in folders if f is not None])
+    if problem is not None:
+        raise problem
+
+
 def analyse(args) -> int:
     """Run one registered analysis on the run folders given and print its summary."""
     from preyscape.analysis.commands import module_of
     from preyscape.analysis.results import open_run
-    from preyscape.errors import InputError
+    from preyscape.errors import InputError, PreyscapeError
+    from preyscape.store import check_output
 
     mod = module_of(args.analysis)
     cmd = mod.COMMAND
@@ -66,13 +84,21 @@ def analyse(args) -> int:
         raise InputError("give the reference run folder and at least one run to compare "
                          "with it", f"preyscape {cmd.name}")
     runs = [open_run(p) for p in args.runs]
+    paths = {o.flag: getattr(args, o.dest) for o in cmd.options if o.type is Path}
     try:
         overrides = {o.dest: getattr(args, o.dest) for o in cmd.options if o.setting}
         spelled = {o.dest: o.flag for o in cmd.options}
         settings = runs[0].settings(overrides, spelled)
         inputs = {o.dest: getattr(args, o.dest) for o in cmd.options if not o.setting}
         out = args.out or mod.default_out(runs)
+        check_output(out, args.overwrite, "output folder",
+                     protect=[*args.runs, *(v for v in paths.values() if v is not None)])
         written = mod.write(runs, settings, out, overwrite=args.overwrite, **inputs)
+    except PreyscapeError as exc:
+        raise _named(exc, paths) from None
+    except (OSError, RuntimeError, KeyError, ValueError):
+        _damaged([*args.runs, *paths.values()])  # a results file that breaks mid-read
+        raise
     finally:
         for r in runs:
             r.close()
@@ -82,9 +108,30 @@ def analyse(args) -> int:
 
 def report(args) -> int:
     """Write the HTML report of a run (compared with the other runs given)."""
+    from preyscape.analysis.results import open_run
+    from preyscape.errors import FileProblem
     from preyscape.report.run_report import write_report
+    from preyscape.store import check_output, stale_partials
 
-    path = write_report(args.run, args.out, args.others, overwrite=args.overwrite,
-                        animate=not args.no_animation)
+    for r in (args.run, *args.others):
+        with open_run(r) as run:  # a damaged or foreign folder: one message before any work
+            if "years" not in run.info:
+                raise FileProblem("run.json has no 'years'; the folder is damaged or was not "
+                                  "written by preyscape", str(r))
+    out = args.out or args.run / "report.html"
+    check_output(out, args.overwrite, "report file", kind="file",
+                 protect=[r / name for r in (args.run, *args.others)
+                          for name in ("run.json", "results.nc")])
+    for stale in stale_partials(out, ".tmp-", files=True):
+        stale.unlink(missing_ok=True)
+    try:
+        path = write_report(args.run, args.out, args.others, overwrite=args.overwrite,
+                            animate=not args.no_animation)
+    except (OSError, RuntimeError, KeyError, ValueError) as exc:
+        from preyscape.errors import PreyscapeError
+
+        if not isinstance(exc, PreyscapeError):
+            _damaged([args.run, *args.others])
+        raise
     print(f"report: {path}")
     return 0

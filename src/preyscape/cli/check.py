@@ -12,26 +12,27 @@ def add_parsers(sub) -> None:
     c = sub.add_parser("check", help="validate a scenario and print what it implies")
     c.add_argument("scenario", type=Path, help="scenario file (TOML)")
     c.add_argument("--json", action="store_true", help="print the numbers as JSON")
+    c.add_argument("--allow-large", action="store_true",
+                   help="check even when the memory estimate exceeds the available memory or "
+                   "the run needs more than a million steps")
     c.set_defaults(handler=check)
 
 
 def check(args) -> int:
     """Validate a scenario, place every variant's measures, print what it implies."""
-    from preyscape.assemble import (
-        check_variant_measures,
-        derived,
-        prepare,
-        variant_fence_topology,
-    )
+    from preyscape.assemble import check_variant_measures, prepare
+    from preyscape.preview import derived, variant_fence_topology
     from preyscape.scenario import load_scenario
 
     sc = load_scenario(args.scenario)
-    d = derived(prepare(sc))
+    d = derived(prepare(sc, allow_large=args.allow_large))
     variants = [sc.for_variant(n) for n in sc.variant_names()[1:]]
     d["variant_measures"] = check_variant_measures(variants)
     d["variant_fence_topology"] = variant_fence_topology(variants)
     if args.json:
-        print(json.dumps(d, indent=2, default=str))
+        from preyscape.store import json_safe
+
+        print(json.dumps(json_safe(d), indent=2, default=str, allow_nan=False))
     else:
         print("\n".join(check_lines(args.scenario, d)))
     return 0
@@ -44,7 +45,7 @@ def _fmt(x, unit: str = "", digits: int = 4) -> str:
 
 
 def check_lines(path: Path, d: dict) -> list[str]:
-    """The lines ``check`` prints for the numbers of :func:`preyscape.assemble.derived`."""
+    """The lines ``check`` prints for the numbers of :func:`preyscape.preview.derived`."""
     g = d["grid"]
     eq = d["equilibrium"]
     b = d["best_habitat"]
@@ -228,7 +229,7 @@ def _species_speed(d: dict, sp: str) -> list[str]:
 def landscape_lines(d: dict) -> list[str]:
     """``check``'s lines on growth per habitat class and the landscape's own predictions.
 
-    ``d["landscape"]`` is :func:`preyscape.assemble.landscape_predictions`: the
+    ``d["landscape"]`` is :func:`preyscape.preview.landscape_predictions`: the
     growth rate at low density of each species per class (prey r·multiplier;
     predators e f(K_class) − m_class with prey at the class's capacity),
     source or sink, the sink share, a verdict in words, and the homogenised

@@ -16,7 +16,15 @@ def add_parsers(sub) -> None:
     r.add_argument("--variant", action="append", metavar="NAME",
                    help="run only this variant ('baseline' for the scenario without variants); "
                    "repeat for several")
-    r.add_argument("--overwrite", action="store_true", help="replace an existing run folder")
+    r.add_argument("--overwrite", action="store_true",
+                   help="replace existing run folders (files in them are deleted) and discard "
+                   "interrupted runs kept for them")
+    r.add_argument("--resume", action="store_true",
+                   help="continue an interrupted run: keep the variants finished before, "
+                   "continue the one that was stopped, run the rest")
+    r.add_argument("--allow-large", action="store_true",
+                   help="run even when the memory estimate exceeds the available memory or "
+                   "the run needs more than a million steps")
     r.add_argument("--quiet", action="store_true", help="no progress bar or summary")
     r.set_defaults(handler=run)
 
@@ -42,15 +50,33 @@ def summary(folder: Path) -> list[str]:
     return lines
 
 
+def resume_command(args, out: Path) -> str:
+    """The command line that continues an interrupted ``run``."""
+    import shlex
+
+    words = ["preyscape", "run", str(args.scenario), "--out", str(out)]
+    for v in args.variant or ():
+        words += ["--variant", v]
+    words += ["--allow-large"] if args.allow_large else []
+    return shlex.join(words + ["--resume"])
+
+
 def run(args) -> int:
     """Run a scenario's baseline and variants."""
     from preyscape.cautions import CAUTION
-    from preyscape.runfolder import simulate_variants
+    from preyscape.runfolder import RunInterrupted, simulate_variants
 
     out = args.out or Path("runs") / args.scenario.stem
     progress = False if args.quiet else None
-    folders = simulate_variants(args.scenario, out, args.variant, overwrite=args.overwrite,
-                                progress=progress)
+    try:
+        folders = simulate_variants(args.scenario, out, args.variant, overwrite=args.overwrite,
+                                    progress=progress, resume=args.resume,
+                                    allow_large=args.allow_large)
+    except RunInterrupted as exc:
+        if not exc.resumable:
+            raise
+        raise RunInterrupted(f"{exc.args[0]}\n  continue with: {resume_command(args, out)}",
+                             exc.kept, True) from None
     if not args.quiet:
         for folder in folders.values():
             print("\n".join(summary(folder)))
@@ -76,9 +102,12 @@ def demo(args) -> int:
     from preyscape.cautions import CAUTION
     from preyscape.demo import run_demo
 
-    done = run_demo(demo_out(args.out), overwrite=args.overwrite,
-                    progress=False if args.quiet else None,
-                    log=None if args.quiet else print)
+    try:
+        done = run_demo(demo_out(args.out), overwrite=args.overwrite,
+                        progress=False if args.quiet else None,
+                        log=None if args.quiet else print)
+    except KeyboardInterrupt:  # the demo keeps nothing, not even a run to resume
+        raise KeyboardInterrupt from None
     if not args.quiet:
         for folder in done["runs"].values():
             print("\n".join(summary(folder)))

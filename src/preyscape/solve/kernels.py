@@ -51,21 +51,27 @@ def _per_capita(N, P, r, inv_K, m, a, h, c, e, shield):
 
 
 @njit(inline="always")
+def _xexp(u, z):
+    # u e^z with zero kept at zero: e^z overflows past z = 709 and 0 * inf is NaN
+    return u * np.exp(z) if u != 0.0 else 0.0
+
+
+@njit(inline="always")
 def _rk4_log(n0, p0, hs, nsub, r, ik, m, a, h, c, e, sh):
     # classical RK4 on (ln N, ln P): positive and stable for any step
     for _ in range(nsub):
         k1n, k1p = _per_capita(n0, p0, r, ik, m, a, h, c, e, sh)
-        n1 = n0 * np.exp(0.5 * hs * k1n)
-        p1 = p0 * np.exp(0.5 * hs * k1p)
+        n1 = _xexp(n0, 0.5 * hs * k1n)
+        p1 = _xexp(p0, 0.5 * hs * k1p)
         k2n, k2p = _per_capita(n1, p1, r, ik, m, a, h, c, e, sh)
-        n2 = n0 * np.exp(0.5 * hs * k2n)
-        p2 = p0 * np.exp(0.5 * hs * k2p)
+        n2 = _xexp(n0, 0.5 * hs * k2n)
+        p2 = _xexp(p0, 0.5 * hs * k2p)
         k3n, k3p = _per_capita(n2, p2, r, ik, m, a, h, c, e, sh)
-        n3 = n0 * np.exp(hs * k3n)
-        p3 = p0 * np.exp(hs * k3p)
+        n3 = _xexp(n0, hs * k3n)
+        p3 = _xexp(p0, hs * k3p)
         k4n, k4p = _per_capita(n3, p3, r, ik, m, a, h, c, e, sh)
-        n0 = n0 * np.exp(hs / 6.0 * (k1n + 2.0 * k2n + 2.0 * k3n + k4n))
-        p0 = p0 * np.exp(hs / 6.0 * (k1p + 2.0 * k2p + 2.0 * k3p + k4p))
+        n0 = _xexp(n0, hs / 6.0 * (k1n + 2.0 * k2n + 2.0 * k3n + k4n))
+        p0 = _xexp(p0, hs / 6.0 * (k1p + 2.0 * k2p + 2.0 * k3p + k4p))
     return n0, p0
 
 

@@ -23,6 +23,41 @@ import numpy as np
 
 from preyscape.solve.stepper import Stepper
 
+FLOAT32_MAX = float(np.finfo(np.float32).max)
+"""Largest density a snapshot can hold (snapshots are float32), animals/km²."""
+
+
+class NonFiniteDensities(FloatingPointError):
+    """The densities stopped being finite (or outgrew what a snapshot can store).
+
+    Attributes
+    ----------
+    time : float
+        The save point where it was found, years.
+    species : str
+        ``"prey"``, ``"predator"`` or ``"prey or predator"``.
+    """
+
+    def __init__(self, time: float, species: str) -> None:
+        self.time = float(time)
+        self.species = species
+        super().__init__(f"{species} densities are no longer finite at t = {time:g} yr")
+
+
+def _not_finite(N: np.ndarray, P: np.ndarray, stats) -> str | None:
+    """Which species stopped being finite, or None.
+
+    A NaN that the positivity fix met turns its field to zeros and its
+    clipped total to NaN, so the total is checked as well.
+    """
+    for name, u in (("prey", N), ("predator", P)):
+        top = float(u.max())
+        if not (math.isfinite(top) and top <= FLOAT32_MAX):
+            return name
+    if stats is not None and not math.isfinite(stats.clipped):
+        return "prey or predator"
+    return None
+
 
 class Sink(Protocol):
     """Receives snapshots from :func:`integrate`."""
@@ -146,8 +181,9 @@ def integrate_epochs(
             # the index within the epoch decides the damped start steps
             stepper.advance(N, P, k - s0, per_save)
             t = (k + per_save) // per_save * save_every
-            if not (math.isfinite(float(N.max())) and math.isfinite(float(P.max()))):
-                raise FloatingPointError(f"densities are no longer finite at t = {t:g} yr")
+            bad = _not_finite(N, P, getattr(stepper, "stats", None))
+            if bad:
+                raise NonFiniteDensities(t, bad)
             sink.write(t, N, P)
             if checkpoint is not None:
                 checkpoint(k + per_save, N, P)
