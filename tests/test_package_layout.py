@@ -26,13 +26,13 @@ RANK = {
     "store": 4,
     "assemble": 5, "plots": 5,
     "analysis": 6,
-    "runfolder": 7,
+    "runfolder": 7, "ensemble": 7,
     "report": 8,
     "demo": 9,
     "cli": 10, "__main__": 11,
 }
 
-SIZE_CHECKED = ("analysis", "assemble", "runfolder", "report")
+SIZE_CHECKED = ("analysis", "assemble", "runfolder", "report", "ensemble")
 MAX_MODULE_LINES = 600
 MAX_FUNCTION_LINES = 80
 

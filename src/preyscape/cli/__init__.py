@@ -20,7 +20,7 @@ __all__ = ["CAUTION", "main"]
 
 def _parser() -> argparse.ArgumentParser:
     from preyscape import __version__
-    from preyscape.cli import analyse, check, run
+    from preyscape.cli import analyse, check, ensemble, run
 
     p = argparse.ArgumentParser(
         prog="preyscape",
@@ -29,7 +29,7 @@ def _parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--version", action="version", version=f"preyscape {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    for module in (run, check, analyse):
+    for module in (run, check, analyse, ensemble):
         module.add_parsers(sub)
     return p
 

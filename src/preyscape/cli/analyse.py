@@ -38,6 +38,8 @@ def add_parsers(sub) -> None:
     rp.add_argument("--out", type=Path, help="HTML file to write (default: RUN/report.html)")
     rp.add_argument("--overwrite", action="store_true", help="replace an existing report")
     rp.add_argument("--no-animation", action="store_true", help="leave out the animated GIF")
+    rp.add_argument("--ensemble", type=Path, metavar="DIR",
+                    help="add the uncertainty section of a finished 'preyscape ensemble' folder")
     rp.set_defaults(handler=report)
 
 
@@ -72,6 +74,6 @@ def report(args) -> int:
     from preyscape.report.run_report import write_report
 
     path = write_report(args.run, args.out, args.others, overwrite=args.overwrite,
-                        animate=not args.no_animation)
+                        animate=not args.no_animation, ensemble=args.ensemble)
     print(f"report: {path}")
     return 0
