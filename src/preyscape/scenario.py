@@ -396,7 +396,7 @@ _UNCERTAIN_KEYS = {
     "interaction": ("attack_rate", "handling_time", "efficiency", "interference"),
     "start": ("prey_density", "predator_density", "noise"),
 }
-_RELEASE_KEYS = ("density", "radius")
+_RELEASE_KEYS = ("density", "radius", "x", "y")
 _MEASURE_KEYS = ("permeability.prey", "permeability.predator", "protected_fraction",
                  *CORRIDOR_KEYS)
 _CLASS_KEYS = ("prey_capacity", "prey_growth", "prey_movement", "predator_mortality",
