@@ -216,7 +216,9 @@ def dask_client(scheduler: str | None = None, *, workers: int = 2, threads: int 
 
     if scheduler:
         try:
-            client = distributed.Client(scheduler, timeout="30s")
+            # the connect timeout is dask's (distributed.comm.timeouts.connect, 30 s)
+            client = distributed.Client(
+                scheduler, timeout=dask.config.get("distributed.comm.timeouts.connect"))
         except (OSError, TimeoutError, ValueError) as exc:
             raise InputError(f"cannot reach a dask scheduler at {scheduler!r} ({exc}); start "
                              "one (dask scheduler) or leave out --scheduler to use a local "
@@ -230,10 +232,14 @@ def dask_client(scheduler: str | None = None, *, workers: int = 2, threads: int 
            "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
     with dask.config.set({"distributed.scheduler.allowed-failures": 3,
                           "distributed.worker.daemon": False}):
+        # without a dashboard the scheduler still serves its health routes over HTTP:
+        # on 127.0.0.1 too, on a free port
+        web = ({"dashboard_address": "127.0.0.1:8787"} if dashboard else
+               {"dashboard": False, "dashboard_address": "127.0.0.1:0"})
         cluster = distributed.LocalCluster(
             n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
-            dashboard_address="127.0.0.1:8787" if dashboard else None,
-            silence_logs=logging.ERROR, env=env)
+            dashboard_address=None, scheduler_kwargs=web, silence_logs=logging.ERROR,
+            env=env)
         client = distributed.Client(cluster)
         try:
             yield client
