@@ -8,7 +8,10 @@ through the inverse distribution function of its parameter:
 ``"latin-hypercube"``
     :class:`scipy.stats.qmc.LatinHypercube` (McKay, Beckman & Conover 1979,
     Technometrics 21:239): every parameter's range is cut into ``members``
-    equally likely slices and each slice is used once.
+    equally likely slices and each slice is used once. Designs of up to
+    :data:`OPTIMISED_UP_TO` members are optimised for a low centred discrepancy
+    (``optimization="random-cd"``), which keeps small designs from having
+    strongly correlated columns.
 ``"sobol"``
     The Saltelli design of SALib (``SALib.sample.sobol.sample`` without
     second-order terms; Saltelli et al. 2010, Comput. Phys. Commun.
@@ -49,6 +52,10 @@ from preyscape.scenario import sobol_members_problem
 
 __all__ = ["Design", "Parameter", "REBUILDS", "member_seed", "parameters_of", "plan_design",
            "rebuild_of", "unit_design"]
+
+OPTIMISED_UP_TO = 1000
+"""Latin hypercubes of at most this many members are optimised for a low centred
+discrepancy (scipy's ``optimization="random-cd"``); larger ones are plain."""
 
 REBUILDS = ("nothing", "fields", "operators", "start")
 """What a member must rebuild from the variant's landscape when a key changes, cheapest
@@ -144,7 +151,11 @@ def unit_design(members: int, n_parameters: int, design: str, seed: int) -> np.n
     if design == "latin-hypercube":
         from scipy.stats import qmc
 
-        return qmc.LatinHypercube(n_parameters, rng=rng).random(members)
+        # random-cd: permutes within columns to lower the centred discrepancy, so small
+        # designs do not come out with strongly correlated columns (which leave PRCC
+        # undefined); it keeps the Latin hypercube property and grows slow past ~1000 points
+        opt = "random-cd" if members <= OPTIMISED_UP_TO and n_parameters > 1 else None
+        return qmc.LatinHypercube(n_parameters, rng=rng, optimization=opt).random(members)
     if design == "sobol":
         why = sobol_members_problem(members, n_parameters)
         if why:
