@@ -98,18 +98,21 @@ def interval_plot(rows: list[dict], columns: list[tuple[str, str, float]], title
     return _save(fig, path)
 
 
-def sensitivity_plot(parameters: list[str], panels: list[tuple[str, np.ndarray, np.ndarray]],
-                     title: str, path: Path, *, label: str = "PRCC",
-                     limits: tuple[float, float] = (-1.0, 1.0)) -> Path:
+def sensitivity_plot(parameters: list[str], panels: list[tuple], title: str, path: Path, *,
+                     label: str = "PRCC", limits: tuple[float, float] = (-1.0, 1.0),
+                     legend: tuple[str, str] | None = None) -> Path:
     """Horizontal bars of a sensitivity index per parameter, one panel per outcome.
 
     Parameters
     ----------
     parameters : list of str
         Parameter keys (bar labels).
-    panels : list of (str, numpy.ndarray, numpy.ndarray)
-        ``(outcome, values, marks)``: index per parameter and a boolean per
-        parameter drawn solid (True: significant, or total index) or hatched.
+    panels : list of tuple
+        ``(outcome, values, solid)`` or ``(outcome, values, solid, second)``: the
+        index per parameter, a boolean per parameter drawn solid (True) or
+        hatched, and optionally a second index drawn as a hatched bar below
+        the first (a total index beside a first-order one). NaN values are
+        marked "n/a".
     title : str
         Figure title.
     path : pathlib.Path
@@ -118,25 +121,43 @@ def sensitivity_plot(parameters: list[str], panels: list[tuple[str, np.ndarray, 
         Axis label (keyword only).
     limits : (float, float)
         Axis limits.
+    legend : (str, str), optional
+        Names of the first and second index, for a legend.
     """
     cols = min(3, max(len(panels), 1))
     rows = -(-len(panels) // cols) if panels else 1
-    fig = _figure(3.3 * cols + 1.5, 0.35 * len(parameters) * rows + 1.2 * rows + 0.6)
-    y = np.arange(len(parameters))[::-1]
-    for k, (outcome, values, marks) in enumerate(panels):
+    fig = _figure(3.4 * cols + 1.6, 0.42 * len(parameters) * rows + 1.2 * rows + 0.6)
+    y = np.arange(len(parameters))[::-1].astype(float)
+    for k, panel in enumerate(panels):
+        outcome, values, marks = panel[:3]
+        second = panel[3] if len(panel) > 3 else None
         ax = fig.add_subplot(rows, cols, k + 1)
-        vals = np.nan_to_num(np.asarray(values, dtype=float))
-        colours = ["#1f78b4" if v >= 0 else "#d95f02" for v in vals]
-        bars = ax.barh(y, vals, color=colours, edgecolor="#333333", linewidth=0.5)
+        h = 0.38 if second is not None else 0.7
+        vals = np.asarray(values, dtype=float)
+        shown = np.nan_to_num(vals)
+        colours = ["#1f78b4" if v >= 0 else "#d95f02" for v in shown]
+        bars = ax.barh(y + (h / 2 if second is not None else 0), shown, height=h,
+                       color=colours, edgecolor="#333333", linewidth=0.5,
+                       label=legend[0] if legend else None)
         for bar, solid in zip(bars, marks, strict=True):
             if not solid:
                 bar.set_alpha(0.35)
                 bar.set_hatch("///")
+        if second is not None:
+            ax.barh(y - h / 2, np.nan_to_num(np.asarray(second, dtype=float)), height=h,
+                    color="#a6cee3", edgecolor="#333333", linewidth=0.5, hatch="///",
+                    label=legend[1] if legend else None)
+        for yy, v in zip(y, vals, strict=True):
+            if not np.isfinite(v):
+                ax.text(0.02 * (limits[1] - limits[0]) + max(limits[0], 0.0), yy, "n/a",
+                        va="center", fontsize=7, color="#666666")
         ax.axvline(0.0, color="#999999", lw=0.8)
         ax.set_xlim(*limits)
         ax.set_yticks(y, parameters if k % cols == 0 else [""] * len(parameters), fontsize=7)
         ax.set_title(outcome, fontsize=8)
         ax.set_xlabel(label, fontsize=8)
         ax.tick_params(axis="x", labelsize=7)
+        if legend and k == 0:
+            ax.legend(fontsize=7, loc="lower right")
     fig.suptitle(title, fontsize=10)
     return _save(fig, path)

@@ -317,29 +317,30 @@ def _tables(tmp: Path, ds, s: Summaries, rank: list[dict], prcc_rows, sobol_rows
 
 
 def _sensitivity_figures(tmp: Path, keys: list[str], prcc_rows, sobol_rows):
+    """PRCC and Sobol' figures of the baseline's outcomes that vary across members."""
     files = []
     variant = prcc_rows[0]["variant"] if prcc_rows else None
+
+    def series(rows, outcome, name):
+        return np.array([r[name] for r in rows if r["variant"] == variant
+                         and r["outcome"] == outcome], dtype=float)
+
     outcomes = list(dict.fromkeys(r["outcome"] for r in prcc_rows if r["variant"] == variant))
-    if outcomes:
-        panels = []
-        for o in outcomes:
-            rows = [r for r in prcc_rows if r["variant"] == variant and r["outcome"] == o]
-            panels.append((o, np.array([r["prcc"] for r in rows]),
-                           np.array([r["p_value"] < _SIGNIFICANT for r in rows])))
-        title = f"PRCC of landscape outcomes ({variant}); hatched: p ≥ {_SIGNIFICANT}"
+    shown = [o for o in outcomes if np.isfinite(series(prcc_rows, o, "prcc")).any()]
+    left = "" if len(shown) == len(outcomes) else "; outcomes that do not vary are left out"
+    if shown:
+        panels = [(o, series(prcc_rows, o, "prcc"), series(prcc_rows, o, "p_value")
+                   < _SIGNIFICANT) for o in shown]
+        title = f"PRCC of landscape outcomes ({variant}); hatched: p ≥ {_SIGNIFICANT}{left}"
         figures.sensitivity_plot(keys, panels, title, tmp / "prcc.png")
         files.append(FileRecord("prcc.png", "figure", title, key="prcc"))
-    if sobol_rows:
-        panels = []
-        for o in outcomes:
-            rows = [r for r in sobol_rows if r["variant"] == variant and r["outcome"] == o]
-            panels.append((o + " (S1 solid, ST hatched)", np.array([r["S1"] for r in rows]),
-                           np.ones(len(rows), bool)))
-            panels.append((o + " total (ST)", np.array([r["ST"] for r in rows]),
-                           np.zeros(len(rows), bool)))
-        title = f"Sobol' indices of landscape outcomes ({variant})"
+    shown = [o for o in outcomes if np.isfinite(series(sobol_rows, o, "S1")).any()]
+    if sobol_rows and shown:
+        panels = [(o, series(sobol_rows, o, "S1"), np.ones(len(keys), bool),
+                   series(sobol_rows, o, "ST")) for o in shown]
+        title = f"Sobol' indices of landscape outcomes ({variant}){left}"
         figures.sensitivity_plot(keys, panels, title, tmp / "sobol.png", label="index",
-                                 limits=(0.0, 1.05))
+                                 limits=(0.0, 1.05), legend=("first order S1", "total ST"))
         files.append(FileRecord("sobol.png", "figure", title, key="sobol"))
     return files
 

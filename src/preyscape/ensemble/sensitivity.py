@@ -118,6 +118,10 @@ def sobol_indices(y: np.ndarray, n_parameters: int, *, seed: int = 0,
         return nan
     problem = {"num_vars": n_parameters, "names": [f"x{k}" for k in range(n_parameters)],
                "bounds": [[0.0, 1.0]] * n_parameters}
-    res = sobol.analyze(problem, y, calc_second_order=False, num_resamples=resamples,
-                        conf_level=0.95, print_to_console=False, seed=seed)
+    import warnings
+
+    with warnings.catch_warnings():  # SALib warns of outcomes constant in a sub-sample
+        warnings.simplefilter("ignore", UserWarning)
+        res = sobol.analyze(problem, y, calc_second_order=False, num_resamples=resamples,
+                            conf_level=0.95, print_to_console=False, seed=seed)
     return {k: np.asarray(res[k], dtype=float) for k in ("S1", "S1_conf", "ST", "ST_conf")}
