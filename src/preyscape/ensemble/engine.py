@@ -336,7 +336,8 @@ def _run_members(lands: dict, todo: list, design: Design, handle: Callable, *,
     futures = [client.submit(run_member, shared[v], m, design.member_values(m),
                              design.seeds[m], threads=threads, key=f"member-{v}-{m}-{token}",
                              pure=False, retries=1) for v, m in todo]
-    queue = distributed.as_completed(futures)
+    # the client's own loop: with several clients in a process the default one may differ
+    queue = distributed.as_completed(futures, loop=client.loop)
     del futures  # only the queue holds them: each is dropped once written
     for fut in queue:
         try:
