@@ -160,7 +160,7 @@ def test_a_failing_member_is_reported_and_the_others_are_stored(tmp_path):
     # a release drawn east of the landscape (it ends 3000 m east of X0) fails that member
     p = f'{{ key = "start.releases.0.x", range = [{X0 + 1000.0}, {X0 + 4000.0}] }}'
     scenario = ensemble_scenario(tmp_path / "s", members=4, parameters=(p,))
-    run = run_ensemble(scenario, tmp_path / "e", workers=2, progress=False, maps=False)
+    run = run_ensemble(scenario, tmp_path / "e", in_process=True, progress=False, maps=False)
     xs = plan_ensemble(scenario).design.values[:, 0]
     bad = sorted(m for m in range(4) if xs[m] >= X0 + 3000.0)
     assert bad and len(bad) < 4

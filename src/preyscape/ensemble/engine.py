@@ -263,24 +263,29 @@ def _prepare_folder(plan: EnsemblePlan, out: Path, overwrite: bool) -> MemberSto
             raise InputError("this folder holds an ensemble with other settings (scenario, "
                              "variants, members, design or seed); choose another --out or "
                              "pass --overwrite to replace it", str(out))
-        return store
-    if out.exists() and any(out.iterdir()):
-        raise InputError("folder exists and is not an ensemble folder; choose another with "
-                         "--out or pass --overwrite to replace it", str(out))
-    out.mkdir(parents=True, exist_ok=True)
-    d = plan.design
-    write_csv(out / PARAMETERS, ["member", "seed", *d.keys],
-              [[m, d.seeds[m], *(repr(float(x)) for x in d.values[m])]
-               for m in range(d.members)])
-    sc = plan.scenario
-    grid = _grid_of(sc)
-    attrs = {"plan": plan.digest, "title": sc.title or sc.path.stem,
-             "source": f"preyscape {__version__}", "design": d.design, "seed": d.seed,
-             "presence": plan.presence, "arrival_thresholds": json.dumps(plan.thresholds),
-             "species_names": json.dumps({"prey": sc.prey.name, "predator": sc.predator.name}),
-             "Conventions": "CF-1.8"}
-    return MemberStore.create(path, grid=grid, variants=list(plan.variants), design=d,
-                              times=plan.times, attrs=attrs)
+    else:
+        ours = {PARAMETERS, FAILURES, RECORD, "summary"}
+        if out.exists() and any(p.name not in ours and not p.name.startswith(".")
+                                for p in out.iterdir()):
+            raise InputError("folder exists and is not an ensemble folder; choose another "
+                             "with --out or pass --overwrite to replace it", str(out))
+        out.mkdir(parents=True, exist_ok=True)
+        sc = plan.scenario
+        attrs = {"plan": plan.digest, "title": sc.title or sc.path.stem,
+                 "source": f"preyscape {__version__}", "design": plan.design.design,
+                 "seed": plan.design.seed, "presence": plan.presence,
+                 "arrival_thresholds": json.dumps(plan.thresholds),
+                 "species_names": json.dumps({"prey": sc.prey.name,
+                                              "predator": sc.predator.name}),
+                 "Conventions": "CF-1.8"}
+        store = MemberStore.create(path, grid=_grid_of(sc), variants=list(plan.variants),
+                                   design=plan.design, times=plan.times, attrs=attrs)
+    if not (out / PARAMETERS).is_file():
+        d = plan.design
+        write_csv(out / PARAMETERS, ["member", "seed", *d.keys],
+                  [[m, d.seeds[m], *(repr(float(x)) for x in d.values[m])]
+                   for m in range(d.members)])
+    return store
 
 
 def _grid_of(sc: Scenario):
