@@ -381,13 +381,9 @@ class AnalysisSpec(_Strict):
     targets: tuple[Target, ...] = ()
 
 
-
 # ---------------------------------------------------------------------------
 # uncertainty: parameters drawn per ensemble member (docs/ensembles.md)
 # ---------------------------------------------------------------------------
-DESIGNS = ("latin-hypercube", "sobol")
-DISTRIBUTIONS = ("uniform", "log-uniform", "normal")
-
 # numeric keys an ensemble may draw, by section (the rest decide the grid, the time axis or
 # the analysis, which every member must share)
 _UNCERTAIN_KEYS = {

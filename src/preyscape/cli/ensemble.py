@@ -41,7 +41,8 @@ def add_parsers(sub) -> None:
                    help="run this variant besides the baseline (repeat for several; "
                    "default: uncertainty.variants, else every variant)")
     e.add_argument("--in-process", action="store_true",
-                   help="run the members one after another in this process, without dask")
+                   help="run the members one after another in this process, without dask "
+                   "(the kernels use every core)")
     e.add_argument("--dashboard", action="store_true",
                    help="serve the local cluster's dashboard on 127.0.0.1:8787")
     e.add_argument("--rank-by", default="prey_total_change", metavar="COLUMN",

@@ -330,9 +330,15 @@ def _run_members(lands: dict, todo: list, design: Design, handle: Callable, *,
                  client, threads: int, lost: list) -> None:
     """Run ``todo`` members on ``client`` (or in this process without one)."""
     if client is None:
-        for v, m in todo:
-            handle(run_member(lands[v], m, design.member_values(m), design.seeds[m],
-                              threads=threads))
+        import numba
+
+        before = numba.get_num_threads()
+        try:
+            for v, m in todo:
+                handle(run_member(lands[v], m, design.member_values(m), design.seeds[m],
+                                  threads=threads))
+        finally:
+            numba.set_num_threads(before)  # the setting is this thread's: put it back
         return
     import distributed
 
@@ -359,7 +365,8 @@ def _run_members(lands: dict, todo: list, design: Design, handle: Callable, *,
 def run_ensemble(scenario: Scenario | str | Path, out: str | Path, *,
                  members: int | None = None, variants: list[str] | None = None,
                  scheduler: str | None = None, workers: int | None = None,
-                 in_process: bool = False, threads: int = 1, dashboard: bool = False,
+                 in_process: bool = False, threads: int | None = None,
+                 dashboard: bool = False,
                  overwrite: bool = False, progress: bool | None = None,
                  on_stored: Callable | None = None, summarise: bool = True,
                  maps: bool = True, rank_by: str = "prey_total_change") -> EnsembleRun:
@@ -380,8 +387,9 @@ def run_ensemble(scenario: Scenario | str | Path, out: str | Path, *,
         Local cluster size (default: one per core, fewer if memory is short).
     in_process : bool
         Run the members one after another in this process (no dask).
-    threads : int
-        Kernel threads per member (default 1). In this process, 0 keeps numba's setting.
+    threads : int, optional
+        Kernel threads per member: default 1 on a cluster's workers, and
+        numba's own setting (every core) in this process.
     dashboard : bool
         Serve the local cluster's dashboard on 127.0.0.1:8787.
     overwrite : bool
@@ -433,15 +441,16 @@ def run_ensemble(scenario: Scenario | str | Path, out: str | Path, *,
             if in_process:
                 run.where = "in-process"
                 _run_members(lands, todo, plan.design, handle, client=None,
-                             threads=threads, lost=run.lost)
+                             threads=threads or 0, lost=run.lost)
             else:
                 mb = _member_memory_mb(next(iter(lands.values())))
                 n = workers or default_workers(mb)
-                with dask_client(scheduler, workers=n, threads=max(threads, 1),
+                k = max(threads or 1, 1)
+                with dask_client(scheduler, workers=n, threads=k,
                                  dashboard=dashboard) as client:
                     run.where = scheduler or f"local cluster of {n} worker processes"
                     _run_members(lands, todo, plan.design, handle, client=client,
-                                 threads=max(threads, 1), lost=run.lost)
+                                 threads=k, lost=run.lost)
     finally:
         if bar is not None:
             bar.close()
