@@ -317,28 +317,32 @@ def _tables(tmp: Path, ds, s: Summaries, rank: list[dict], prcc_rows, sobol_rows
 
 
 def _sensitivity_figures(tmp: Path, keys: list[str], prcc_rows, sobol_rows):
-    """PRCC and Sobol' figures of the baseline's outcomes that vary across members."""
-    files = []
-    variant = prcc_rows[0]["variant"] if prcc_rows else None
+    """PRCC and Sobol' figures: the baseline's outcomes and each alternative's changes.
 
-    def series(rows, outcome, name):
+    Outcomes that do not vary across members (all coefficients undefined) are left out.
+    """
+    files = []
+
+    def series(rows, variant, outcome, name):
         return np.array([r[name] for r in rows if r["variant"] == variant
                          and r["outcome"] == outcome], dtype=float)
 
-    outcomes = list(dict.fromkeys(r["outcome"] for r in prcc_rows if r["variant"] == variant))
-    shown = [o for o in outcomes if np.isfinite(series(prcc_rows, o, "prcc")).any()]
-    left = "" if len(shown) == len(outcomes) else "; outcomes that do not vary are left out"
+    base = prcc_rows[0]["variant"] if prcc_rows else None
+    pairs = list(dict.fromkeys((r["variant"], r["outcome"]) for r in prcc_rows
+                               if r["variant"] == base or r["outcome"].endswith("_change")))
+    shown = [(v, o) for v, o in pairs if np.isfinite(series(prcc_rows, v, o, "prcc")).any()]
+    left = "" if len(shown) == len(pairs) else "; outcomes that do not vary are left out"
     if shown:
-        panels = [(o, series(prcc_rows, o, "prcc"), series(prcc_rows, o, "p_value")
-                   < _SIGNIFICANT) for o in shown]
-        title = f"PRCC of landscape outcomes ({variant}); hatched: p ≥ {_SIGNIFICANT}{left}"
+        panels = [(f"{v}: {o}", series(prcc_rows, v, o, "prcc"),
+                   series(prcc_rows, v, o, "p_value") < _SIGNIFICANT) for v, o in shown]
+        title = f"PRCC of landscape outcomes; hatched: p ≥ {_SIGNIFICANT}{left}"
         figures.sensitivity_plot(keys, panels, title, tmp / "prcc.png")
         files.append(FileRecord("prcc.png", "figure", title, key="prcc"))
-    shown = [o for o in outcomes if np.isfinite(series(sobol_rows, o, "S1")).any()]
+    shown = [(v, o) for v, o in pairs if np.isfinite(series(sobol_rows, v, o, "S1")).any()]
     if sobol_rows and shown:
-        panels = [(o, series(sobol_rows, o, "S1"), np.ones(len(keys), bool),
-                   series(sobol_rows, o, "ST")) for o in shown]
-        title = f"Sobol' indices of landscape outcomes ({variant}){left}"
+        panels = [(f"{v}: {o}", series(sobol_rows, v, o, "S1"), np.ones(len(keys), bool),
+                   series(sobol_rows, v, o, "ST")) for v, o in shown]
+        title = "Sobol' indices of landscape outcomes" + left
         figures.sensitivity_plot(keys, panels, title, tmp / "sobol.png", label="index",
                                  limits=(0.0, 1.05), legend=("first order S1", "total ST"))
         files.append(FileRecord("sobol.png", "figure", title, key="sobol"))
