@@ -168,7 +168,10 @@ def main(argv=None) -> int:
                          "overhead": lambda: bench_overhead(tmp),
                          "memory": lambda: bench_memory(tmp)}[name]()
     res["machine"]["load_average_at_end"] = os.getloadavg()
-    args.json.write_text(json.dumps(res, indent=2) + "\n")
+    old = json.loads(args.json.read_text()) if args.json.is_file() else {}
+    for name in args.only.split(","):  # a subset keeps the other benchmarks' numbers
+        old[name] = {**res[name], "machine": res["machine"]}
+    args.json.write_text(json.dumps(old, indent=2) + "\n")
     print(f"written: {args.json}")
     return 0
 
