@@ -41,6 +41,10 @@ DOCTESTED = [
     "preyscape.analysis.effects_output",
     "preyscape.analysis.compare_output",
     "preyscape.report.run_report",
+    "preyscape.ensemble.design",
+    "preyscape.ensemble.store",
+    "preyscape.ensemble.summaries",
+    "preyscape.ensemble.sensitivity",
 ]
 
 

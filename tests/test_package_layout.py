@@ -27,13 +27,13 @@ RANK = {
     "assemble": 5, "plots": 5, "starter": 5,
     "preview": 6,
     "analysis": 6,
-    "runfolder": 7,
+    "runfolder": 7, "ensemble": 7,
     "report": 8,
     "demo": 9,
     "cli": 10, "__main__": 11,
 }
 
-SIZE_CHECKED = ("analysis", "assemble", "preview", "runfolder", "report")
+SIZE_CHECKED = ("analysis", "assemble", "preview", "runfolder", "report", "ensemble")
 MAX_MODULE_LINES = 600
 MAX_FUNCTION_LINES = 80
 

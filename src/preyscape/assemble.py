@@ -43,7 +43,8 @@ from preyscape.model.reactions import Interaction
 from preyscape.scenario import LARGEST, MeasureSpec, Scenario
 from preyscape.solve.stepper import Stepper, StepStats, auto_step
 
-__all__ = ["Epoch", "Setup", "check_variant_measures", "epoch_state", "interaction_of",
+__all__ = ["Epoch", "Setup", "check_variant_measures", "epoch_state", "initial_state",
+           "interaction_of", "time_step",
            "measure_epochs", "place_measures", "place_targets", "prepare"]
 
 Epoch = tuple[float, float, tuple[str, ...]]
@@ -203,8 +204,8 @@ def prepare(sc: Scenario, *, allow_large: bool = False) -> Setup:
                   N0=np.zeros((0, 0)), P0=np.zeros((0, 0)), dt=0.0, measures=measures,
                   epochs=epochs)
     fields, mv_n, mv_p, refuge = epoch_state(setup, epochs[0][2])
-    N0, P0 = _initial_state(sc, grid, fields)
-    dt = _step(sc, setup, fields, inter, P0)
+    N0, P0 = initial_state(sc, grid, fields)
+    dt = time_step(sc, setup, fields, inter, P0)
     setup = replace(setup, fields=fields, prey_movement=mv_n, predator_movement=mv_p,
                     refuge=refuge, N0=N0, P0=P0, dt=dt)
     if not allow_large:
@@ -212,7 +213,7 @@ def prepare(sc: Scenario, *, allow_large: bool = False) -> Setup:
     return setup
 
 
-def _initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray, np.ndarray]:
+def initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray, np.ndarray]:
     """Initial prey and predator densities, animals/km² (float64, C order, 0 off data)."""
     from preyscape.landscape.io import read_layer_onto
 
@@ -263,7 +264,7 @@ def _initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray
             np.ascontiguousarray(np.where(mask, P0, 0.0)))
 
 
-def _step(sc: Scenario, setup: Setup, fields: Fields, inter: Interaction,
+def time_step(sc: Scenario, setup: Setup, fields: Fields, inter: Interaction,
           P0: np.ndarray) -> float:
     """The time step, years: the scenario's, or the shortest any epoch needs."""
     if sc.run.step == "auto":

@@ -408,6 +408,96 @@ class AnalysisSpec(_Strict):
         return v
 
 
+# ---------------------------------------------------------------------------
+# uncertainty: parameters drawn per ensemble member (docs/ensembles.md)
+# ---------------------------------------------------------------------------
+# numeric keys an ensemble may draw, by section (the rest decide the grid, the time axis or
+# the analysis, which every member must share)
+_UNCERTAIN_KEYS = {
+    "prey": ("growth", "capacity", "diffusivity", "motility"),
+    "predator": ("mortality", "diffusivity", "motility"),
+    "interaction": ("attack_rate", "handling_time", "efficiency", "interference"),
+    "start": ("prey_density", "predator_density", "noise"),
+}
+_RELEASE_KEYS = ("density", "radius", "x", "y")
+_MEASURE_KEYS = ("permeability.prey", "permeability.predator", "protected_fraction",
+                 *CORRIDOR_KEYS)
+_CLASS_KEYS = ("prey_capacity", "prey_growth", "prey_movement", "predator_mortality",
+               "predator_movement")
+UNCERTAIN_KEY_FORMS = (
+    "'prey.growth' (and the other numbers of [prey], [predator], [interaction], [start])",
+    "'landscape.classes.<code>.prey_capacity' (a class multiplier)",
+    "'measures.<name>.permeability.predator' (a measure's value)",
+    "'start.releases.<index>.density'",
+)
+
+
+def sobol_members_problem(members: int, n_parameters: int) -> str | None:
+    """Why ``members`` does not fit a Saltelli/Sobol' design of ``n_parameters``, or None.
+
+    The design (SALib's ``sample.sobol`` without second-order terms) has
+    N·(D + 2) members for a base sample of N, and N should be a power of two.
+    """
+    per = n_parameters + 2
+    base = members // per
+    if members % per == 0 and base >= 2 and base & (base - 1) == 0:
+        return None
+    ok = [per * 2 ** k for k in range(1, 12)]
+    near = sorted(ok, key=lambda v: abs(v - members))[:2]
+    return (f"a Sobol' design of {n_parameters} parameters needs members = N x "
+            f"{per} with N a power of two (at least 2), such as {sorted(near)[0]} or "
+            f"{sorted(near)[1]}; got {members}")
+
+
+class UncertainParameter(_Strict):
+    """One ``[[uncertainty.parameters]]`` entry: a key, its range and its distribution."""
+
+    key: str = Field(min_length=1)
+    range: tuple[Coordinate, Coordinate]
+    distribution: Literal["uniform", "log-uniform", "normal"] = "uniform"
+    mean: Coordinate | None = None
+    sd: Positive | None = None
+
+    @model_validator(mode="after")
+    def _shape(self) -> UncertainParameter:
+        low, high = self.range
+        if not low < high:
+            raise ValueError(f"range must be [low, high] with low < high, not [{low:g}, "
+                             f"{high:g}]")
+        if self.distribution == "log-uniform" and low <= 0:
+            raise ValueError(f"a log-uniform range must be positive, not [{low:g}, {high:g}]")
+        normal = self.distribution == "normal"
+        if normal and (self.mean is None or self.sd is None):
+            raise ValueError("distribution = 'normal' needs 'mean' and 'sd' (the normal is "
+                             "truncated to the range)")
+        if not normal and (self.mean is not None or self.sd is not None):
+            raise ValueError("'mean' and 'sd' apply to distribution = 'normal' only")
+        return self
+
+
+class UncertaintySpec(_Strict):
+    """``[uncertainty]``: the parameters an ensemble draws, the design and its size."""
+
+    members: Annotated[int, Field(ge=2, le=100_000, strict=True)] = 32
+    design: Literal["latin-hypercube", "sobol"] = "latin-hypercube"
+    seed: StrictInt | None = None
+    variants: tuple[str, ...] = ()
+    agreement: Annotated[float, Field(gt=0.5, le=1, strict=True)] = 0.9
+    parameters: tuple[UncertainParameter, ...] = Field(min_length=1)
+
+    @model_validator(mode="after")
+    def _parameters(self) -> UncertaintySpec:
+        keys = [p.key for p in self.parameters]
+        dup = sorted({k for k in keys if keys.count(k) > 1})
+        if dup:
+            raise ValueError(f"parameter key '{dup[0]}' appears more than once")
+        if self.design == "sobol":
+            why = sobol_members_problem(self.members, len(self.parameters))
+            if why:
+                raise ValueError(f"members: {why}")
+        return self
+
+
 class Scenario(_Strict):
     """A whole scenario file.
 
@@ -428,6 +518,7 @@ class Scenario(_Strict):
     measures: tuple[MeasureSpec, ...] = ()
     variants: tuple[VariantSpec, ...] = ()
     analysis: AnalysisSpec = AnalysisSpec()
+    uncertainty: UncertaintySpec | None = None
     variant: str = BASELINE
     path: Path = Field(default=Path("scenario.toml"), exclude=True)
     raw: dict = Field(default_factory=dict, exclude=True, repr=False)
@@ -498,6 +589,62 @@ class Scenario(_Strict):
         if self.variant != BASELINE and self.variant not in vnames:
             raise ValueError(f"variant '{self.variant}' is not defined")
         return self
+
+    @model_validator(mode="after")
+    def _uncertainty(self) -> Scenario:
+        u = self.uncertainty
+        if u is None:
+            return self
+        names = self.variant_names()
+        for name in u.variants:
+            if name not in names:
+                near = difflib.get_close_matches(name, names, n=1, cutoff=0.5)
+                hint = f"; did you mean '{near[0]}'?" if near else ""
+                raise ValueError(f"uncertainty.variants: no variant named '{name}'{hint} "
+                                 f"Variants: {', '.join(names)}")
+        for k, p in enumerate(u.parameters):
+            where = f"uncertainty.parameters[{k}]"
+            why = uncertain_key_problem(p.key, self.raw or self.model_dump(mode="json"))
+            if why:
+                raise ValueError(f"{where}.key: {why}")
+            for v in self.variants:
+                if p.key in v.set:
+                    raise ValueError(f"{where}.key: variant '{v.name}' sets '{p.key}', which "
+                                     "is also uncertain; drop it from the variant's 'set' or "
+                                     "from [[uncertainty.parameters]]")
+            if self.raw:  # each end of the range must be a valid value of the key
+                for value in p.range:
+                    try:
+                        self.with_values({p.key: value})
+                    except InputError as exc:
+                        raise ValueError(f"{where}.range: {value:g} is not a valid value of "
+                                         f"'{p.key}': {exc.message}") from None
+        return self
+
+    def with_values(self, values: dict[str, Any]) -> Scenario:
+        """This scenario (same variant) with the dotted keys of ``values`` set.
+
+        Keys are those of ``[[uncertainty.parameters]]`` (``"prey.growth"``,
+        ``"landscape.classes.2.prey_capacity"``, ``"measures.<name>.permeability.prey"``,
+        ``"start.releases.0.density"``) or any other dotted key of the file
+        (``"run.seed"``). The result has no ``[uncertainty]`` section and is
+        validated again.
+
+        Raises
+        ------
+        InputError
+            For a key that names nothing or a value the key does not accept.
+        """
+        data = json.loads(json.dumps(self.raw)) if self.raw else self.model_dump(
+            mode="json", exclude_none=True)
+        data.pop("uncertainty", None)
+        for key, value in values.items():
+            try:
+                set_dotted(data, key, value)
+            except KeyError as exc:
+                raise InputError(exc.args[0], str(self.path)) from None
+        data["variant"] = self.variant
+        return parse_scenario(data, self.path, check_files=False)
 
     def measure(self, name: str) -> MeasureSpec:
         """The measure called ``name``."""
@@ -589,6 +736,109 @@ class Scenario(_Strict):
             key = "geometry" if t.geometry else "raster"
             out.append((f"analysis.targets[{k}].{key}", t.geometry or t.raster))
         return out
+
+
+def _dotted_target(data: dict, key: str) -> tuple[Any, str]:
+    """The container and last part of a dotted key (see :meth:`Scenario.with_values`).
+
+    Raises ``KeyError`` with a message when a part names nothing.
+    """
+    if key.startswith("landscape.classes."):
+        code, _, rest = key.removeprefix("landscape.classes.").partition(".")
+        rows = data.get("landscape", {}).get("classes", [])
+        row = next((r for r in rows if str(r.get("code")) == code), None)
+        if row is None or not rest:
+            codes = ", ".join(str(r.get("code")) for r in rows) or "none"
+            raise KeyError(f"'{key}': no habitat class with code {code} (codes: {codes}); "
+                           "write 'landscape.classes.<code>.<multiplier>'")
+        return row, rest
+    if key.startswith("measures."):
+        rest = key.removeprefix("measures.")
+        rows = data.get("measures", [])
+        # names may hold dots: the longest measure name that starts the rest
+        hits = sorted((m for m in rows if rest.startswith(str(m.get("name")) + ".")),
+                      key=lambda m: -len(str(m.get("name"))))
+        if not hits:
+            names = ", ".join(repr(m.get("name")) for m in rows) or "none"
+            raise KeyError(f"'{key}': no measure of that name (measures: {names}); write "
+                           "'measures.<name>.<key>'")
+        node, path = hits[0], rest[len(str(hits[0]["name"])) + 1:]
+    else:
+        node, path = data, key
+    *parents, last = path.split(".")
+    for part in parents:
+        if isinstance(node, list) and part.isdigit() and int(part) < len(node):
+            node = node[int(part)]
+        elif isinstance(node, dict) and isinstance(node.get(part), (dict, list)):
+            node = node[part]
+        elif isinstance(node, dict) and part not in node and part in ("permeability",):
+            node = node.setdefault(part, {})
+        else:
+            raise KeyError(f"'{key}' does not name a key of the scenario ('{part}' is not a "
+                           "section or list here)")
+    if not isinstance(node, dict):
+        raise KeyError(f"'{key}' does not name a key of the scenario")
+    return node, last
+
+
+def set_dotted(data: dict, key: str, value: Any) -> None:
+    """Set a dotted key in a scenario's data (as read from TOML), in place.
+
+    ``landscape.classes.<code>.<key>`` addresses a class by its code,
+    ``measures.<name>.<key>`` a measure by its name and
+    ``start.releases.<index>.<key>`` a release by its position.
+
+    Raises
+    ------
+    KeyError
+        With a message when the key names nothing.
+
+    Examples
+    --------
+    >>> d = {"prey": {"growth": 1.0}, "landscape": {"classes": [{"code": 4}]}}
+    >>> set_dotted(d, "landscape.classes.4.prey_capacity", 0.5)
+    >>> set_dotted(d, "prey.growth", 2.0)
+    >>> d["landscape"]["classes"][0]["prey_capacity"], d["prey"]["growth"]
+    (0.5, 2.0)
+    """
+    node, last = _dotted_target(data, key)
+    node[last] = value
+
+
+def uncertain_key_problem(key: str, data: dict) -> str | None:
+    """Why ``key`` cannot be an uncertain parameter of the scenario ``data``, or None."""
+    forms = "; ".join(UNCERTAIN_KEY_FORMS)
+    section, _, rest = key.partition(".")
+    if key.startswith("landscape.classes."):
+        allowed = rest.rpartition(".")[2] in _CLASS_KEYS and rest.count(".") == 2
+        what = "a class multiplier (" + ", ".join(_CLASS_KEYS) + ")"
+    elif key.startswith("start.releases."):
+        parts = rest.split(".")
+        allowed = len(parts) == 3 and parts[1].isdigit() and parts[2] in _RELEASE_KEYS
+        what = "a release's " + " or ".join(_RELEASE_KEYS)
+    elif section == "measures":
+        allowed = any(key.endswith("." + k) for k in _MEASURE_KEYS)
+        what = "a measure's " + ", ".join(_MEASURE_KEYS)
+    elif section in _UNCERTAIN_KEYS:
+        allowed = rest in _UNCERTAIN_KEYS[section]
+        what = f"one of {section}." + f", {section}.".join(_UNCERTAIN_KEYS[section])
+    elif section in ("run", "landscape", "analysis", "title", "notes", "variants"):
+        return (f"'{key}' cannot be uncertain: every member shares the grid, the run length "
+                "and the analysis settings (each member gets its own run.seed from "
+                f"uncertainty.seed). Uncertain keys are {forms}")
+    else:
+        return f"'{key}' is not a key an ensemble can draw; uncertain keys are {forms}"
+    if not allowed:
+        near = ""
+        if section in _UNCERTAIN_KEYS:
+            m = difflib.get_close_matches(rest, _UNCERTAIN_KEYS[section], n=1, cutoff=0.6)
+            near = f"; did you mean '{section}.{m[0]}'?" if m else ""
+        return f"'{key}' cannot be uncertain here{near} (it must be {what})"
+    try:
+        _dotted_target(json.loads(json.dumps(data)), key)
+    except KeyError as exc:
+        return exc.args[0]
+    return None
 
 
 # ---------------------------------------------------------------------------

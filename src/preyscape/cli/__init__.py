@@ -30,7 +30,7 @@ _ENVIRONMENT = {errno.ENOSPC, errno.EDQUOT, errno.EROFS, errno.EACCES, errno.EPE
 
 def _parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
     from preyscape import __version__
-    from preyscape.cli import analyse, check, landscape, run
+    from preyscape.cli import analyse, check, ensemble, landscape, run
 
     p = argparse.ArgumentParser(
         prog="preyscape",
@@ -39,7 +39,7 @@ def _parser(argv: list[str] | None = None) -> argparse.ArgumentParser:
     )
     p.add_argument("--version", action="version", version=f"preyscape {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    for module in (run, check, landscape):
+    for module in (run, check, landscape, ensemble):
         module.add_parsers(sub)
     analyse.add_parsers(sub, argv)
     return p

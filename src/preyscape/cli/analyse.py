@@ -51,6 +51,8 @@ def add_parsers(sub, argv: list[str] | None = None) -> None:
     rp.add_argument("--out", type=Path, help="HTML file to write (default: RUN/report.html)")
     rp.add_argument("--overwrite", action="store_true", help="replace an existing report")
     rp.add_argument("--no-animation", action="store_true", help="leave out the animated GIF")
+    rp.add_argument("--ensemble", type=Path, metavar="DIR",
+                    help="add the uncertainty section of a finished 'preyscape ensemble' folder")
     rp.set_defaults(handler=report)
 
 
@@ -126,7 +128,7 @@ def report(args) -> int:
         stale.unlink(missing_ok=True)
     try:
         path = write_report(args.run, args.out, args.others, overwrite=args.overwrite,
-                            animate=not args.no_animation)
+                            animate=not args.no_animation, ensemble=args.ensemble)
     except (OSError, RuntimeError, KeyError, ValueError) as exc:
         from preyscape.errors import PreyscapeError
 

@@ -252,7 +252,7 @@ def _analysis_parts(run, others, work: Path) -> list[Part]:
 
 def write_report(run_folder: str | Path, out: str | Path | None = None,
                  others: list[str | Path] | tuple = (), *, overwrite: bool = False,
-                 animate: bool = True) -> Path:
+                 animate: bool = True, ensemble: str | Path | None = None) -> Path:
     """Analyse a run (and compare it with others) into one self-contained HTML file.
 
     Parameters
@@ -267,6 +267,9 @@ def write_report(run_folder: str | Path, out: str | Path | None = None,
         Replace an existing report file.
     animate : bool
         Include the animated GIF of both species.
+    ensemble : str or pathlib.Path, optional
+        A finished ensemble folder (``preyscape ensemble``) whose uncertainty
+        section is added.
 
     Returns
     -------
@@ -300,6 +303,11 @@ def write_report(run_folder: str | Path, out: str | Path | None = None,
         _maps_section(rep, run, gif)
         for part in _analysis_parts(run, others, work):
             render_part(rep, part)
+        if ensemble is not None:  # the uncertainty section of an ensemble of this scenario
+            from preyscape.ensemble.output import open_ensemble
+
+            for part in open_ensemble(ensemble).report_parts():
+                render_part(rep, part)
         src = rep.section("Methods and sources")
         src.paragraph("preyscape solves reaction–diffusion equations for the densities of "
                       "both species on the habitat raster (Strang splitting of the local "
