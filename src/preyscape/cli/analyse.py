@@ -44,8 +44,10 @@ def add_parsers(sub) -> None:
 def analyse(args) -> int:
     """Run one registered analysis on the run folders given and print its summary."""
     from preyscape.analysis.commands import module_of
-    from preyscape.analysis.results import open_run
+    from preyscape.analysis.output import provenance
+    from preyscape.analysis.results import map_layers_of, open_run
     from preyscape.errors import InputError
+    from preyscape.plots import map_context
 
     mod = module_of(args.analysis)
     cmd = mod.COMMAND
@@ -59,7 +61,9 @@ def analyse(args) -> int:
         settings = runs[0].settings(overrides, spelled)
         inputs = {o.dest: getattr(args, o.dest) for o in cmd.options if not o.setting}
         out = args.out or mod.default_out(runs)
-        written = mod.write(runs, settings, out, overwrite=args.overwrite, **inputs)
+        # every map and GeoTIFF the writer makes names the run(s) and shows their measures
+        with map_context(**map_layers_of(runs)), provenance(**runs[0].provenance()):
+            written = mod.write(runs, settings, out, overwrite=args.overwrite, **inputs)
     finally:
         for r in runs:
             r.close()
