@@ -46,7 +46,10 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
         and ``report`` (the HTML file).
     """
     from preyscape.analysis.compare_output import write_comparison
+    from preyscape.analysis.output import provenance
+    from preyscape.analysis.results import map_layers_of, open_run
     from preyscape.analysis.settings import AnalysisSettings
+    from preyscape.plots import map_context
     from preyscape.report.run_report import write_report
     from preyscape.runfolder import simulate_variants
     from preyscape.store import output_folder, refuse_existing
@@ -67,8 +70,9 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
     for name in ("fence", "corridor"):
         if name in runs:
             say(f"comparing baseline with {name} ...")
-            done = write_comparison(runs["baseline"], runs[name], out / f"compare-{name}",
-                                    settings=settings)
+            with open_run(runs["baseline"]) as a, open_run(runs[name]) as b, \
+                    map_context(**map_layers_of([a, b])), provenance(**a.provenance()):
+                done = write_comparison(a, b, out / f"compare-{name}", settings=settings)
             comparisons[name] = done.folder
     say("writing the report ...")
     others = [runs[n] for n in ("fence", "corridor") if n in runs]

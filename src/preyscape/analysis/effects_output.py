@@ -183,8 +183,8 @@ class EffectsOutput(Written):
                 change = 100 * (io["mean_density"] - wo["mean_density"]) / wo["mean_density"]
                 out.append(f"The {r.name} holds {change:+.0f} % {self.names.get('prey', 'prey')} "
                            f"(prey) on average against the run without it "
-                           f"({io['mean_density']:.3g} against {wo['mean_density']:.3g} "
-                           "per km²).")
+                           f"({io['mean_density']:,.0f} against {wo['mean_density']:,.0f} "
+                           "per km²).".replace(",", " "))
         return out
 
 

@@ -318,6 +318,11 @@ def _summarise(run, res, name: str) -> SpeciesHotspots:
     grid = run.grid
     places = find_places(res.hot, res.mean, res.persistence, grid,
                          habitat=run.habitat if run.classes else None)
+    # a place smaller than a tenth of a neighbourhood is a speck of the band's edge, not a
+    # place to plan for: its cells stay hotspots, it is not listed (common practice, no
+    # source)
+    small = max(1, int(np.pi * (res.band_m / grid.dx) * (res.band_m / grid.dy) / 10))
+    places = tuple(p for p in places if p.cells >= small)
     bands = band_sensitivity(res.mean, grid.mask, grid.dx, grid.dy,
                              [res.band_m * f for f in BAND_FACTORS], res.hot, alpha=res.alpha,
                              floor_sd=res.floor_sd)

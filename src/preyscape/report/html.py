@@ -136,10 +136,13 @@ h3 { font-size: 1.1rem; margin: 1.2rem 0 .4rem; }
   header.top { padding-top: 0; }
   h2 { break-after: avoid; font-size: 14pt; }
   /* tables wrap instead of being cut: the full page width, small type, long words broken */
-  .scroll { overflow: visible; }
+  .scroll { overflow: visible; break-inside: avoid; }
   table { width: 100%; font-size: 8pt; }
-  th, td { padding: .15rem .3rem; overflow-wrap: anywhere; }
+  th, td { padding: .15rem .3rem; }
+  th { overflow-wrap: break-word; }
+  td { overflow-wrap: anywhere; }
   figure, .box, tr { break-inside: avoid; }
+  caption, thead { break-after: avoid; }
   figure img { max-width: 100%; max-height: 235mm; width: auto; height: auto;
     object-fit: contain; }
   a { color: inherit; text-decoration: none; }
