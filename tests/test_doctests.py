@@ -25,13 +25,18 @@ DOCTESTED = [
     "preyscape.analysis.output",
     "preyscape.analysis.commands",
     "preyscape.analysis.results",
+    "preyscape.analysis.gi_star",
     "preyscape.analysis.hotspots",
+    "preyscape.analysis.hotspot_places",
     "preyscape.analysis.compare",
     "preyscape.analysis.hotspots_output",
     "preyscape.analysis.waves_output",
     "preyscape.analysis.effects_output",
     "preyscape.analysis.compare_output",
+    "preyscape.plots",
+    "preyscape.plots.palettes",
     "preyscape.report.run_report",
+    "preyscape.report.summary",
 ]
 
 

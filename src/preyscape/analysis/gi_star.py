@@ -250,6 +250,14 @@ def getis_ord_gi_star(
         Gi* z-scores (dimensionless), NaN on excluded cells. A constant field
         (S = 0) gives 0 on every data cell, as does a cell whose band holds
         every data cell (W_i = n, where Gi* is 0/0).
+
+    Examples
+    --------
+    With a band shorter than a cell, Gi* is the standard score (x - 3) / √3.5:
+
+    >>> x = np.array([[1.0, 2.0], [3.0, 6.0]])
+    >>> getis_ord_gi_star(x, None, 10.0, 10.0, 5.0).round(3).tolist()
+    [[-1.069, -0.535], [0.0, 1.604]]
     """
     data = _data_mask(values, mask)
     return _GiStar(data, dx_m, dy_m, band_m, method)(np.asarray(values, dtype=np.float64))
