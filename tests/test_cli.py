@@ -410,3 +410,17 @@ def test_analysis_command_refuses_an_existing_out(variant_runs, command, tmp_pat
     else:
         assert [p.name for p in out.iterdir()] == ["keep.txt"]
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+
+
+def test_effects_with_nothing_to_measure_says_so(variant_runs, tmp_path, capsys):
+    # design requirement (issue 16): an analysis with nothing to measure says so and why;
+    # it is not an error (exit status 0), and its folder holds the record with the reason
+    out = tmp_path / "effects"
+    status = main(["effects", str(variant_runs["out"] / "no-refuge"), "--out", str(out)])
+    cap = capsys.readouterr()
+    assert status == 0, cap.err
+    assert "Nothing to measure: this run has no refuge" in cap.out
+    assert "no target patch" in cap.out and "no transect" in cap.out
+    rec = json.loads((out / "effects.json").read_text())
+    assert rec["note"].startswith("Nothing to measure")
+    assert sorted(p.name for p in out.iterdir()) == ["effects.json"]

@@ -5,7 +5,6 @@ from __future__ import annotations
 import itertools
 
 import numpy as np
-import pytest
 from PIL import Image
 from pyproj import CRS
 
@@ -96,7 +95,7 @@ def test_every_map_carries_the_standard(tmp_path):
                                   run="fence", undefined="never reached")
     plots._place_info(fig, fig._preyscape_map)
     text = _texts(fig)
-    assert "Prey density (animals per km²)" in text and "Run: fence" in text
+    assert "Prey density [animals per km²]" in text and "Run: fence" in text
     for item in ("fence: north fence", "refuge: fen refuge", "no habitat data",
                  "never reached"):
         assert item in text, item

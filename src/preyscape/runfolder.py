@@ -28,6 +28,7 @@ import numpy as np
 from preyscape import __version__, store
 from preyscape.assemble import Setup, check_variant_measures, place_targets, predictions, prepare
 from preyscape.landscape.grid import Grid
+from preyscape.landscape.placed import Outline
 from preyscape.names import slug
 from preyscape.scenario import Scenario, load_scenario
 from preyscape.solve.stepper import Stepper, StepStats
@@ -255,9 +256,13 @@ def _draw(run, maps: Path, vmax: dict, shared_with: tuple, plots) -> list[Path]:
             + (f", shared by the runs {', '.join(shared_with)}." if shared_with else
                " of this run."))
     out = []
-    with plots.map_context(**run.map_layers(), note=note):
-        out.append(plots.habitat_map(grid, run.habitat, run.classes, "Habitat and measures",
-                                     maps / "habitat.png", colours=run.class_colours))
+    layers = run.map_layers()
+    targets = [Outline(name, "target", (), cells, None) for name, cells in run.targets()]
+    with plots.map_context(**layers, note=note):
+        out.append(plots.habitat_map(grid, run.habitat, run.classes,
+                                     "Habitat, measures and target patches",
+                                     maps / "habitat.png", colours=run.class_colours,
+                                     outlines=[*layers["outlines"], *targets]))
         for sp in ("prey", "predator"):
             label = f"{sp} ({names[sp]})" if names[sp] != sp else sp
             out.append(plots.density_map(grid, run.time_mean(sp), f"Time-mean {label} density",

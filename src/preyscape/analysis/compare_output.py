@@ -289,7 +289,7 @@ def _write_maps(tmp: Path, grid, maps, names: dict, threshold: float) -> list[Fi
         files.append(FileRecord(f"{sp}_relative_change.tif", "raster",
                                 f"Relative change of time-mean {sp}, (B − A)/A", sp))
     change = maps["change"].values
-    write_raster(tmp / "change.tif", grid, change.astype(np.int8), nodata=-1, dtype="int8")
+    write_raster(tmp / "change.tif", grid, change.astype(np.int8), nodata=-1, dtype="int8", description="where the outcome changes (change class)", categories=CHANGE_LABELS, colours=CHANGE_COLOURS)  # noqa: E501
     change_map(grid, change, f"Change of the time mean by more than {threshold:.0%}",
                tmp / "change.png")
     files += [FileRecord("change.tif", "raster", "Where the outcome changes", key="change"),

@@ -181,10 +181,11 @@ class EffectsOutput(Written):
             wo = (r.regions["prey"]["inside_outside_without"] or {}).get("inside")
             if wo and wo.get("mean_density"):
                 change = 100 * (io["mean_density"] - wo["mean_density"]) / wo["mean_density"]
-                out.append(f"The {r.name} holds {change:+.0f} % {self.names.get('prey', 'prey')} "
-                           f"(prey) on average against the run without it "
-                           f"({io['mean_density']:,.0f} against {wo['mean_density']:,.0f} "
-                           "per km²).".replace(",", " "))
+                prey = self.names.get("prey", "prey")
+                out.append(f"Inside the {r.name}, {prey} (prey) average "
+                           f"{io['mean_density']:,.0f} per km² against {wo['mean_density']:,.0f} "
+                           f"in the run without it ({change:+.0f} %)."
+                           .replace(",", "\u2009"))
         return out
 
 
@@ -248,8 +249,9 @@ def _corridor_blocks(out: EffectsOutput) -> list:
             f"prey {_fmt(tr.net_animals['prey'], 'animals')}, predators "
             f"{_fmt(tr.net_animals['predator'], 'animals')} (positive: from its left to its "
             "right)"),)))
-        blocks.append(Figure(out.folder / tr.figure, f"Flows across {tr.name}",
-                             f"net flow of animals across {tr.name} against time"))
+        blocks.append(Figure(out.folder / tr.figure, f"Animals crossing the transect "
+                             f"'{tr.name}'", f"net flow of animals across '{tr.name}' against "
+                             "time"))
     return blocks
 
 
@@ -454,7 +456,8 @@ def _write_crossings(tmp: Path, run, settings: AnalysisSettings,
                      for t, f, c in zip(times, flow, total, strict=True)]
         fig = f"flux_{slug(tr.name)}.png"
         flux_plot(series, run.species_names, tr.name, tmp / fig)
-        files.append(FileRecord(fig, "figure", f"Flows across {tr.name}", key=tr.name))
+        files.append(FileRecord(fig, "figure", f"Animals crossing the transect '{tr.name}'",
+                                key=tr.name))
         out.append(CrossingRecord(tr.name, net, fig))
     if rows:
         write_csv(tmp / "flux.csv", ["transect", "species", "time_years",

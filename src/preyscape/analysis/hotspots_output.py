@@ -143,8 +143,8 @@ class HotspotsOutput(Written):
         for sp, d in self.species.items():
             lines.append(f"  {sp:<9} {d.hot_cells} hotspot cells ({d.hot_area_km2:.4g} km², "
                          f"{100 * d.hot_share_of_landscape:.1f} % of the landscape) in "
-                         f"{len(d.places)} places, {100 * d.hot_share_of_animals:.1f} % of "
-                         "the animals")
+                         f"{len(d.places)} place{'' if len(d.places) == 1 else 's'}, "
+                         f"{100 * d.hot_share_of_animals:.1f} % of the animals")
             if not d.hot_cells:
                 lines.append(f"            {_none_reason(d)}")
         return lines
@@ -179,9 +179,9 @@ def _headline(sp: str, d: SpeciesHotspots, classes: dict) -> str:
     n = len(d.places)
     text = (f"{who} is concentrated in {n} place{'s' if n > 1 else ''} covering "
             f"{100 * d.hot_share_of_landscape:.0f} % of the landscape ({d.hot_area_km2:.3g} km²) "
-            f"and holding {100 * d.hot_share_of_animals:.0f} % of the animals; the largest lies "
-            f"in the {big.where} ({big.area_km2:.3g} km²{hab}) at {big.ratio:.2g} times the "
-            "landscape's mean density.")
+            f"and holding {100 * d.hot_share_of_animals:.0f} % of the animals; "
+            f"{'the largest' if n > 1 else 'it'} lies in the {big.where} ({big.area_km2:.3g} "
+            f"km²{hab}) at {big.ratio:.2g} times the landscape's mean density.")
     if n == 1:
         return text + (" It stands out in at least half of the snapshots." if lasting else
                        " It stands out in fewer than half of the snapshots: it comes and goes "

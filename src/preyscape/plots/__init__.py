@@ -50,6 +50,7 @@ from __future__ import annotations
 
 import io
 import math
+import re
 import textwrap
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
@@ -402,10 +403,18 @@ def add_legend_items(fig: Figure, handles: Sequence) -> None:
     st.handles.extend(handles)
 
 
+def _unit(units: str) -> str:
+    """The unit in a colour-bar label: "arrival time (years); ..." -> "years"."""
+    first = units.split(";")[0].strip()
+    m = re.search(r"\(([^()]*)\)\s*$", first)
+    return m.group(1) if m else first
+
+
 def _title(title: str, units: str | None, run: str | None) -> str:
+    """The quantity with its unit in square brackets, then the run."""
     text = title
-    if units and units.split(";")[0] not in title:
-        text += f" ({units.split(';')[0].strip()})"
+    if units and _unit(units) not in title:
+        text += f" [{_unit(units)}]"
     text = "\n".join(textwrap.wrap(text, 62)) or text
     return text + (f"\nRun: {run}" if run else "")
 

@@ -96,7 +96,7 @@ def _fallback_headline(out, names: dict) -> str | None:
     if total and "no change" in cells:
         share = 100 * (total - cells["no change"]) / total
         text += (f"; the outcome changes by more than {rec['settings']['threshold']:.0%} on "
-                 f"{share:.0f} % of the landscape")
+                 f"{share:.2g} % of the landscape")
     return (text + ".").replace(",", " ") if text else None
 
 
