@@ -11,6 +11,7 @@ helper does the same before asking for the legend.
 from __future__ import annotations
 
 import ctypes
+import ctypes.util
 import glob
 import os
 from functools import cache
