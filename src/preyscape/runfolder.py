@@ -258,11 +258,12 @@ def _draw(run, maps: Path, vmax: dict, shared_with: tuple, plots) -> list[Path]:
     out = []
     layers = run.map_layers()
     targets = [Outline(name, "target", (), cells, None) for name, cells in run.targets()]
-    with plots.map_context(**layers, note=note):
+    with plots.map_context(**layers):
         out.append(plots.habitat_map(grid, run.habitat, run.classes,
                                      "Habitat, measures and target patches",
                                      maps / "habitat.png", colours=run.class_colours,
                                      outlines=[*layers["outlines"], *targets]))
+    with plots.map_context(**layers, note=note):
         for sp in ("prey", "predator"):
             label = f"{sp} ({names[sp]})" if names[sp] != sp else sp
             out.append(plots.density_map(grid, run.time_mean(sp), f"Time-mean {label} density",
