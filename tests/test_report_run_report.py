@@ -183,6 +183,7 @@ def test_report_is_read_by_a_planner_first(made):
     assert not [w for w in JARGON if w in text], [w for w in JARGON if w in text]
     assert "a sentence on how sure." in text
     assert "no-refuge" in text and "removes the fen refuge" in text
+    assert "inside the fen refuge, " in text and "in the run without it" in text
     # the model part explains what the summary leaves out
     model = html.unescape(_section(doc, "model")).lower()
     for w in ("hopf capacity", "holling", "fickian", "fisher–kpp"):

@@ -182,10 +182,10 @@ class EffectsOutput(Written):
             if wo and wo.get("mean_density"):
                 change = 100 * (io["mean_density"] - wo["mean_density"]) / wo["mean_density"]
                 prey = self.names.get("prey", "prey")
-                out.append(f"Inside the {r.name}, {prey} (prey) average "
-                           f"{io['mean_density']:,.0f} per km² against {wo['mean_density']:,.0f} "
-                           f"in the run without it ({change:+.0f} %)."
-                           .replace(",", "\u2009"))
+                a, b = (f"{v:,.0f}".replace(",", "\u2009")  # thin space in thousands
+                        for v in (io["mean_density"], wo["mean_density"]))
+                out.append(f"Inside the {r.name}, {prey} (prey) average {a} per km² against "
+                           f"{b} in the run without it ({change:+.0f} %).")
         return out
 
 
