@@ -1,4 +1,5 @@
-"""Hotspot analysis: Gi* against esda, FDR, persistence, kernels and the product."""
+"""Hotspot analysis: Gi* against esda, FDR, the effect-size floor, persistence, places,
+kernels and the product (GeoTIFF legends read back through GDAL)."""
 
 from __future__ import annotations
 
@@ -11,8 +12,11 @@ import rasterio
 import scipy.stats
 import xarray as xr
 from conftest import write_run_record
+from gdal_pam import legend
 
+from preyscape.analysis.hotspot_places import band_sensitivity, compass, find_places
 from preyscape.analysis.hotspots import (
+    CLASS_NODATA,
     default_band_m,
     distance_band_kernel,
     fdr_significant,
@@ -221,12 +225,20 @@ def test_hotspots_of_run(tmp_path):
     assert res.snapshots == 4 and res.band_m == 150.0
     assert res.classes[6, 16] == 1 and bool(res.hot[6, 16])
     assert res.persistence[6, 16] == 1.0
-    assert res.classes[0, 0] == -128 and not grid.mask[0, 0]
+    assert res.classes[0, 0] == CLASS_NODATA == 255 and not grid.mask[0, 0]
     assert np.isnan(res.persistence[0, 0])
+    # the effect is the neighbourhood mean's excess in landscape standard deviations
+    d = res.data
+    assert res.landscape_mean == pytest.approx(res.mean[d].mean())
+    assert res.landscape_sd == pytest.approx(res.mean[d].std())
+    # ratio = neighbourhood mean / landscape mean, >= 1 + floor * S / mean on hotspots
+    assert (res.ratio[res.hot] >= 1 + res.landscape_sd / res.landscape_mean - 1e-9).all()
 
 
 def test_write_hotspots_product(tmp_path):
-    # Design requirement: files exist, the planted bump is classed hot in the GeoTIFF.
+    # Design requirement: files exist, the planted bump is classed hot in the GeoTIFF, and
+    # every raster explains itself in a GIS (band description, units, source run, and for
+    # the class raster the category names and attribute table, read back through GDAL).
     grid = _write_run(tmp_path / "run")
     out = tmp_path / "hot"
     summary = write_hotspots(tmp_path / "run", out,
@@ -234,24 +246,43 @@ def test_write_hotspots_product(tmp_path):
     for sp in ("prey", "predator"):
         for f in (f"{sp}_gi_star.tif", f"{sp}_hotspot_class.tif",
                   f"{sp}_hotspot_persistence.tif", f"{sp}_hotspots.png",
-                  f"{sp}_hotspot_persistence.png"):
+                  f"{sp}_hotspot_persistence.png", f"{sp}_gi_star.png"):
             assert (out / f).is_file(), f
         with rasterio.open(out / f"{sp}_hotspot_class.tif") as src:
             cls = src.read(1)
-            assert src.nodata == -128 and src.dtypes[0] == "int8"
-        assert cls[6, 16] == 1 and cls[0, 0] == -128
+            assert src.nodata == 255 and src.dtypes[0] == "uint8"
+            assert src.descriptions[0].startswith("hotspot class of")
+            assert src.units[0] == "class code"
+            assert f"{sp}_hotspot_class.tif.aux.xml" in {p.rsplit("/", 1)[-1] for p in src.files}
+        names, rows = legend(out / f"{sp}_hotspot_class.tif")
+        assert names == ["neither", "hotspot", "coldspot"]
+        assert [(r["value"], r["class"]) for r in rows] == [
+            ("0", "neither"), ("1", "hotspot"), ("2", "coldspot")]
+        with rasterio.open(out / f"{sp}_gi_star.tif") as src:
+            assert "Gi* z-score" in src.descriptions[0] and src.units[0] == "z-score"
+        assert cls[6, 16] == 1 and cls[0, 0] == 255
         s = summary.species[sp]
         assert s.n_cells == grid.n_cells and s.hot_cells > 0
         assert s.hot_area_km2 == pytest.approx(s.hot_cells * 0.0025)
         assert 0 < s.hot_share_of_animals < 1
+        assert s.places and s.places[0].cells == s.hot_cells  # one bump, one place
+        assert [b.band_m for b in s.bands] == [75.0, 300.0]
     assert summary.band_m == 150.0
     maps = [f.name for f in summary.files if f.role == "map"]
-    assert all((out / p).is_file() for p in maps) and len(maps) == 4
+    assert all((out / p).is_file() for p in maps) and len(maps) == 6
     assert all((out / f.name).is_file() for f in summary.files)
+    # every GeoTIFF has a picture of its own
+    for tif in out.glob("*.tif"):
+        stem = tif.stem.replace("_hotspot_class", "_hotspots")
+        assert (out / f"{stem}.png").is_file(), tif.name
     with open(out / "hotspots.csv") as fh:
         rows = list(csv.DictReader(fh))
     assert [r["species"] for r in rows] == ["prey", "predator"]
     assert int(rows[0]["hot_cells"]) == summary.species["prey"].hot_cells
+    with open(out / "hotspot_places.csv") as fh:
+        places = list(csv.DictReader(fh))
+    assert places[0]["place"] == "1" and places[0]["where"] == "north-east"
+    assert summary.headlines() and "north-east" in summary.headlines()[0]
     with pytest.raises(InputError, match="already exists"):
         write_hotspots(tmp_path / "run", out)
     with pytest.raises(FileProblem, match="not a finished run folder"):
@@ -260,3 +291,89 @@ def test_write_hotspots_product(tmp_path):
         write_hotspots(tmp_path / "run", tmp_path / "hot3",
                        settings=AnalysisSettings(hotspot_distance=-5.0))
     assert not (tmp_path / "hot2").exists() and not (tmp_path / "hot3").exists()
+
+
+# --- the effect-size floor: a case where the answer is known -------------------------------
+def _neighbourhood_mean(values: np.ndarray, h: float, band: float) -> np.ndarray:
+    """Brute force: the mean of every cell's band (self included), independent of ours."""
+    ny, nx = values.shape
+    out = np.empty_like(values)
+    for i in range(ny):
+        for j in range(nx):
+            yy, xx = np.mgrid[0:ny, 0:nx]
+            near = np.hypot((yy - i) * h, (xx - j) * h) <= band * (1 + 1e-9)
+            out[i, j] = values[near].mean()
+    return out
+
+
+def test_floor_singles_out_the_planted_place_on_a_smooth_field():
+    # Known answer: a smooth, autocorrelated field (a gentle ramp) with one planted bump.
+    # Plain Gi* with the FDR marks a large share of the ramp (the issue with smooth model
+    # fields); with the floor only cells whose neighbourhood mean is at least one landscape
+    # standard deviation above the mean remain (Santora & Veit 2013, Mar Ecol Prog Ser
+    # 487:287), which is the bump. The expected set is computed by brute force.
+    h, band = 10.0, 30.0
+    yy, xx = np.mgrid[0:30, 0:30]
+    field = 100.0 + 1.0 * xx + 120.0 * np.exp(-((yy - 8) ** 2 + (xx - 22) ** 2) / 8.0)
+    res = hotspots(field, None, h, h, band)
+    m = _neighbourhood_mean(field, h, band)
+    expected = res["significant_hot"] & (m >= field.mean() + field.std())
+    np.testing.assert_array_equal(res["hot"], expected)
+    np.testing.assert_allclose(res["effect"], (m - field.mean()) / field.std(), rtol=1e-9)
+    assert res["significant_hot"].mean() > 0.2  # plain Gi*: a quarter of the landscape
+    assert 0 < res["hot"].mean() < res["significant_hot"].mean() / 2.5  # the floor: the bump
+    far = np.hypot(yy - 8, xx - 22) > 6
+    assert not res["hot"][far].any()  # only the bump
+
+
+def test_effect_of_a_plane_does_not_depend_on_the_band():
+    # Textbook: the mean of a plane over a neighbourhood symmetric about a cell is the
+    # plane's value there, so away from the edges the standardised excess (m_i - xbar)/S is
+    # (x_i - xbar)/S whatever the band, while the Gi* z-score grows with it (about as
+    # sqrt(W_i)). This is why the floor, unlike significance, changes little with the band.
+    yy, xx = np.mgrid[0:40, 0:40]
+    plane = 50.0 + 2.0 * xx + 1.0 * yy
+    inner = (slice(8, 32), slice(8, 32))
+    target = ((plane - plane.mean()) / plane.std())[inner]
+    zs = []
+    for band in (15.0, 40.0, 75.0):
+        res = hotspots(plane, None, 10.0, 10.0, band)
+        np.testing.assert_allclose(res["effect"][inner], target, atol=1e-9)
+        zs.append(np.abs(res["z"][inner]).max())
+    assert zs[0] < zs[1] < zs[2]
+
+
+def test_floor_zero_is_plain_gi_star():
+    # Design requirement: floor_sd = 0 gives exactly the FDR-significant cells.
+    values, mask = _field()
+    res = hotspots(values, mask, DX, DY, BAND, floor_sd=0.0)
+    np.testing.assert_array_equal(res["hot"], res["significant_hot"])
+    np.testing.assert_array_equal(res["cold"], res["significant_cold"])
+
+
+def test_places_compass_and_band_checks():
+    # Design requirement: touching hotspot cells (diagonals included) form one place,
+    # numbered by size; where it lies is the ninth of the map it falls in.
+    from preyscape.landscape.grid import Grid
+
+    grid = Grid((30, 30), 0.0, 3000.0, 100.0, 100.0)
+    hot = np.zeros((30, 30), dtype=bool)
+    hot[2:6, 24:29] = True  # 20 cells, north-east
+    hot[25, 1] = hot[26, 2] = True  # diagonal neighbours: one place, south-west
+    mean = np.where(hot, 300.0, 100.0)
+    pers = np.where(hot, 0.75, 0.0)
+    places = find_places(hot, mean, pers, grid)
+    assert [(p.number, p.cells, p.where) for p in places] == [
+        (1, 20, "north-east"), (2, 2, "south-west")]
+    xbar = mean.mean()
+    assert places[0].ratio == pytest.approx(300.0 / xbar)
+    assert places[0].persistence == pytest.approx(0.75)
+    assert places[0].area_km2 == pytest.approx(0.2)
+    assert places[0].share_of_animals == pytest.approx(20 * 300.0 / mean.sum())
+    assert compass(grid, 15, 15) == "centre" and compass(grid, 0, 29) == "north-east"
+    assert find_places(np.zeros((30, 30), bool), mean, None, grid) == ()
+    # the same band gives the same hotspots: overlap 1
+    values, mask = _field()
+    ref = hotspots(values, mask, DX, DY, BAND)["hot"]
+    (same,) = band_sensitivity(values, mask, DX, DY, [BAND], ref)
+    assert same.overlap == 1.0 and same.hot_cells == int(ref.sum())

@@ -541,3 +541,17 @@ def test_sigterm_ends_a_command_like_ctrl_c(scenario_path, tmp_path, capsys, mon
     assert status == 143 and err.startswith("preyscape: interrupted (SIGTERM): ")
     assert "Traceback" not in err and not (tmp_path / "runs").exists()
     assert signal.getsignal(signal.SIGTERM) is signal.SIG_DFL  # restored afterwards
+
+
+def test_effects_with_nothing_to_measure_says_so(variant_runs, tmp_path, capsys):
+    # design requirement (issue 16): an analysis with nothing to measure says so and why;
+    # it is not an error (exit status 0), and its folder holds the record with the reason
+    out = tmp_path / "effects"
+    status = main(["effects", str(variant_runs["out"] / "no-refuge"), "--out", str(out)])
+    cap = capsys.readouterr()
+    assert status == 0, cap.err
+    assert "Nothing to measure: this run has no refuge" in cap.out
+    assert "no target patch" in cap.out and "no transect" in cap.out
+    rec = json.loads((out / "effects.json").read_text())
+    assert rec["note"].startswith("Nothing to measure")
+    assert sorted(p.name for p in out.iterdir()) == ["effects.json"]

@@ -208,3 +208,30 @@ def test_check_of_three_fence_alignments_names_the_leaky_one():
     assert "Fence 'eastfield short' is meant to stop predators (least weasel)" in lines[0]
     assert "from the landscape edge" in lines[0]
     assert sum("separates the landscape into" in ln for ln in stdout.splitlines()) == 2
+
+
+def test_demo_hotspots_single_out_a_minority_and_hardly_move_with_the_band(demo, tmp_path):
+    # design requirement (issue 16): on the demo, plain Gi* with the FDR marks almost the
+    # whole landscape; with the effect-size floor the hotspots cover a minority of it, and
+    # halving or doubling the distance band changes them little (share within 5 points,
+    # most cells shared: Jaccard overlap above 0.6)
+    from preyscape.analysis.hotspots_output import write_hotspots
+
+    out = write_hotspots(demo["out"] / "baseline", tmp_path / "hotspots")
+    for sp, d in out.species.items():
+        assert 0 < d.hot_share_of_landscape < 0.25, sp
+        assert d.significant_hot_cells > 3 * d.hot_cells, sp
+        assert d.places and d.places[0].ratio > 1.2, sp
+        assert [b.band_m for b in d.bands] == [250.0, 1000.0]
+        for b in d.bands:
+            assert abs(b.share - d.hot_share_of_landscape) < 0.05, (sp, b)
+            assert b.overlap > 0.6, (sp, b)
+
+
+def test_demo_report_opens_with_the_summary_and_stays_small(demo):
+    # design requirement (issue 16): summary first, under 5 MB with its alternatives
+    path = demo["out"] / "report.html"
+    doc = path.read_text(encoding="utf-8")
+    assert doc.index('id="summary"') < doc.index('id="alternatives"') \
+        < doc.index('id="cautions"') < doc.index('id="maps"') < doc.index('id="model"')
+    assert path.stat().st_size < 5_000_000

@@ -30,8 +30,10 @@ DOCTESTED = [
     "preyscape.analysis.output",
     "preyscape.analysis.commands",
     "preyscape.analysis.results",
+    "preyscape.analysis.gi_star",
     "preyscape.analysis.hotspots",
     "preyscape.analysis.change",
+    "preyscape.analysis.hotspot_places",
     "preyscape.analysis.compare",
     "preyscape.analysis.ranking",
     "preyscape.analysis.compare_report",
@@ -40,11 +42,14 @@ DOCTESTED = [
     "preyscape.analysis.waves_output",
     "preyscape.analysis.effects_output",
     "preyscape.analysis.compare_output",
+    "preyscape.plots",
+    "preyscape.plots.palettes",
     "preyscape.report.run_report",
     "preyscape.ensemble.design",
     "preyscape.ensemble.store",
     "preyscape.ensemble.summaries",
     "preyscape.ensemble.sensitivity",
+    "preyscape.report.summary",
 ]
 
 

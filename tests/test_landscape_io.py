@@ -468,3 +468,57 @@ def test_read_layer_onto_other_crs(tmp_path: Path) -> None:
     )
     out = read_layer_onto(path, grid)
     np.testing.assert_allclose(out, 0.7, rtol=1e-12)
+
+
+def test_write_geotiff_explains_itself_in_a_gis(tmp_path: Path) -> None:
+    # Design requirement (issue 16): band description, units and tags are in the file; a
+    # class raster carries GDAL category names and a raster attribute table in its PAM
+    # sidecar, read back through GDAL itself (tests/gdal_pam.py), and a uint8 one a
+    # colour table.
+    from gdal_pam import legend
+
+    grid = Grid((4, 5), X0, Y0, 10.0, 10.0, CRS.from_string(UTM).to_wkt())
+    cls = np.array([[0, 1, 2, 255, 0]] * 4, dtype=np.uint8)
+    path = tmp_path / "cls.tif"
+    write_geotiff(path, grid, cls, nodata=255, dtype="uint8", description="hotspot class",
+                  units="class code", tags={"source_run": "fence"},
+                  categories={0: "neither", 1: "hotspot", 2: "coldspot & <edge>"},
+                  colours={0: "#f0f0f0", 1: "#b2182b", 2: "steelblue"})
+    with rasterio.open(path) as ds:
+        assert ds.descriptions == ("hotspot class",)
+        assert ds.units == ("class code",)
+        assert ds.tags()["source_run"] == "fence"
+        assert ds.colormap(1)[2][:3] == (70, 130, 180)  # steelblue (CSS)
+        assert {Path(f).name for f in ds.files} == {"cls.tif", "cls.tif.aux.xml"}
+    names, rows = legend(path)
+    assert names == ["neither", "hotspot", "coldspot & <edge>"]
+    assert [(r["value"], r["class"], r["red"]) for r in rows] == [
+        ("0", "neither", "240"), ("1", "hotspot", "178"), ("2", "coldspot & <edge>", "70")]
+    # negative codes (int8 with -1 no data) get the attribute table only: category names
+    # are indexed from 0
+    neg = tmp_path / "neg.tif"
+    write_geotiff(neg, grid, np.zeros((4, 5), np.int8), nodata=-1, dtype="int8",
+                  categories={-1: "no data", 0: "no change"})
+    assert legend(neg) == ([], [{"value": "-1", "class": "no data"},
+                                {"value": "0", "class": "no change"}])
+    # rewritten without categories, the old legend goes too
+    write_geotiff(path, grid, cls, nodata=255, dtype="uint8")
+    assert not (tmp_path / "cls.tif.aux.xml").exists() and legend(path) == ([], [])
+
+
+def test_large_rasters_are_cloud_optimised(tmp_path: Path) -> None:
+    # Design requirement (issue 16): over a million cells, GDAL's COG layout (tiles of
+    # 512 x 512 and overviews) with the metadata kept; small rasters stay plain GeoTIFFs.
+    grid = Grid((1001, 1000), X0, Y0, 10.0, 10.0, CRS.from_string(UTM).to_wkt())
+    a = np.arange(1001 * 1000, dtype=np.float32).reshape(1001, 1000)
+    write_geotiff(tmp_path / "big.tif", grid, a, description="big", units="m")
+    with rasterio.open(tmp_path / "big.tif") as ds:
+        assert ds.tags(ns="IMAGE_STRUCTURE")["LAYOUT"] == "COG"
+        assert ds.block_shapes == [(512, 512)]
+        assert ds.overviews(1)  # at least one overview level
+        assert ds.descriptions == ("big",) and ds.units == ("m",)
+        np.testing.assert_array_equal(ds.read(1), a)
+    small = Grid((10, 10), X0, Y0, 10.0, 10.0, CRS.from_string(UTM).to_wkt())
+    write_geotiff(tmp_path / "small.tif", small, np.zeros((10, 10)))
+    with rasterio.open(tmp_path / "small.tif") as ds:
+        assert "LAYOUT" not in ds.tags(ns="IMAGE_STRUCTURE")

@@ -61,6 +61,8 @@ def build(folder: Path) -> Report:
     line = folder / "totals.png"
     line.write_bytes(png_bytes("line"))
     rep = Report(f"Report {SCRIPT}", f"subtitle {IMG} {AMP}", generated=WHEN)
+    m = rep.section("How it works", place="method")
+    m.paragraph("Equations come last.")
     s = rep.section("Run settings")
     s.facts([("time step", "0.0104 yr"), ("cells with data", 160000),
              (f"label {SCRIPT}", f"value {IMG}")])
@@ -78,6 +80,9 @@ def build(folder: Path) -> Report:
     f.figure(png_bytes("map"), "A map", alt=f"map {SCRIPT}")
     f.figure(gif_bytes(), "An animation", alt="two coloured frames")
     f.caution(f"caution {SCRIPT} {AMP}")
+    a = rep.section("The answer", place="answer")
+    a.paragraph("The ranking comes second.")
+    rep.section("Summary", place="summary").paragraph(f"The summary comes first {AMP}.")
     return rep
 
 
@@ -148,12 +153,18 @@ def test_document_is_self_contained(page):
     assert (imgs[0]["width"], imgs[0]["height"]) == (str(png.width), str(png.height))
 
 
-def test_cautions_come_first_and_toc_links_every_section(page):
-    # design requirement: the standard cautions are always near the top
+def test_sections_follow_their_place_and_cautions_come_before_details(page):
+    # design requirement: summary, answer, the cautions, then details and methods, whatever
+    # order the sections were made in; within a place, the order they were made in
     _, doc = page
     for c in CAUTIONS:
         assert html.escape(c) in doc
-    assert doc.index('id="cautions"') < doc.index('id="contents-h"') < doc.index('<main')
+    order = [doc.index(f'id="{a}"') for a in ("summary", "the-answer", "cautions",
+                                               "contents-h", "run-settings",
+                                               "densities-fox-hare-moor", "how-it-works")]
+    assert order == sorted(order)
+    with pytest.raises(ValueError, match="place must be one of"):
+        Report("x").section("y", place="appendix")
     ids = set(re.findall(r'\sid="([^"]+)"', doc))
     links = re.findall(r'href="#([^"]+)"', doc)
     assert {"cautions", "run-settings", "densities-fox-hare-moor"} <= set(links)
@@ -165,13 +176,14 @@ def test_cautions_come_first_and_toc_links_every_section(page):
 def test_numbers_are_formatted_and_right_aligned(page):
     # design requirement: 4 significant digits by default, integers in full
     _, doc = page
-    assert '<td class="num">412.7</td>' in doc
-    assert '<td class="num">0.0001235</td>' in doc
-    assert '<td class="num">100</td>' in doc and '<td class="num">25</td>' in doc
-    assert '<td class="num">n/a</td>' in doc
+    cell = '<td class="num" data-label="{}">{}</td>'.format
+    assert cell("mean density (animals per km²)", "412.7") in doc
+    assert cell("mean density (animals per km²)", "0.0001235") in doc
+    assert cell("area (km²)", "100") in doc and cell("area (km²)", "25") in doc
+    assert cell("mean density (animals per km²)", "n/a") in doc
     assert '<th scope="col" class="num">area (km²)</th>' in doc
     assert '<th scope="col">species</th>' in doc
-    assert "<td>yes</td>" in doc and "<td>no</td>" in doc
+    assert '<td data-label="flag">yes</td>' in doc and '<td data-label="flag">no</td>' in doc
     assert "<thead>" in doc
 
 

@@ -12,21 +12,29 @@ from __future__ import annotations
 import html
 import json
 import math
+import re
 import shutil
 from html.parser import HTMLParser
 
 import pytest
 import xarray as xr
-from browser import load_in_browser
+from browser import browser_session, load_in_browser, load_page
 from conftest import BASE, DX, SHAPE, X0, Y0, apply_overrides, to_toml, write_habitat
 from test_runfolder import box, geojson
 
 from preyscape.analysis.effects_output import find_without_refuge
+from preyscape.analysis.output import Paragraph, Part
 from preyscape.analysis.refuges import refuge_effect
 from preyscape.errors import InputError
 from preyscape.report.html import CAUTIONS
 from preyscape.report.run_report import write_report
+from preyscape.report.summary import JARGON
 from preyscape.runfolder import simulate_variants
+
+EXTRA = (Part("Uncertainty, in short", (Paragraph("An extra summary part."),), "extra-summary",
+              place="summary"),
+         Part("Uncertainty, the method", (Paragraph("An extra method part."),), "extra-method",
+              place="method"))
 
 TITLE = "Moor <script>alert(1)</script> test"
 PREY = 'Fen & "marsh" vole'
@@ -76,7 +84,8 @@ def made(tmp_path_factory) -> dict:
     except InputError as exc:
         refused = exc
     stale_after = out.read_text()
-    path_written = write_report(runs["baseline"], out, [runs["no-refuge"]], overwrite=True)
+    path_written = write_report(runs["baseline"], out, [runs["no-refuge"]], overwrite=True,
+                                extra_parts=EXTRA, how_sure=("A sentence on how sure.",))
     return {"folder": folder, "runs": runs, "out": out, "path": path_written,
             "refused": refused, "stale_after": stale_after,
             "doc": out.read_text(encoding="utf-8"),
@@ -146,9 +155,39 @@ def test_report_holds_cautions_and_sections(made):
     doc = made["doc"]
     for c in CAUTIONS:
         assert html.escape(c) in doc
-    for title in ("Scenario and run", "Maps", "Hotspots", "Travelling waves", "Refuges",
-                  "Change: baseline → no-refuge", "Methods and sources"):
+    for title in ("Summary", "The alternatives side by side", "Maps of baseline",
+                  "Hotspots: where the animals concentrate", "Travelling waves", "Refuges",
+                  "Change: baseline → no-refuge", "How the model works", "Scenario and run",
+                  "Sources"):
         assert f">{html.escape(title)}</h2>" in doc, title
+
+
+def _section(doc: str, anchor: str) -> str:
+    start = doc.index(f'<section id="{anchor}"')
+    return doc[start:doc.index("</section>", start)]
+
+
+def test_report_is_read_by_a_planner_first(made):
+    # design requirement (issue 16): the plain-language summary opens the report, then the
+    # answer (the alternatives), then the cautions; modelling details come last; extra parts
+    # go to their place
+    doc = made["doc"]
+    at = {a: doc.index(f'id="{a}"') for a in (
+        "summary", "extra-summary", "alternatives", "cautions", "maps", "hotspots", "model",
+        "scenario-and-run", "extra-method")}
+    assert list(at) == sorted(at, key=at.get)
+    summary = _section(doc, "summary")
+    text = html.unescape(re.sub(r"<[^>]+>", " ", summary)).lower()
+    for part in ("what was run", "what changes", "how sure", "what the model cannot say"):
+        assert part in text
+    assert not [w for w in JARGON if w in text], [w for w in JARGON if w in text]
+    assert "a sentence on how sure." in text
+    assert "no-refuge" in text and "removes the fen refuge" in text
+    assert "inside the fen refuge, " in text and "in the run without it" in text
+    # the model part explains what the summary leaves out
+    model = html.unescape(_section(doc, "model")).lower()
+    for w in ("hopf capacity", "holling", "fickian", "fisher–kpp"):
+        assert w in model, w
 
 
 def test_report_gives_decay_length_and_predicted_front_speed(made):
@@ -204,6 +243,76 @@ def test_browser_shows_key_numbers_and_user_strings_as_text(seen, made):
     g = made["info"]["grid"]
     assert (g["rows"], g["cols"]) == SHAPE
     assert f"{SHAPE[0]} rows × {SHAPE[1]} columns" in text
+
+
+# ---------------------------------------------------------------------------
+# printed: every table column and every figure on the page
+# ---------------------------------------------------------------------------
+# Printable widths and heights in CSS px (96 per inch) inside the report's @page margins
+# (12 mm left and right, 14 + 16 mm top and bottom): A4 210 x 297 mm, Letter 8.5 x 11 in.
+MM = 96 / 25.4
+PAGES = {"A4": ((210 - 24) * MM, (297 - 30) * MM),
+         "Letter": (8.5 * 96 - 24 * MM, 11 * 96 - 30 * MM)}
+
+_BOXES_JS = """
+const page = document.documentElement.clientWidth;
+const out = {page: page, cells: [], images: [], scrolled: []};
+for (const c of document.querySelectorAll('th, td')) {
+  const r = c.getBoundingClientRect();
+  out.cells.push({text: c.innerText.slice(0, 40), left: r.left, right: r.right});
+}
+for (const im of document.images) {
+  const r = im.getBoundingClientRect();
+  out.images.push({alt: im.alt.slice(0, 40), left: r.left, right: r.right,
+                   height: r.height});
+}
+for (const s of document.querySelectorAll('.scroll')) {
+  if (s.scrollWidth > s.clientWidth + 1) out.scrolled.push(s.innerText.slice(0, 40));
+}
+out.body = document.body.scrollWidth;
+return out;
+"""
+
+
+@pytest.mark.parametrize("paper", sorted(PAGES))
+def test_printed_report_keeps_every_column_and_figure_on_the_page(made, paper):
+    # design requirement (issue 16): printed on A4 or Letter, no table is cut (every cell
+    # lies within the printable width) and every figure fits a page. Checked in the browser
+    # with print media emulated at the printable width, then printed to PDF with Chromium,
+    # whose pages must be of that size and hold every image.
+    import base64
+
+    width, height = PAGES[paper]
+    with browser_session() as driver:
+        driver.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": "print"})
+        driver.execute_cdp_cmd("Emulation.setDeviceMetricsOverride", {
+            "width": int(width), "height": int(height), "deviceScaleFactor": 1,
+            "mobile": False})
+        seen = load_page(driver, made["out"], {"boxes": _BOXES_JS})
+        boxes = seen["extra"]["boxes"]
+        pdf = base64.b64decode(driver.execute_cdp_cmd("Page.printToPDF", {
+            "printBackground": True, "preferCSSPageSize": paper == "A4",
+            "paperWidth": 8.27 if paper == "A4" else 8.5,
+            "paperHeight": 11.69 if paper == "A4" else 11.0})["data"])
+    page = boxes["page"]
+    assert page <= width + 1
+    assert boxes["cells"] and boxes["images"]
+    cut = [c for c in boxes["cells"] if c["right"] > page + 0.5 or c["left"] < -0.5]
+    assert not cut, cut[:5]
+    assert not boxes["scrolled"], boxes["scrolled"]
+    assert boxes["body"] <= page + 1
+    for im in boxes["images"]:
+        assert im["left"] >= -0.5 and im["right"] <= page + 0.5, im
+        assert im["height"] <= height + 0.5, im
+    # the PDF: pages of the paper asked for, and every image of the page in it
+    assert pdf.startswith(b"%PDF")
+    sizes = re.findall(rb"/MediaBox \[0 0 ([\d.]+) ([\d.]+)\]", pdf)
+    pages = len(re.findall(rb"/Type /Page(?!s)", pdf))
+    assert pages >= 2 and len(sizes) == pages
+    want = (595.3, 841.9) if paper == "A4" else (612.0, 792.0)
+    for w, h in sizes:
+        assert abs(float(w) - want[0]) < 2 and abs(float(h) - want[1]) < 2
+    assert pdf.count(b"/Subtype /Image") >= len(boxes["images"])
 
 
 # ---------------------------------------------------------------------------

@@ -336,3 +336,19 @@ def test_a_folder_for_a_file_is_named_as_such(write_scenario, tmp_path):
     (tmp_path / "maps").mkdir()
     text = load_error(write_scenario({"landscape.habitat": "maps"}))
     assert "landscape.habitat" in text and "'maps' is a folder" in text
+
+
+def test_class_colour_is_a_css_colour(write_scenario):
+    # design requirement (issue 16): an optional colour per habitat class, any CSS colour
+    # name or hex code; anything else is refused with what would be valid
+    path = write_scenario({"landscape.classes.0.colour": "ForestGreen",
+                           "landscape.classes.1.colour": "#a1b2c3"})
+    sc = load_scenario(path)
+    assert [c.colour for c in sc.landscape.classes] == ["forestgreen", "#a1b2c3"]
+    path = write_scenario({"landscape.classes.1.colour": "forrestgreen"}, name="bad.toml")
+    text = load_error(path)
+    assert "landscape.classes[1].colour" in text and "did you mean 'forestgreen'" in text
+    assert "hex code" in text
+    for bad in ("#12", "#ggg", "C0", "tab:blue"):  # not CSS (matplotlib-only forms too)
+        path = write_scenario({"landscape.classes.1.colour": bad}, name="bad2.toml")
+        assert "is not a colour" in load_error(path), bad

@@ -78,7 +78,36 @@ def test_spatial_ref_and_coordinates(results):
 
 def test_snapshot_times(results):
     np.testing.assert_allclose(results["time"].values, SNAPSHOT_TIMES, rtol=0, atol=1e-12)
-    assert results["time"].attrs["units"] == "year"
+    assert results["time"].attrs["units"] == "common_years since 0001-01-01 00:00:00"
+    assert results["time"].attrs["calendar"] == "noleap"
+    assert results["time"].attrs["standard_name"] == "time"
+
+
+def test_time_axis_is_cf_time(run):
+    # Reference libraries: xarray's CF time decoding and cftime read the axis as dates
+    # (CF-1.8 §4.4: units "<unit> since <reference>", a calendar). In the 365-day calendar
+    # a common year is 365 days, so 0.25 yr is 91.25 days after the start (0001-01-01).
+    import cftime
+
+    with xr.open_dataset(run["out"] / "results.nc") as ds:  # decode_times=True
+        t = ds["time"].values
+    assert isinstance(t[0], cftime.DatetimeNoLeap)
+    assert (t[0].year, t[0].month, t[0].day) == (1, 1, 1)
+    assert (t[1] - t[0]).total_seconds() == pytest.approx(0.25 * 365 * 86400)
+    dates = cftime.num2date(SNAPSHOT_TIMES, "common_years since 0001-01-01 00:00:00",
+                            calendar="noleap")
+    assert list(dates) == list(t)
+    # and the float years are unchanged for readers that do not decode (store, analysis)
+    with open_run(run["out"]) as r:
+        np.testing.assert_allclose(r.times, SNAPSHOT_TIMES)
+
+
+def test_summary_geotiffs_explain_themselves(run):
+    # design requirement: band description, units and source run in the file
+    with rasterio.open(run["out"] / "summary" / "predator_mean.tif") as ds:
+        assert "time-mean density" in ds.descriptions[0] and "predator" in ds.descriptions[0]
+        assert ds.units[0] == "animals per km2"
+        assert ds.tags()["source_run"] == "baseline"
 
 
 def test_first_snapshot_is_initial_state(results, run):

@@ -48,7 +48,10 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
         (the HTML file).
     """
     from preyscape.analysis.compare_output import write_comparison
+    from preyscape.analysis.output import provenance
+    from preyscape.analysis.results import map_layers_of, open_run
     from preyscape.analysis.settings import AnalysisSettings
+    from preyscape.plots import map_context
     from preyscape.report.run_report import write_report
     from preyscape.runfolder import simulate_variants
     from preyscape.store import output_folder, refuse_existing
@@ -69,8 +72,14 @@ def run_demo(out: Path, overwrite: bool = False, progress: bool | None = None,
     comparisons = {}
     if compared:
         say(f"comparing baseline with {' and '.join(compared)} ...")
-        done = write_comparison(runs["baseline"], [runs[n] for n in compared], out / "compare",
-                                settings=settings)
+        opened = [open_run(runs[n]) for n in ("baseline", *compared)]
+        try:
+            with map_context(**map_layers_of(opened)), provenance(**opened[0].provenance()):
+                done = write_comparison(opened[0], opened[1:], out / "compare",
+                                        settings=settings)
+        finally:
+            for r in opened:
+                r.close()
         comparisons[", ".join(compared)] = done.folder
     say("writing the report ...")
     report = write_report(runs["baseline"], out / "report.html", [runs[n] for n in compared])

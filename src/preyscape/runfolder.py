@@ -42,7 +42,7 @@ from preyscape import __version__, store
 from preyscape.assemble import Setup, check_variant_measures, place_targets, prepare
 from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
-from preyscape.landscape.placed import Outline, PlacedMeasure
+from preyscape.landscape.placed import Outline
 from preyscape.names import slug
 from preyscape.preview import fence_topology, predictions
 from preyscape.scenario import Scenario, load_scenario
@@ -114,19 +114,6 @@ class _FolderSink:
                                "years": step * self.dt, "elapsed_s": self.clock()})
 
 
-def _outline(m: PlacedMeasure) -> Outline:
-    lines = []
-    for s in m.shapes:
-        g = s.geometry
-        for part in getattr(g, "geoms", [g]):
-            if part.geom_type == "Polygon":
-                lines += [np.asarray(part.exterior.coords)[:, :2]]
-                lines += [np.asarray(r.coords)[:, :2] for r in part.interiors]
-            elif part.geom_type in ("LineString", "LinearRing"):
-                lines.append(np.asarray(part.coords)[:, :2])
-    return Outline(m.name, m.kind, tuple(lines), m.cells, m.faces)
-
-
 def _write_targets(tmp: Path, sc: Scenario, grid: Grid) -> list[dict]:
     from preyscape.landscape.io import write_geotiff
 
@@ -135,7 +122,9 @@ def _write_targets(tmp: Path, sc: Scenario, grid: Grid) -> list[dict]:
         (tmp / "targets").mkdir(exist_ok=True)
         f = f"targets/{slug(name)}.tif"
         write_geotiff(tmp / f, grid, np.where(grid.mask, cells, 255).astype(np.uint8),
-                      nodata=255, dtype="uint8")
+                      nodata=255, dtype="uint8", description=f"cells of the target patch "
+                      f"{name!r}", units="class code",
+                      categories={0: "outside", 1: f"target: {name}"})
         targets.append({"name": name, "cells": int(cells.sum()), "cells_file": f})
     return targets
 
@@ -192,6 +181,7 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
                      for k in ("prey", "predator", "interaction", "start", "run")},
         "classes": ({str(c.code): c.name for c in sc.landscape.classes}
                     if sc.landscape.values == "classes" else None),
+        "class_colours": _class_colours(sc),
         "positivity_clip_total": stats.clipped,
         "wall_time_s": round(wall, 3),
         "compile_or_cache_load_s": round(compiled, 3),
@@ -364,12 +354,14 @@ def _blow_up(sc: Scenario, dt: float, exc: NonFiniteDensities) -> str:
 def _start_state(tmp: Path, setup: Setup) -> tuple:
     """``(writer, N, P, stats, step, elapsed)``: a new run, or the checkpoint of a kept one."""
     sc, grid = setup.scenario, setup.grid
+    names = {sp: (spec.name if spec is not None else None)
+             for sp, spec in (("prey", sc.prey), ("predator", sc.predator))}
     if not _resumable(tmp):
         store.write_json(tmp / PARTIAL_RECORD, {
             "scenario": str(sc.path), "variant": sc.variant, "scenario_sha256": sc.digest(),
             "years": sc.run.years, "started": store.now_iso()})
         writer = store.ResultWriter(
-            tmp / "results.nc", grid, {"prey": sc.prey.name, "predator": sc.predator.name},
+            tmp / "results.nc", grid, names,
             {"title": sc.title or sc.path.stem, "source": f"preyscape {__version__}",
              "scenario_sha256": sc.digest(), "history": f"{store.now_iso()} preyscape run"},
             habitat=setup.habitat,
@@ -402,7 +394,6 @@ def _run_into(tmp: Path, setup: Setup, *, progress, maps: bool) -> None:
     preds = predictions(setup)
     topology = fence_topology(sc, grid, setup.measures)
     measures = store.write_measures(tmp / "measures", grid, setup.measures)
-    outlines = [_outline(m) for m in setup.measures]
     targets = _write_targets(tmp, sc, grid)
     dt, epochs = setup.dt, setup.epochs
     setup = setup.without_build_arrays()  # memory: one copy of each field during the run
@@ -411,58 +402,122 @@ def _run_into(tmp: Path, setup: Setup, *, progress, maps: bool) -> None:
     finals = {k: np.where(grid.mask, v, np.nan) for k, v in (("prey", N), ("predator", P))}
     del N, P, setup  # free the run's arrays before the summaries
     means = store.time_means(tmp / "results.nc", grid.mask)
-    store.write_summaries(tmp / "summary", grid, means, finals)
-    if maps:
-        draw_run_maps(tmp, sc, grid, habitat, means, finals, outlines)
+    names = {sp: (spec.name if spec is not None else None)
+             for sp, spec in (("prey", sc.prey), ("predator", sc.predator))}
+    store.write_summaries(tmp / "summary", grid, means, finals, names=names,
+                          tags={"source_run": sc.variant, "scenario": sc.title or "",
+                                "software": f"preyscape {__version__}"})
+    del means, finals, habitat
     record = _record(sc, grid, dt, epochs, stats, writer.n, measures, targets, preds,
                      sink.clock(), compiled, topology)
     record["resumed_from_step"] = step or None
-    (tmp / PARTIAL_RECORD).unlink()
     store.write_json(tmp / "run.json", record)
+    if maps:  # read back from the folder, like any run's maps (the map standard)
+        draw_run_maps(tmp)
+    (tmp / PARTIAL_RECORD).unlink()  # complete: nothing left to resume
 
 
-def draw_run_maps(folder: Path, sc: Scenario, grid: Grid, habitat: np.ndarray, means: dict,
-                  finals: dict, outlines: list[Outline]) -> list[Path]:
+def _class_colours(sc: Scenario) -> dict[str, str] | None:
+    """Every habitat class's colour: the scenario's, else one by meaning (plots palette)."""
+    if sc.landscape.values != "classes":
+        return None
+    from preyscape.plots.palettes import habitat_colours
+
+    cols = habitat_colours({c.code: c.name for c in sc.landscape.classes},
+                           {c.code: c.colour for c in sc.landscape.classes})
+    return {str(k): v for k, v in cols.items()}
+
+
+def draw_run_maps(folder: str | Path, *, vmax: dict[str, float] | None = None,
+                  shared_with: tuple[str, ...] = ()) -> list[Path]:
     """Draw the standard maps of a finished run into ``folder/maps``.
 
     Habitat with the measures, time-mean and final density of each species,
-    landscape totals, and snapshot panels; densities in animals/km². The
+    landscape totals, and snapshot panels; densities in animals/km². Every
+    map follows the map standard of :mod:`preyscape.plots` (measures, scale
+    bar, north arrow, CRS caption, the run's name in the title). The
     snapshot panels of a species use a log scale from the presence threshold
     when its densities present span more than two orders of magnitude
     (:func:`preyscape.plots.choose_scale`).
+
+    Parameters
+    ----------
+    folder : path
+        A run folder with ``run.json`` and ``results.nc``.
+    vmax : dict, optional
+        Top of the colour scale of each species' density maps, animals/km²
+        (default: the largest value of this run). Pass the same values to the
+        runs meant to be compared.
+    shared_with : tuple of str
+        The runs whose maps share ``vmax``, named in the captions.
     """
-    import xarray as xr
-
     from preyscape import plots
-    from preyscape.analysis.settings import DEFAULTS
+    from preyscape.analysis.results import open_run
 
-    maps = folder / "maps"
-    names = {"prey": sc.prey.name or "prey", "predator": sc.predator.name or "predator"}
-    classes = ({c.code: c.name or str(c.code) for c in sc.landscape.classes}
-               if sc.landscape.values == "classes" else None)
-    title = f"Habitat: {sc.title or sc.path.stem}"
-    if sc.variant != "baseline":
-        title += f" [{sc.variant}]"
-    out = [plots.habitat_map(grid, habitat, classes, title, maps / "habitat.png",
-                             outlines=outlines)]
-    for sp in ("prey", "predator"):
-        out.append(plots.density_map(grid, means[sp], f"Time-mean {sp} ({names[sp]})",
-                                     maps / f"{sp}_mean.png", cmap=plots.SPECIES_CMAP[sp]))
-        out.append(plots.density_map(grid, finals[sp],
-                                     f"Final {sp} ({names[sp]}), t = {sc.run.years:g} yr",
-                                     maps / f"{sp}_final.png", cmap=plots.SPECIES_CMAP[sp]))
-    with xr.open_dataset(folder / "results.nc", decode_times=False) as ds:
-        t = ds["time"].values
-        out.append(plots.totals_plot(t, ds["prey_total"].values, ds["predator_total"].values,
-                                     names, maps / "totals.png"))
-        pick = np.unique(np.linspace(0, len(t) - 1, 5).round().astype(int))
-        floor = sc.analysis.presence or DEFAULTS["presence"]  # log scale for fronts (issue 15)
+    run = open_run(folder)
+    try:
+        return _draw(run, Path(folder) / "maps", vmax or {}, shared_with, plots)
+    finally:
+        run.close()
+
+
+def _draw(run, maps: Path, vmax: dict, shared_with: tuple, plots) -> list[Path]:
+    names, grid = run.species_names, run.grid
+    last = len(run.times) - 1
+    tops = vmax or {sp: _top(run, sp) for sp in ("prey", "predator")}
+    note = ("One colour scale per species for its time-mean, final and snapshot maps"
+            + (f", shared by the runs {', '.join(shared_with)}." if shared_with else
+               " of this run."))
+    out = []
+    layers = run.map_layers()
+    targets = [Outline(name, "target", (), cells, None) for name, cells in run.targets()]
+    with plots.map_context(**layers):
+        out.append(plots.habitat_map(grid, run.habitat, run.classes,
+                                     "Habitat, measures and target patches",
+                                     maps / "habitat.png", colours=run.class_colours,
+                                     outlines=[*layers["outlines"], *targets]))
+    with plots.map_context(**layers, note=note):
         for sp in ("prey", "predator"):
-            frames = [ds[sp].isel(time=int(k)).values for k in pick]
-            out.append(plots.snapshot_panels(grid, t[pick], frames, sp, names[sp],
-                                             maps / f"{sp}_snapshots.png", scale="auto",
+            label = f"{sp} ({names[sp]})" if names[sp] != sp else sp
+            out.append(plots.density_map(grid, run.time_mean(sp), f"Time-mean {label} density",
+                                         maps / f"{sp}_mean.png", cmap=plots.SPECIES_CMAP[sp],
+                                         vmax=tops[sp]))
+            out.append(plots.density_map(
+                grid, run.frame(sp, last), f"Final {label} density, t = {run.times[-1]:g} yr",
+                maps / f"{sp}_final.png", cmap=plots.SPECIES_CMAP[sp], vmax=tops[sp]))
+        out.append(plots.totals_plot(run.times, run.totals("prey"), run.totals("predator"),
+                                     names, maps / "totals.png"))
+        pick = np.unique(np.linspace(0, last, 5).round().astype(int))
+        floor = run.settings().presence  # a log scale shows an invading front (issue 15)
+        for sp in ("prey", "predator"):
+            out.append(plots.snapshot_panels(grid, run.times[pick],
+                                             [run.frame(sp, int(k)) for k in pick], sp,
+                                             names[sp], maps / f"{sp}_snapshots.png",
+                                             vmax=tops[sp], note=note, scale="auto",
                                              floor=floor))
     return out
+
+
+def _top(run, species: str) -> float:
+    """The largest density of a run's time mean, last snapshot and snapshot panels."""
+    last = len(run.times) - 1
+    pick = np.unique(np.linspace(0, last, 5).round().astype(int))
+    tops = [float(np.nanmax(run.time_mean(species), initial=0.0))]
+    tops += [float(np.nanmax(run.frame(species, int(k)), initial=0.0)) for k in pick]
+    return max(tops) or 1.0
+
+
+def _draw_shared(folders: dict[str, Path]) -> None:
+    """Redraw the maps of runs meant to be compared on one colour scale per species."""
+    from preyscape.analysis.results import open_run
+
+    tops = {"prey": 0.0, "predator": 0.0}
+    for f in folders.values():
+        with open_run(f) as run:
+            for sp in tops:
+                tops[sp] = max(tops[sp], _top(run, sp))
+    for f in folders.values():
+        draw_run_maps(f, vmax=tops, shared_with=tuple(folders))
 
 
 def _finished_digest(folder: Path) -> str | None:
@@ -570,8 +625,11 @@ def simulate_variants(scenario: Scenario | str | Path, out: str | Path,
             done[name] = folder
             continue
         try:
+            # variants are meant to be compared: their maps share one colour scale per
+            # species, so they are drawn once every run is done
             done[name] = simulate(sc, folder, overwrite=overwrite, progress=progress,
-                                  maps=maps, resume=resume, allow_large=allow_large)
+                                  maps=maps and len(plan) == 1, resume=resume,
+                                  allow_large=allow_large)
         except RunInterrupted as exc:
             if len(plan) == 1:
                 raise
@@ -581,4 +639,6 @@ def simulate_variants(scenario: Scenario | str | Path, out: str | Path,
                 f"stopped: {name}; not started: {', '.join(rest) or 'none'}", exc.kept,
                 exc.resumable or bool(done),
             ) from None
+    if maps and len(plan) > 1:
+        _draw_shared(done)
     return done

@@ -59,16 +59,45 @@ class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
 
+def css_colour(value: str) -> str:
+    """``value`` if it is a CSS colour: a hex code ``#rgb``/``#rrggbb`` or a CSS colour name.
+
+    Raises
+    ------
+    ValueError
+        Saying what would be valid, with the nearest colour name.
+    """
+    import re
+
+    v = str(value).strip()
+    if re.fullmatch(r"#(?:[0-9a-fA-F]{3}){1,2}", v):
+        return v
+    from matplotlib.colors import CSS4_COLORS  # the 148 CSS colour names
+
+    if v.lower() in CSS4_COLORS:
+        return v.lower()
+    near = difflib.get_close_matches(v.lower(), sorted(CSS4_COLORS), n=1, cutoff=0.6)
+    hint = f" (did you mean '{near[0]}'?)" if near else ""
+    raise ValueError(f"{value!r} is not a colour{hint}: give a CSS colour name such as "
+                     "'forestgreen' or a hex code such as '#228b22'")
+
+
 class HabitatClass(_Strict):
-    """One row of the class table: a habitat code and its multipliers (all ≥ 0)."""
+    """One row of the class table: a habitat code, its multipliers (all ≥ 0), its colour."""
 
     code: StrictInt
     name: str = ""
+    colour: str | None = None
     prey_capacity: NonNegative = 1.0
     prey_growth: NonNegative = 1.0
     prey_movement: NonNegative = 1.0
     predator_mortality: NonNegative = 1.0
     predator_movement: NonNegative = 1.0
+
+    @field_validator("colour")
+    @classmethod
+    def _colour(cls, v: str | None) -> str | None:
+        return None if v is None else css_colour(v)
 
 
 class LandscapeSpec(_Strict):

@@ -30,6 +30,11 @@ from preyscape.names import slug
 
 SPECIES = ("prey", "predator")
 
+TIME_UNITS = "common_years since 0001-01-01 00:00:00"
+"""CF units of ``time`` in ``results.nc``: years of 365 days since the start of the run."""
+TIME_CALENDAR = "noleap"
+"""CF calendar of ``time`` (365-day years, so a common year is exactly one model year)."""
+
 
 def _cf_grid_mapping(crs_wkt: str) -> dict[str, Any]:
     if not crs_wkt:
@@ -79,8 +84,14 @@ class ResultWriter:
         ds.createDimension("y", grid.ny)
         ds.createDimension("x", grid.nx)
         t = ds.createVariable("time", "f8", ("time",))
-        t.units = "year"
-        t.long_name = "simulated time since the start"
+        # CF time: values stay years since the start; "common_year" is the UDUNITS year of
+        # 365 days, exact in the 365-day ("noleap") calendar, and the reference date is
+        # a placeholder for the start of the run (CF-1.8 §4.4)
+        t.units = TIME_UNITS
+        t.calendar = TIME_CALENDAR
+        t.standard_name = "time"
+        t.long_name = ("simulated time since the start of the run, years (the date "
+                       "0001-01-01 stands for the start)")
         t.axis = "T"
         for name, values, axis in (("x", grid.x, "X"), ("y", grid.y, "Y")):
             v = ds.createVariable(name, "f8", (name,))
@@ -300,16 +311,27 @@ def load_checkpoint(path: Path) -> tuple[int, np.ndarray, np.ndarray, dict]:
         return int(z["step"]), z["prey"].copy(), z["predator"].copy(), json.loads(str(z["extra"]))
 
 
-def write_summaries(folder: Path, grid: Grid, means: dict, finals: dict) -> list[Path]:
-    """Write time-mean and final density GeoTIFFs (float32, NaN no-data) into ``folder``."""
+def write_summaries(folder: Path, grid: Grid, means: dict, finals: dict, *,
+                    names: dict | None = None, tags: dict | None = None) -> list[Path]:
+    """Write time-mean and final density GeoTIFFs (float32, NaN no-data) into ``folder``.
+
+    Each carries a band description naming the species and the statistic, the
+    units (animals per km2) and ``tags`` (e.g. the source run).
+    """
     from preyscape.landscape.io import write_geotiff
 
     folder.mkdir(parents=True, exist_ok=True)
+    names = names or {}
+    what = {"mean": "time-mean density over the snapshots after the start",
+            "final": "density at the end of the run"}
     out = []
     for label, layers in (("mean", means), ("final", finals)):
         for sp, arr in layers.items():
             p = folder / f"{sp}_{label}.tif"
-            write_geotiff(p, grid, np.where(grid.mask, arr, np.nan).astype(np.float32))
+            name = f"{sp} ({names[sp]})" if names.get(sp) and names[sp] != sp else sp
+            write_geotiff(p, grid, np.where(grid.mask, arr, np.nan).astype(np.float32),
+                          description=f"{name} {what[label]}", units="animals per km2",
+                          tags=tags)
             out.append(p)
     return out
 
@@ -342,7 +364,9 @@ def write_measures(folder: Path, grid: Grid, measures: Iterable) -> list[dict]:
         if m.cells is not None:
             write_geotiff(folder / f"{base}.tif", grid,
                           np.where(grid.mask, m.cells, 255).astype(np.uint8),
-                          nodata=255, dtype="uint8")
+                          nodata=255, dtype="uint8", description=f"cells of the {m.kind} "
+                          f"{m.name!r}", units="class code",
+                          categories={0: "outside", 1: f"{m.kind}: {m.name}"})
             rec["cells_file"] = f"{folder.name}/{base}.tif"
         if m.faces is not None:
             write_npz(folder / f"{base}_faces.npz", True, between_columns=m.faces[0],

@@ -70,6 +70,10 @@ COMMAND = Command(
 )
 
 COLOURS = {"prey": "#2a788e", "predator": "#b5367a"}
+NOTHING_TO_MEASURE = (
+    "Nothing to measure: this run has no refuge (a measure of kind 'refuge'), no target "
+    "patch ([[analysis.targets]] in the scenario, or --targets) and no transect "
+    "([[analysis.transects]], or --transects). Only effects.json was written.")
 REFUGE_HEADER = ["refuge", "species", "region", "cells", "area_km2", "mean_density_per_km2",
                  "lowest_mean_density_per_km2", "persistence", "without_mean_density_per_km2",
                  "without_lowest_mean_density_per_km2", "without_persistence"]
@@ -132,9 +136,17 @@ class EffectsOutput(Written):
     targets: tuple = ()
     transects: tuple = ()
     names: dict = field(default_factory=dict)
+    corridors: tuple = ()
+
+    @property
+    def empty(self) -> bool:
+        """True when the run had nothing to measure (no refuge, target or transect)."""
+        return not (self.refuges or self.targets or self.transects)
 
     def summary_lines(self) -> list[str]:
         lines = [f"effects: {self.folder}"]
+        if self.empty:
+            return lines + [f"  {NOTHING_TO_MEASURE}"]
         if self.without is not None:
             lines.append(f"  compared with the run without refuges: {self.without}")
         elif self.refuges:
@@ -150,13 +162,31 @@ class EffectsOutput(Written):
         return lines
 
     def report_parts(self) -> list[Part]:
+        if self.empty:
+            return [Part("Refuges, target patches and crossings",
+                         (Paragraph(NOTHING_TO_MEASURE),), "effects")]
         parts = []
         if self.refuges:
             parts.append(Part("Refuges", tuple(_refuge_blocks(self))))
         if self.targets or self.transects:
-            parts.append(Part("Corridors: colonisation and movement",
-                              tuple(_corridor_blocks(self))))
+            title = ("Corridors: colonisation and movement" if self.corridors else
+                     "Colonisation of target patches and crossings")
+            parts.append(Part(title, tuple(_corridor_blocks(self))))
         return parts
+
+    def headlines(self) -> list[str]:
+        out = []
+        for r in self.refuges:
+            io = r.regions["prey"]["inside_outside"]["inside"]
+            wo = (r.regions["prey"]["inside_outside_without"] or {}).get("inside")
+            if wo and wo.get("mean_density"):
+                change = 100 * (io["mean_density"] - wo["mean_density"]) / wo["mean_density"]
+                prey = self.names.get("prey", "prey")
+                a, b = (f"{v:,.0f}".replace(",", "\u2009")  # thin space in thousands
+                        for v in (io["mean_density"], wo["mean_density"]))
+                out.append(f"Inside the {r.name}, {prey} (prey) average {a} per km² against "
+                           f"{b} in the run without it ({change:+.0f} %).")
+        return out
 
 
 def _fmt(x, unit: str = "", digits: int = 4) -> str:
@@ -219,8 +249,9 @@ def _corridor_blocks(out: EffectsOutput) -> list:
             f"prey {_fmt(tr.net_animals['prey'], 'animals')}, predators "
             f"{_fmt(tr.net_animals['predator'], 'animals')} (positive: from its left to its "
             "right)"),)))
-        blocks.append(Figure(out.folder / tr.figure, f"Flows across {tr.name}",
-                             f"net flow of animals across {tr.name} against time"))
+        blocks.append(Figure(out.folder / tr.figure, f"Animals crossing the transect "
+                             f"'{tr.name}'", f"net flow of animals across '{tr.name}' against "
+                             "time"))
     return blocks
 
 
@@ -325,6 +356,8 @@ def write_effects(run, out: str | Path, *, settings: AnalysisSettings | None = N
                       "transects": [{"name": c.name, **{f"{sp}_net_animals": v for sp, v in
                                                         c.net_animals.items()},
                                      "figure": c.figure} for c in crossings]}
+            if not (refuges or targets or crossings):
+                record["note"] = NOTHING_TO_MEASURE
             (tmp / "effects.json").write_text(json.dumps(record, indent=2, default=float)
                                               + "\n")
             files.append(FileRecord("effects.json", "record", "The numbers as one record"))
@@ -332,7 +365,8 @@ def write_effects(run, out: str | Path, *, settings: AnalysisSettings | None = N
         if other is not None and other is not without:
             other.close()
     return EffectsOutput(Path(out), tuple(files), None if other is None else other.path,
-                         tuple(refuges), tuple(targets), tuple(crossings), run.species_names)
+                         tuple(refuges), tuple(targets), tuple(crossings), run.species_names,
+                         tuple(m["name"] for m in run.measures if m["kind"] == "corridor"))
 
 
 def _write_refuges(tmp: Path, run, other, settings: AnalysisSettings,
@@ -422,7 +456,8 @@ def _write_crossings(tmp: Path, run, settings: AnalysisSettings,
                      for t, f, c in zip(times, flow, total, strict=True)]
         fig = f"flux_{slug(tr.name)}.png"
         flux_plot(series, run.species_names, tr.name, tmp / fig)
-        files.append(FileRecord(fig, "figure", f"Flows across {tr.name}", key=tr.name))
+        files.append(FileRecord(fig, "figure", f"Animals crossing the transect '{tr.name}'",
+                                key=tr.name))
         out.append(CrossingRecord(tr.name, net, fig))
     if rows:
         write_csv(tmp / "flux.csv", ["transect", "species", "time_years",

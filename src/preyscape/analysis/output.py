@@ -18,7 +18,9 @@ Examples
 from __future__ import annotations
 
 import os
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
@@ -28,7 +30,7 @@ import numpy as np
 from preyscape.store import output_folder
 
 __all__ = ["PLACES", "Bullets", "Facts", "FileRecord", "Figure", "Paragraph", "Part", "Table",
-           "Written", "output_folder", "pick", "write_csv", "write_raster"]
+           "Written", "output_folder", "pick", "provenance", "write_csv", "write_raster"]
 
 Role = Literal["map", "figure", "raster", "table", "record", "animation"]
 
@@ -178,28 +180,45 @@ def write_csv(path: Path, header: Sequence[str], rows: Iterable[Sequence]) -> Pa
     return path
 
 
+_PROVENANCE: ContextVar[tuple] = ContextVar("preyscape_raster_provenance", default=())
+
+
+@contextmanager
+def provenance(**tags: Any) -> Iterator[dict]:
+    """Tags every GeoTIFF written by :func:`write_raster` inside the block carries.
+
+    The analysis commands and the report set them from the run analysed
+    (``source_run``, ``run_folder``, ``scenario``, ``software``), so a raster
+    says in a GIS where it came from. Tags given to :func:`write_raster` win.
+    """
+    merged = {**dict(_PROVENANCE.get()), **{k: v for k, v in tags.items() if v is not None}}
+    token = _PROVENANCE.set(tuple(merged.items()))
+    try:
+        yield merged
+    finally:
+        _PROVENANCE.reset(token)
+
+
 def write_raster(path: Path, grid, values: np.ndarray, *, description: str | None = None,
-                 units: str | None = None, tags: dict | None = None, **kwargs) -> Path:
+                 units: str | None = None, tags: dict | None = None,
+                 categories: dict[int, str] | None = None,
+                 colours: dict[int, str] | None = None, **kwargs) -> Path:
     """Write one map as a GeoTIFF on ``grid`` (float32 with NaN no-data unless told).
 
-    ``description`` (the band description a GIS shows), ``units`` (e.g.
-    ``"animals per km2"``) and ``tags`` (more metadata, such as the source run)
-    go into the file so it explains itself; other keywords go to
-    :func:`preyscape.landscape.io.write_geotiff` (``nodata``, ``dtype``).
+    ``description`` (the band description a GIS shows; default: the file
+    name in words), ``units`` (e.g. ``"animals per km2"``) and ``tags`` (more
+    metadata, such as the source run; :func:`provenance` supplies defaults)
+    go into the file so it explains itself; ``categories`` (code to name) and
+    ``colours`` (code to colour) give a class raster its legend; other
+    keywords go to :func:`preyscape.landscape.io.write_geotiff` (``nodata``,
+    ``dtype``).
     """
     from preyscape.landscape.io import write_geotiff
 
     if "dtype" not in kwargs:
         values = np.where(grid.mask, values, np.nan).astype(np.float32)
-    write_geotiff(path, grid, values, **kwargs)
-    if description or units or tags:
-        import rasterio
-
-        with rasterio.open(path, "r+") as dst:
-            if description:
-                dst.set_band_description(1, description)
-            if units:
-                dst.set_band_unit(1, units)
-            if tags:
-                dst.update_tags(**{k: str(v) for k, v in tags.items()})
+    path = Path(path)
+    write_geotiff(path, grid, values, description=description or path.stem.replace("_", " "),
+                  units=units, tags={**dict(_PROVENANCE.get()), **(tags or {})},
+                  categories=categories, colours=colours, **kwargs)
     return path

@@ -49,7 +49,8 @@ from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
 from preyscape.store import SPECIES, data_mask, frames, grid_of, used_snapshots
 
-__all__ = ["CellStatistics", "RunResults", "cell_statistics", "find_damage", "open_run",
+__all__ = ["CellStatistics", "RunResults", "cell_statistics", "find_damage", "map_layers_of",
+           "open_run",
            "SPECIES"]
 
 
@@ -212,6 +213,28 @@ class RunResults:
         return None if not c else {int(k): str(v) for k, v in c.items()}
 
     @property
+    def class_colours(self) -> dict[int, str] | None:
+        """Habitat class code to colour as the run recorded it (None if not recorded)."""
+        c = self.info.get("class_colours")
+        return None if not c else {int(k): str(v) for k, v in c.items()}
+
+    def map_layers(self) -> dict[str, Any]:
+        """What every map of this run shows besides its values, as plain values.
+
+        Keywords for :func:`preyscape.plots.map_context`: ``run`` (the label),
+        ``outlines`` (the measures), ``habitat``, ``classes`` and ``colours``.
+        """
+        return {"run": self.label, "outlines": self.overlays(), "habitat": self.habitat,
+                "classes": self.classes, "colours": self.class_colours}
+
+    def provenance(self) -> dict[str, str]:
+        """Tags naming where an analysis raster comes from (``source_run`` and more)."""
+        from preyscape import __version__
+
+        return {"source_run": self.label, "run_folder": str(self.path.resolve()),
+                "scenario": self.title, "software": f"preyscape {__version__}"}
+
+    @property
     def habitat(self) -> np.ndarray | None:
         """The habitat layer (class codes or suitability), NaN off data; None if not stored."""
         return np.asarray(self.ds["habitat"].values) if "habitat" in self.ds else None
@@ -370,6 +393,24 @@ class RunResults:
     def predictions(self) -> dict:
         """The published predictions recorded when the run was made (``run.json``)."""
         return dict(self.info.get("predictions") or {})
+
+
+def map_layers_of(runs: Sequence[RunResults]) -> dict[str, Any]:
+    """What maps of one or more runs show (:meth:`RunResults.map_layers`), combined.
+
+    The first run's habitat; every run's measures (once each, by name); the
+    run's label, or "B, C compared with A" for several runs.
+    """
+    layers = runs[0].map_layers()
+    outlines = list(layers["outlines"])
+    seen = {o.name for o in outlines}
+    for r in runs[1:]:
+        new = [o for o in r.overlays() if o.name not in seen]
+        outlines += new
+        seen |= {o.name for o in new}
+    label = (", ".join(r.label for r in runs[1:]) + f" compared with {runs[0].label}"
+             if len(runs) > 1 else layers["run"])
+    return {**layers, "run": label, "outlines": outlines}
 
 
 def _lines_of(geom: Mapping[str, Any]) -> list:

@@ -76,8 +76,10 @@ def _damaged(folders) -> None:
 def analyse(args) -> int:
     """Run one registered analysis on the run folders given and print its summary."""
     from preyscape.analysis.commands import module_of
-    from preyscape.analysis.results import open_run
+    from preyscape.analysis.output import provenance
+    from preyscape.analysis.results import map_layers_of, open_run
     from preyscape.errors import InputError, PreyscapeError
+    from preyscape.plots import map_context
     from preyscape.store import check_output
 
     mod = module_of(args.analysis)
@@ -95,7 +97,9 @@ def analyse(args) -> int:
         out = args.out or mod.default_out(runs)
         check_output(out, args.overwrite, "output folder",
                      protect=[*args.runs, *(v for v in paths.values() if v is not None)])
-        written = mod.write(runs, settings, out, overwrite=args.overwrite, **inputs)
+        # every map and GeoTIFF the writer makes names the run(s) and shows their measures
+        with map_context(**map_layers_of(runs)), provenance(**runs[0].provenance()):
+            written = mod.write(runs, settings, out, overwrite=args.overwrite, **inputs)
     except PreyscapeError as exc:
         raise _named(exc, paths) from None
     except (OSError, RuntimeError, KeyError, ValueError):

@@ -285,17 +285,30 @@ def read_layer_onto(
     return out
 
 
+COG_MIN_CELLS = 1_000_000
+"""Rasters with more cells than this are written as Cloud-Optimised GeoTIFFs (internal
+512 × 512 tiles and overviews), which a GIS can pan and zoom without reading them whole."""
+
+
 def write_geotiff(
     path: str | os.PathLike[str],
     grid: Grid,
     array: np.ndarray,
     nodata: float | None = None,
     dtype: str | np.dtype | None = None,
+    *,
+    description: str | None = None,
+    units: str | None = None,
+    tags: dict | None = None,
+    categories: dict[int, str] | None = None,
+    colours: dict[int, str] | None = None,
 ) -> None:
-    """Write a single-band GeoTIFF on ``grid``, atomically.
+    """Write a single-band GeoTIFF on ``grid`` that explains itself in a GIS, atomically.
 
     The file is written to a temporary name in the same folder and then moved
     into place with :func:`os.replace`, so readers never see half a file.
+    Rasters of more than :data:`COG_MIN_CELLS` cells are Cloud-Optimised
+    GeoTIFFs (GDAL's COG driver: tiled, with overviews).
 
     Parameters
     ----------
@@ -313,6 +326,20 @@ def write_geotiff(
         for integer data.
     dtype : str or numpy.dtype, optional
         Data type in the file. Default: the array's dtype.
+    description : str, optional
+        The band description a GIS shows (what the values are).
+    units : str, optional
+        The band's units (e.g. ``"animals per km2"``).
+    tags : dict, optional
+        More metadata for the file (e.g. ``source_run``), values as text.
+    categories : dict, optional
+        Class code to name, for class rasters: written as GDAL category names
+        (codes 0, 1, 2, ...) and a raster attribute table (any codes) in the
+        PAM sidecar ``<path>.aux.xml``, which GDAL (and so QGIS) reads with
+        the file.
+    colours : dict, optional
+        Class code to colour for the attribute table (and the colour table of
+        uint8 rasters).
 
     Raises
     ------
@@ -343,13 +370,76 @@ def write_geotiff(
         "nodata": nodata,
         "compress": "deflate",
     }
+    if grid.nx * grid.ny > COG_MIN_CELLS:
+        profile.update(driver="COG", blocksize=512, overviews="auto",
+                       resampling="nearest" if categories else "average")
+    sidecar = target.with_name(target.name + ".aux.xml")
+    tmp_side = tmp.with_name(tmp.name + ".aux.xml")
     try:
         with rasterio.open(tmp, "w", **profile) as dst:
             dst.write(arr.astype(out_dtype, copy=False), 1)
+            if description:
+                dst.set_band_description(1, description)
+            if units:
+                dst.set_band_unit(1, units)
+            if tags:
+                dst.update_tags(**{str(k): str(v) for k, v in tags.items()})
+            if colours and out_dtype == np.uint8:
+                dst.write_colormap(1, _colour_table(colours))
+        if categories:
+            tmp_side.write_text(_pam_categories(categories, colours or {}), encoding="utf-8")
+            os.replace(tmp_side, sidecar)
+        elif sidecar.exists():
+            sidecar.unlink()  # a stale legend of an older file must not stay beside this one
         os.replace(tmp, target)
     finally:
-        if tmp.exists():
-            tmp.unlink()
+        for t in (tmp, tmp_side):
+            if t.exists():
+                t.unlink()
+
+
+def _rgb255(colour: str) -> tuple[int, int, int]:
+    from matplotlib.colors import to_rgb
+
+    return tuple(int(round(255 * c)) for c in to_rgb(colour))  # type: ignore[return-value]
+
+
+def _colour_table(colours: dict[int, str]) -> dict[int, tuple[int, int, int, int]]:
+    return {int(k): (*_rgb255(v), 255) for k, v in colours.items() if 0 <= int(k) <= 255}
+
+
+def _pam_categories(categories: dict[int, str], colours: dict[int, str]) -> str:
+    """A GDAL PAM document with category names and a thematic raster attribute table.
+
+    Category names are indexed by the pixel value from 0, so they are written
+    only for non-negative codes (unused codes get an empty name); the
+    attribute table (a ``value`` column of usage MinMax, a ``class`` name
+    column and, with colours, Red/Green/Blue) holds any codes.
+    """
+    from xml.sax.saxutils import escape
+
+    codes = sorted(int(c) for c in categories)
+    lines = ["<PAMDataset>", '  <PAMRasterBand band="1">']
+    if codes and codes[0] >= 0:
+        names = [escape(str(categories.get(k, ""))) for k in range(codes[-1] + 1)]
+        lines += ["    <CategoryNames>"] + [f"      <Category>{n}</Category>" for n in names]
+        lines += ["    </CategoryNames>"]
+    # field types: 0 integer, 2 string; usages: 5 MinMax, 2 Name, 6/7/8 Red/Green/Blue
+    fields = [("value", 0, 5), ("class", 2, 2)]
+    if colours:
+        fields += [("red", 0, 6), ("green", 0, 7), ("blue", 0, 8)]
+    lines.append('    <GDALRasterAttributeTable tableType="thematic">')
+    for i, (name, kind, usage) in enumerate(fields):
+        lines.append(f'      <FieldDefn index="{i}"><Name>{name}</Name><Type>{kind}</Type>'
+                     f"<Usage>{usage}</Usage></FieldDefn>")
+    for row, code in enumerate(codes):
+        cells = [str(code), escape(str(categories[code]))]
+        if colours:
+            cells += [str(v) for v in _rgb255(colours.get(code, "#808080"))]
+        lines.append(f'      <Row index="{row}">' + "".join(f"<F>{c}</F>" for c in cells)
+                     + "</Row>")
+    lines += ["    </GDALRasterAttributeTable>", "  </PAMRasterBand>", "</PAMDataset>", ""]
+    return "\n".join(lines)
 
 
 # --- helpers ---------------------------------------------------------------

@@ -29,14 +29,19 @@ import numpy as np
 from preyscape.errors import InputError
 from preyscape.plots import (
     LOG_SPAN,
+    MEASURE_STYLE,
     NO_DATA,
     SPECIES_CMAP,
-    _axes_labels,
+    _base_layers,
     _cmap,
+    _current,
     _extent_km,
     _new,
     below_floor,
+    decorate_map,
     density_norm,
+    draw_outlines,
+    map_caption,
 )
 
 __all__ = ["animate_run", "MAX_SIDE", "VMAX_PERCENTILE"]
@@ -131,6 +136,7 @@ def _palette(cmaps: Sequence[str]) -> list[int]:
 
     greys = np.linspace(0.0, 1.0, 32)
     rgb = [tuple(to_rgb(NO_DATA))] + [(g, g, g) for g in greys]
+    rgb += [tuple(to_rgb(st["color"])) for st in MEASURE_STYLE.values()]
     per = (256 - len(rgb)) // max(1, len(cmaps))
     for name in cmaps:
         ramp = colormaps[name](np.linspace(0.0, 1.0, per))[:, :3]
@@ -152,6 +158,7 @@ def animate_run(
     title: str = "",
     scale: str = "linear",
     floor: float | None = None,
+    outlines=None,
 ) -> Path:
     """Write an animated GIF of the densities of a run, one frame per snapshot shown.
 
@@ -180,7 +187,10 @@ def animate_run(
         Common names per species for the panel titles, e.g.
         ``{"prey": "field vole"}``.
     title : str, optional
-        Title above the panels.
+        Title above the panels (the run's name from
+        :func:`preyscape.plots.map_context` is added).
+    outlines : sequence of Outline, optional
+        Measures drawn on every panel (default: those of the map context).
     scale : {"linear", "log", "auto"}, optional
         Colour scale of each species: 0 to the top, logarithmic from
         ``floor`` to the top, or log for a species whose densities at or
@@ -242,20 +252,21 @@ def animate_run(
     # the figure is built once; frames only swap image data and the stamp
     norms = {sp: density_norm(scales[sp], floor, vmax[sp]) for sp in species}
     n = len(species)
-    fig = _new(figsize=(3.7 * n + 0.5, 3.75))
+    ctx = _current()
+    outlines = ctx.outlines if outlines is None else outlines
+    fig = _new(figsize=(3.7 * n + 0.5, 4.3))
     extent = _extent_km(grid)
     images = []
+    legend = []
     for j, sp in enumerate(species):
         ax = fig.add_subplot(1, n, j + 1)
         cm = _cmap(SPECIES_CMAP.get(sp, "viridis"))
         norm, words, low_end = norms[sp]
+        _base_layers(ax, grid, None)  # no-data hatch under the frames (the map standard)
         im = ax.imshow(np.ma.masked_invalid(below_floor(frame(sp, pick[0]), norm)),
-                       extent=extent, cmap=cm, norm=norm, interpolation="nearest")
-        ax.set_facecolor(NO_DATA)
-        _axes_labels(ax, grid)
-        ax.tick_params(labelsize=7)
-        ax.xaxis.label.set_size(8)
-        ax.yaxis.label.set_size(8)
+                       extent=extent, cmap=cm, norm=norm, interpolation="nearest", zorder=0.5)
+        decorate_map(ax, grid, small=True, ylabel=j == 0)
+        legend = draw_outlines(ax, outlines, grid) or legend
         nm = names.get(sp)
         ax.set_title(f"{sp} ({nm})" if nm and nm != sp else sp, fontsize=9)
         ends = {(True, True): "both", (True, False): "min", (False, True): "max"}
@@ -264,12 +275,23 @@ def animate_run(
         cb.set_label(UNITS + (f"\n({words})" if words else ""), fontsize=8 if not words else 7)
         cb.ax.tick_params(labelsize=7)
         images.append(im)
-    fig.text(0.01, 0.985, title or "Population density", ha="left", va="top",
-             fontsize=10, weight="bold")
+    head = title or "Population density"
+    if ctx.run:
+        head += f" — run: {ctx.run}"
+    fig.text(0.01, 0.985, head, ha="left", va="top", fontsize=10, weight="bold")
     fmt = _stamp_format(times[pick])
     stamp = fig.text(0.99, 0.985, fmt.format(times[pick[0]]), ha="right", va="top",
                      fontsize=10, family="monospace")
-    fig.tight_layout(rect=(0, 0, 1, 0.95))  # once: later frames keep this layout
+    import textwrap
+
+    caption = "\n".join(textwrap.wrap(map_caption(grid, "Each species keeps one colour "
+                                                        "scale for the whole animation."),
+                                       int(16 * 3.7 * n)))
+    fig.text(0.01, 0.01, caption, ha="left", va="bottom", fontsize=6, color="#333333")
+    if legend:
+        fig.legend(handles=legend, loc="lower right", bbox_to_anchor=(0.99, 0.005),
+                   fontsize=6.5, frameon=False, ncols=min(3, len(legend)))
+    fig.tight_layout(rect=(0, 0.09, 1, 0.95))  # once: later frames keep this layout
 
     palette = Image.new("P", (1, 1))
     palette.putpalette(_palette([SPECIES_CMAP.get(sp, "viridis") for sp in species]))

@@ -20,7 +20,13 @@ Safety rules, kept by construction:
 - the page carries a Content-Security-Policy that allows only ``data:``
   images and the inline style sheet, so it cannot load anything from the
   network or run a script even if a browser were tricked into parsing one;
-- the standard cautions (:data:`CAUTIONS`) are always shown near the top.
+- the standard cautions (:data:`CAUTIONS`) are always shown near the top: after the
+  plain-language summary and the answer (sections of place ``summary`` and
+  ``answer``), before any detail.
+
+Print: an A4 page style (Letter fits too: the margins leave room), tables that
+wrap to the page width instead of being cut, figures no taller than a page;
+on narrow screens every table row becomes a card of ``label: value`` lines.
 """
 
 from __future__ import annotations
@@ -40,7 +46,7 @@ from preyscape.cautions import CAUTIONS
 from preyscape.errors import InputError
 from preyscape.names import slug
 
-__all__ = ["CAUTIONS", "CSP", "Report", "Section"]
+__all__ = ["CAUTIONS", "CSP", "PLACES", "Report", "Section"]
 
 CSP = "default-src 'none'; img-src data:; style-src 'unsafe-inline'"
 """Content-Security-Policy of every report: data: images and inline styles only."""
@@ -89,6 +95,7 @@ th, td {
 thead th { border-bottom: 2px solid var(--ink); font-weight: 600; }
 tbody tr:nth-child(even) { background: var(--stripe); }
 .num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+th.num { white-space: normal; }
 table.facts th { font-weight: 600; color: var(--muted); padding-right: 1.5rem; }
 table.facts td { font-variant-numeric: tabular-nums; }
 figure { margin: 1.3rem 0; }
@@ -108,12 +115,44 @@ footer {
   margin-top: 3rem; padding-top: .8rem; border-top: 1px solid var(--rule);
   font-size: .85rem; color: var(--muted);
 }
+section.summary { background: var(--card); border: 1px solid var(--rule);
+  border-left: 6px solid var(--accent); padding: .2rem 1.2rem .6rem; margin-top: 1.6rem; }
+section.summary h2 { border-bottom: none; margin-top: 1rem; }
+h3 { font-size: 1.1rem; margin: 1.2rem 0 .4rem; }
+/* narrow screens: every table row becomes a small card of label: value lines */
+@media (max-width: 700px) {
+  table.data, table.data tbody, table.data tr, table.data td { display: block; width: 100%; }
+  table.data thead { display: none; }
+  table.data tr { border-bottom: 2px solid var(--rule); padding: .3rem 0; }
+  table.data td { border: none; padding: .1rem .5rem; text-align: left; }
+  table.data td::before { content: attr(data-label) ": "; font-weight: 600;
+    color: var(--muted); }
+}
+@page { size: A4; margin: 14mm 12mm 16mm; }
 @media print {
   .skip, nav.toc { display: none; }
-  body { background: #fff; }
-  figure, table, .box { break-inside: avoid; }
+  body { background: #fff; font-size: 10pt; line-height: 1.4; }
+  .page { max-width: none; padding: 0; }
+  header.top { padding-top: 0; }
+  h2 { break-after: avoid; font-size: 14pt; }
+  /* tables wrap instead of being cut: the full page width, small type, long words broken */
+  .scroll { overflow: visible; break-inside: avoid; }
+  table { width: 100%; font-size: 8pt; }
+  th, td { padding: .15rem .3rem; }
+  th { overflow-wrap: break-word; }
+  td { overflow-wrap: anywhere; }
+  figure, .box, tr { break-inside: avoid; }
+  caption, thead { break-after: avoid; }
+  figure img { max-width: 100%; max-height: 235mm; width: auto; height: auto;
+    object-fit: contain; }
+  a { color: inherit; text-decoration: none; }
 }
 """
+
+PLACES = ("summary", "answer", "detail", "method")
+"""Where a section goes, in this order: the plain-language summary, the answer to the
+planner's question, the details, the methods. The cautions follow the summary and the
+answer, before any detail."""
 
 
 def _e(value: object) -> str:
@@ -167,9 +206,12 @@ class Section:
     order.
     """
 
-    def __init__(self, title: str, anchor: str) -> None:
+    def __init__(self, title: str, anchor: str, place: str = "detail") -> None:
+        if place not in PLACES:
+            raise ValueError(f"place must be one of {PLACES}, not {place!r}")
         self.title = str(title)
         self.anchor = anchor
+        self.place = place
         self._blocks: list[str] = []  # escaped HTML fragments, built only here
 
     # --- text --------------------------------------------------------------
@@ -178,6 +220,11 @@ class Section:
         for part in re.split(r"\n\s*\n", str(text).strip()):
             if part.strip():
                 self._blocks.append(f"<p>{_e(part.strip())}</p>")
+        return self
+
+    def heading(self, text: str) -> Section:
+        """Add a sub-heading within the section."""
+        self._blocks.append(f"<h3>{_e(text)}</h3>")
         return self
 
     def bullets(self, items: Iterable[str]) -> Section:
@@ -270,15 +317,17 @@ class Section:
             f'<th scope="col"{num_attr if numeric[j] else ""}>{_e(c)}</th>'
             for j, c in enumerate(cols)
         )
+        labels = [f' data-label="{_e(c)}"' for c in cols]
         trs = "".join(
             "<tr>" + "".join(
-                f'<td{num_attr if num else ""}>{_e(text)}</td>' for text, num in r
+                f'<td{num_attr if num else ""}{labels[j]}>{_e(text)}</td>'
+                for j, (text, num) in enumerate(r)
             ) + "</tr>"
             for r in body
         )
         cap = f"<caption>{_e(caption)}</caption>" if caption else ""
         self._blocks.append(
-            f'<div class="scroll"><table>{cap}<thead><tr>{head}</tr></thead>'
+            f'<div class="scroll"><table class="data">{cap}<thead><tr>{head}</tr></thead>'
             f"<tbody>{trs}</tbody></table></div>"
         )
         return self
@@ -326,7 +375,8 @@ class Section:
 
     def _render(self) -> str:
         return (
-            f'<section id="{_e(self.anchor)}" aria-labelledby="{_e(self.anchor)}-h">'
+            f'<section id="{_e(self.anchor)}" class="{self.place}" '
+            f'aria-labelledby="{_e(self.anchor)}-h">'
             f'<h2 id="{_e(self.anchor)}-h">{_e(self.title)}</h2>'
             + "\n".join(self._blocks) + "</section>"
         )
@@ -353,7 +403,8 @@ class Report:
         self.generated = generated
         self.sections: list[Section] = []
 
-    def section(self, title: str, anchor: str | None = None) -> Section:
+    def section(self, title: str, anchor: str | None = None, *,
+                place: str = "detail") -> Section:
         """Start a new section (listed in the table of contents) and return it.
 
         Parameters
@@ -363,6 +414,9 @@ class Report:
         anchor : str, optional
             Fragment identifier for links (``report.html#anchor``): a letter,
             then letters, digits, ``-`` or ``_``. Default: made from the title.
+        place : {"summary", "answer", "detail", "method"}
+            Where it goes (:data:`PLACES`); sections of one place keep the
+            order they were made in.
         """
         taken = {s.anchor for s in self.sections} | _RESERVED
         if anchor is not None:
@@ -377,9 +431,13 @@ class Report:
             anchor, k = base, 2
             while anchor in taken:
                 anchor, k = f"{base}-{k}", k + 1
-        sec = Section(title, anchor)
+        sec = Section(title, anchor, place)
         self.sections.append(sec)
         return sec
+
+    def ordered(self) -> list[Section]:
+        """The sections in reading order: by :data:`PLACES`, then as made."""
+        return sorted(self.sections, key=lambda s: PLACES.index(s.place))
 
     def render(self) -> str:
         """The whole report as one HTML5 document (str)."""
@@ -387,8 +445,12 @@ class Report:
 
         when = (self.generated or datetime.now(UTC)).astimezone(UTC)
         stamp = when.strftime("%Y-%m-%d %H:%M UTC")
-        toc = ['<li><a href="#cautions">Read this first</a></li>']
-        toc += [f'<li><a href="#{_e(s.anchor)}">{_e(s.title)}</a></li>' for s in self.sections]
+        ordered = self.ordered()
+        first = [s for s in ordered if s.place in ("summary", "answer")]
+        rest = [s for s in ordered if s.place not in ("summary", "answer")]
+        toc = [f'<li><a href="#{_e(s.anchor)}">{_e(s.title)}</a></li>' for s in first]
+        toc += ['<li><a href="#cautions">Read this first</a></li>']
+        toc += [f'<li><a href="#{_e(s.anchor)}">{_e(s.title)}</a></li>' for s in rest]
         cautions = "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS)
         sub = f'<p class="subtitle">{_e(self.subtitle)}</p>' if self.subtitle else ""
         parts = [
@@ -410,6 +472,8 @@ class Report:
             sub,
             f'<p class="meta">Generated {_e(stamp)} with preyscape {_e(__version__)}</p>',
             "</header>",
+            '<main id="content">',
+            *(s._render() for s in first),
             '<section id="cautions" class="cautions" aria-labelledby="cautions-h">',
             '<h2 id="cautions-h">Read this first</h2>',
             '<div class="box caution" role="note"><p><span class="label">Cautions</span></p>',
@@ -419,8 +483,7 @@ class Report:
             '<h2 id="contents-h">Contents</h2>',
             f"<ol>{''.join(toc)}</ol>",
             "</nav>",
-            '<main id="content">',
-            *(s._render() for s in self.sections),
+            *(s._render() for s in rest),
             "</main>",
             "<footer>",
             f"<p>{_e(self.title)}: report generated {_e(stamp)} with preyscape "

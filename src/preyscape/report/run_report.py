@@ -8,14 +8,29 @@ return with :class:`~preyscape.report.html.Report` and writes one HTML file.
 The temporary outputs are removed; run ``preyscape hotspots``, ``waves``,
 ``effects`` or ``compare`` to keep the GeoTIFFs and tables.
 
+The page is read by a planner first and a modeller second. Every part has a
+place (:data:`preyscape.analysis.output.PLACES`), and the parts are shown in
+that order, each place in the order the parts were made:
+
+1. ``summary``: the plain-language summary (:func:`~preyscape.report.summary.summary_part`,
+   built from every output's ``headlines()``), then
+2. ``answer``: the answer to the planner's question (rankings and change maps of the
+   comparisons; the alternatives side by side), then the standard cautions;
+3. ``detail``: the maps of the run and the details of each analysis;
+4. ``method``: the model explained, the settings, the statistics and the sources.
+
+Other code adds parts through ``extra_parts`` (each rendered at its place) and
+sentences on how sure the results are through ``how_sure``.
+
 Examples
 --------
 ``run_folder`` and ``other_run`` are finished runs of one scenario; ``out_folder`` is a
 folder for outputs:
 
 >>> path = write_report(run_folder, out_folder / "report.html", [other_run], animate=False)
->>> path.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
-True
+>>> text = path.read_text(encoding="utf-8")
+>>> text.startswith("<!DOCTYPE html>"), text.index("Summary") < text.index("Read this first")
+(True, True)
 """
 
 from __future__ import annotations
@@ -23,14 +38,25 @@ from __future__ import annotations
 import math
 import shutil
 import tempfile
+from collections.abc import Sequence
+from contextlib import ExitStack
 from pathlib import Path
 from typing import Any
 
-from preyscape.analysis.output import Bullets, Facts, Figure, Paragraph, Part, Table
+from preyscape.analysis.output import (
+    PLACES,
+    Bullets,
+    Facts,
+    Figure,
+    Paragraph,
+    Part,
+    Table,
+    provenance,
+)
 from preyscape.errors import InputError
 from preyscape.store import SPECIES
 
-__all__ = ["SOURCES", "write_report"]
+__all__ = ["SOURCES", "render_part", "write_report"]
 
 SOURCES = [
     "Lotka–Volterra interaction: Lotka 1925; Volterra 1926, Nature 118:558.",
@@ -51,10 +77,16 @@ SOURCES = [
     "27:286. False discovery rate: Benjamini & Hochberg 1995, J R Stat Soc B 57:289.",
     "Change between runs beyond the timing of population cycles: the adjusted range of "
     "cumulative departures, Hurst 1951, Trans Am Soc Civ Eng 116:770 (from memory).",
+    "Hotspots that stand out by at least one standard deviation, and their persistence: "
+    "Santora & Veit 2013, Mar Ecol Prog Ser 487:287; all significant Gi* cells against the "
+    "top ones: Cleasby et al. 2020, Biol Conserv 241:108375.",
     "Numerical method: Strang 1968, SIAM J Numer Anal 5:506; Peaceman & Rachford 1955, "
     "J SIAM 3:28; Hundsdorfer & Verwer 2003, Numerical Solution of Time-Dependent "
     "Advection-Diffusion-Reaction Equations, Springer.",
 ]
+
+REPORT_FRAMES = 24
+"""Frames of the report's animation (the GIF of a run folder may hold more)."""
 
 
 def _num(x: Any, unit: str = "", digits: int = 4) -> str:
@@ -72,7 +104,7 @@ def _name(run, sp: str) -> str:
 
 def render_part(rep, part: Part) -> None:
     """Add a :class:`~preyscape.analysis.output.Part` to a report as one section."""
-    sec = rep.section(part.title, part.anchor)
+    sec = rep.section(part.title, part.anchor, place=part.place)
     for b in part.blocks:
         if isinstance(b, Paragraph):
             sec.paragraph(b.text)
@@ -171,11 +203,10 @@ def _measure_rows(measures: list[dict]) -> list[list]:
     return rows
 
 
-def _settings_section(rep, run) -> None:
+def _settings_part(run) -> Part:
     info = run.info
     g = info["grid"]
-    sec = rep.section("Scenario and run")
-    facts = [
+    facts = (
         ("scenario file", info.get("scenario", "")),
         ("variant", run.label),
         ("run folder", str(run.path)),
@@ -188,34 +219,39 @@ def _settings_section(rep, run) -> None:
         *_species_facts(run), *_prediction_facts(run),
         ("computed with", f"preyscape {info.get('preyscape_version')} in "
                           f"{info.get('wall_time_s')} s; finished {info.get('finished')}"),
-    ]
-    sec.facts(facts)
+    )
+    blocks: list = [Facts(facts)]
     if run.measures:
-        sec.table(["measure", "kind", "years", "size", "settings"], _measure_rows(run.measures),
-                  caption="Measures in this run")
-        for t in info.get("fence_topology") or []:  # leaky fences, checked before the run
+        blocks.append(Table(("measure", "kind", "years", "size", "settings"),
+                            tuple(tuple(r) for r in _measure_rows(run.measures)),
+                            caption="Measures in this run"))
+        for t in run.info.get("fence_topology") or []:  # leaky fences, checked before the run
             if t.get("warning"):
-                sec.paragraph(t["warning"])
+                blocks.append(Paragraph(t["warning"]))
     else:
-        sec.paragraph("This run has no corridors, fences or refuges.")
+        blocks.append(Paragraph("This run has no corridors, fences or refuges."))
+    return Part("Scenario and run", tuple(blocks), "scenario-and-run", place="method")
 
 
-def _maps_section(rep, run, gif: Path | None) -> None:
+def _maps_part(run, gif: Path | None) -> Part:
     maps = run.path / "maps"
-    sec = rep.section("Maps")
-    sec.paragraph("All densities are animals per km². Grey cells have no habitat data. "
-                  "Time means average the snapshots after the start.")
-    for f, cap in (("habitat.png", "Habitat classes and measures"),
+    blocks: list = [Paragraph(
+        f"The maps of run '{run.label}'. Densities are animals per km²; hatched grey cells "
+        "have no habitat data. Time means average the snapshots after the start. Every map "
+        "names its coordinate system in the caption; distances are in km from the map's "
+        "south-west corner.")]
+    for f, cap in (("habitat.png", "Habitat and the measures of this run"),
                    ("prey_mean.png", f"Time-mean density of {_name(run, 'prey')}"),
                    ("predator_mean.png", f"Time-mean density of {_name(run, 'predator')}"),
                    ("totals.png", "Animals in the whole landscape over time"),
                    ("prey_snapshots.png", "Prey from start to end, on one colour scale"),
                    ("predator_snapshots.png", "Predators from start to end")):
         if (maps / f).is_file():
-            sec.figure(maps / f, cap, cap)
+            blocks.append(Figure(maps / f, cap, cap))
     if gif is not None and gif.is_file():
-        sec.figure(gif, "Animation of both species (each on one colour scale for the "
-                   "whole run)", "animated maps of prey and predator density")
+        blocks.append(Figure(gif, "Animation of both species (each on one colour scale for "
+                             "the whole run)", "animated maps of prey and predator density"))
+    return Part(f"Maps of {run.label}", tuple(blocks), "maps")
 
 
 def _colonisation_parts(other) -> list[Part]:
@@ -233,40 +269,48 @@ def _colonisation_parts(other) -> list[Part]:
         ("target patch", "prey colonised (year)", "predators colonised (year)"), rows),))]
 
 
-def _analysis_parts(run, others, work: Path) -> list[Part]:
+def _run_analyses(run, others: Sequence, work: Path) -> list:
+    """Every registered analysis's output: comparisons first, then the one-run analyses."""
     from preyscape.analysis.commands import ANALYSES, writer
+    from preyscape.analysis.results import map_layers_of
+    from preyscape.plots import map_context
 
-    parts: list[Part] = []
     settings = run.settings()
     mods = [writer(m) for m in ANALYSES if writer(m).COMMAND.in_report]
-    for mod in mods:
-        if mod.COMMAND.runs == "one":
-            parts += mod.write([run], settings, work / mod.COMMAND.name).report_parts()
+    outputs = []
     for mod in mods if others else ():  # all other runs in one call: one ranking
         if mod.COMMAND.runs == "several":
-            parts += mod.write([run, *others], settings, work / mod.COMMAND.name).report_parts()
-    for other in others:
-        parts += _colonisation_parts(other)
-    return parts
+            with map_context(**map_layers_of([run, *others])):
+                outputs.append(mod.write([run, *others], settings, work / mod.COMMAND.name))
+    for mod in mods:
+        if mod.COMMAND.runs == "one":
+            with map_context(**run.map_layers()):
+                outputs.append(mod.write([run], settings, work / mod.COMMAND.name))
+    return outputs
 
 
 def write_report(run_folder: str | Path, out: str | Path | None = None,
                  others: list[str | Path] | tuple = (), *, overwrite: bool = False,
-                 animate: bool = True, ensemble: str | Path | None = None) -> Path:
+                 animate: bool = True, extra_parts: Sequence[Part] = (),
+                 how_sure: Sequence[str] = (), ensemble: str | Path | None = None) -> Path:
     """Analyse a run (and compare it with others) into one self-contained HTML file.
 
     Parameters
     ----------
     run_folder : str or pathlib.Path
-        The run to report on.
+        The run to report on (the reference).
     out : str or pathlib.Path, optional
         The HTML file; default ``<run_folder>/report.html``.
     others : sequence of paths
-        Runs of the same grid to compare with (each as B against this run as A).
+        Alternatives on the same grid to compare with (each as B against this run as A).
     overwrite : bool
         Replace an existing report file.
     animate : bool
         Include the animated GIF of both species.
+    extra_parts : sequence of Part
+        More parts, each rendered at its place (e.g. an uncertainty section).
+    how_sure : sequence of str
+        Sentences for the summary's "How sure" paragraph.
     ensemble : str or pathlib.Path, optional
         A finished ensemble folder (``preyscape ensemble``) whose uncertainty
         section is added.
@@ -277,7 +321,6 @@ def write_report(run_folder: str | Path, out: str | Path | None = None,
         The report file.
     """
     from preyscape.analysis.results import open_run
-    from preyscape.plots.animate import animate_run
     from preyscape.report.html import Report
 
     run = open_run(run_folder)
@@ -287,37 +330,58 @@ def write_report(run_folder: str | Path, out: str | Path | None = None,
                          "--overwrite to replace it", str(out))
     others = [open_run(o) for o in others]
     years = run.info["years"]
-    sub = f"variant {run.label}: {years:g} year{'' if years == 1 else 's'}"
+    sub = f"{run.label}: {years:g} year{'' if years == 1 else 's'}"
     if others:
         sub += " — compared with " + ", ".join(o.label for o in others)
     rep = Report(run.title, sub)
     work = Path(tempfile.mkdtemp(prefix=".preyscape-report-",
                                  dir=out.parent if out.parent.exists() else None))
     try:
-        _settings_section(rep, run)
-        gif = None
-        if animate:
-            gif = animate_run(run.grid, run.times, run.frame, work / "animation.gif",
-                              names=run.species_names, title=run.title, scale="auto",
-                              floor=run.settings().presence)
-        _maps_section(rep, run, gif)
-        for part in _analysis_parts(run, others, work):
-            render_part(rep, part)
         if ensemble is not None:  # the uncertainty section of an ensemble of this scenario
             from preyscape.ensemble.output import open_ensemble
 
-            for part in open_ensemble(ensemble).report_parts():
-                render_part(rep, part)
-        src = rep.section("Methods and sources")
-        src.paragraph("preyscape solves reaction–diffusion equations for the densities of "
-                      "both species on the habitat raster (Strang splitting of the local "
-                      "interaction and movement; Peaceman–Rachford ADI for movement). See "
-                      "docs/method.md for the equations and the published checks in the "
-                      "test suite.")
-        src.bullets(SOURCES)
+            extra_parts = [*extra_parts, *open_ensemble(ensemble).report_parts()]
+        parts = _parts(run, others, work, animate, how_sure) + list(extra_parts)
+        for part in sorted(parts, key=lambda p: PLACES.index(p.place)):
+            render_part(rep, part)
         rep.write(out, overwrite=overwrite)
     finally:
         shutil.rmtree(work, ignore_errors=True)
         for r in (run, *others):
             r.close()
     return out
+
+
+def _parts(run, others: Sequence, work: Path, animate: bool,
+           how_sure: Sequence[str]) -> list[Part]:
+    from preyscape.plots import map_context
+    from preyscape.plots.animate import animate_run
+    from preyscape.report.alternatives import alternatives_parts
+    from preyscape.report.summary import model_part, summary_part
+
+    with ExitStack() as stack:
+        stack.enter_context(provenance(**run.provenance()))
+        outputs = _run_analyses(run, others, work)
+        gif = None
+        if animate:
+            with map_context(**run.map_layers()):
+                gif = animate_run(run.grid, run.times, run.frame, work / "animation.gif",
+                                  names=run.species_names, title=run.title,
+                                  max_frames=REPORT_FRAMES, scale="auto",
+                                  floor=run.settings().presence)
+    answers = [p for o in outputs for p in o.report_parts() if p.place == "answer"]
+    parts = [summary_part(run, others, outputs, how_sure=how_sure)]
+    parts += alternatives_parts(run, others, outputs, work, has_answer=bool(answers))
+    parts += [_maps_part(run, gif)]
+    for o in outputs:
+        parts += o.report_parts()
+    for other in others:
+        parts += _colonisation_parts(other)
+    parts += [model_part(run), _settings_part(run),
+              Part("Sources", (Paragraph(
+                  "preyscape solves reaction–diffusion equations for the densities of both "
+                  "species on the habitat raster (Strang splitting of the local interaction "
+                  "and movement; Peaceman–Rachford ADI for movement). See docs/method.md for "
+                  "the equations and the published checks in the test suite."),
+                  Bullets(tuple(SOURCES))), "sources", place="method")]
+    return parts
