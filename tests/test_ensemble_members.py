@@ -8,9 +8,11 @@ from conftest import X0
 from ensemble_cases import ensemble_scenario
 
 from preyscape.assemble import prepare
+from preyscape.ensemble import members
 from preyscape.ensemble.members import (
     MemberFailure,
     MemberResult,
+    ScratchProblem,
     derive_setup,
     prepare_variant,
     run_member,
@@ -84,7 +86,10 @@ def test_the_shared_landscape_is_never_changed(scenario):
 def test_member_summaries_equal_those_of_a_run_folder(scenario, tmp_path):
     # design requirement: a member's summaries use the run folder's definitions (snapshots
     # after the start, float32 snapshots, presence at or above the threshold); checked
-    # against simulate() and the one reader of run folders
+    # against simulate() and the one reader of run folders. The timing margin is that of
+    # the run comparison (analysis.change.window_statistics, Hurst 1951, Trans Am Soc Civ
+    # Eng 116:770) over the same snapshots
+    from preyscape.analysis.change import window_statistics
     from preyscape.analysis.results import cell_statistics, open_run
     from preyscape.runfolder import simulate
 
@@ -102,6 +107,12 @@ def test_member_summaries_equal_those_of_a_run_folder(scenario, tmp_path):
             st = cell_statistics(run.ds, sp, 1.0)
             np.testing.assert_array_equal(res.maps[f"{sp}_mean"], st.mean)
             np.testing.assert_array_equal(res.maps[f"{sp}_persistence"], st.persistence)
+            ws = window_statistics(lambda sp=sp: (u for _, u in run.frames(sp)),
+                                   presence=1.0, mask=run.mask)
+            assert ws.snapshots == run.ds.sizes["time"] - 1  # the snapshots after the start
+            np.testing.assert_array_equal(res.maps[f"{sp}_margin"],
+                                          ws.margin.astype(np.float32))
+            assert np.nanmax(res.maps[f"{sp}_margin"]) > 0  # a margin that could fail
             np.testing.assert_array_equal(res.totals[sp], run.ds[f"{sp}_total"].values)
             last = run.ds[sp].isel(time=-1).values
             np.testing.assert_array_equal(np.nan_to_num(res.maps[f"{sp}_final"]),
@@ -130,3 +141,38 @@ def test_a_member_failing_on_its_values_returns_the_reason(scenario):
     assert "InputError" in bad.message and "outside the landscape" in bad.message
     good = run_member(land, 4, {"start.releases.0.x": X0 + 1500.0}, 1, threads=1)
     assert isinstance(good, MemberResult)
+
+
+def test_snapshot_files_are_removed_however_the_member_ends(scenario, tmp_path, monkeypatch):
+    # design requirement: the snapshots kept for the timing margin's second pass live in a
+    # temporary folder that is removed after a member that ran, failed on its values, or
+    # could not write them (that one is raised: it is not the member's fault)
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    seen = []
+    real = members.SummarySink.__init__
+
+    def spy(self, *args, **kw):
+        real(self, *args, **kw)
+        seen.append(sorted(p.name for p in self.files.values()))
+        assert all(p.parent.parent == scratch and p.is_file() for p in self.files.values())
+
+    monkeypatch.setattr(members, "_scratch_folder", lambda: str(scratch))
+    monkeypatch.setattr(members.SummarySink, "__init__", spy)
+    land = prepare_variant(scenario, ["start.releases.0.x"], presence=1.0, thresholds=THR)
+    good = run_member(land, 0, {"start.releases.0.x": X0 + 1500.0}, 1, threads=1)
+    assert isinstance(good, MemberResult) and good.maps["prey_margin"].dtype == np.float32
+    assert seen == [["predator_snapshots.npy", "prey_snapshots.npy"]]
+    assert not list(scratch.iterdir())
+    bad = run_member(land, 1, {"start.releases.0.x": X0 + 3500.0}, 1, threads=1)
+    assert isinstance(bad, MemberFailure) and not list(scratch.iterdir())
+
+    def full(path, mode="r", *args, **kw):
+        if mode == "ab":
+            raise OSError(28, "No space left on device")
+        return open(path, mode, *args, **kw)
+
+    monkeypatch.setattr(members, "open", full, raising=False)
+    with pytest.raises(ScratchProblem, match="No space left on device") as err:
+        run_member(land, 2, {"start.releases.0.x": X0 + 1500.0}, 1, threads=1)
+    assert "snapshots.npy" in str(err.value) and not list(scratch.iterdir())

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from preyscape.ensemble.design import Parameter, plan_design
-from preyscape.ensemble.members import MemberFailure, MemberResult
+from preyscape.ensemble.members import MAPS, MemberFailure, MemberResult
 from preyscape.ensemble.store import MemberStore, open_members
 from preyscape.errors import FileProblem
 from preyscape.landscape.grid import Grid
@@ -20,7 +20,7 @@ TIMES = np.array([0.0, 0.5, 1.0])
 def result(variant: str, m: int, value: float) -> MemberResult:
     maps = {f"{sp}_{k}": np.full(GRID.shape, value + j, dtype=np.float32)
             for j, sp in enumerate(("prey", "predator"))
-            for k in ("mean", "persistence", "final", "arrival")}
+            for k in MAPS}
     totals = {sp: np.array([1.0, 2.0, 3.0]) * value for sp in ("prey", "predator")}
     return MemberResult(variant, m, maps, totals, 0.01, 0.1)
 
@@ -81,7 +81,7 @@ def test_status_is_written_last(tmp_path, monkeypatch):
     monkeypatch.setattr(st._g.__class__, "__getitem__", spy)
     st.write(result("baseline", 0, 1.0))
     assert order[-1] == "status" and order.count("status") == 1
-    assert len(order) == 8 + 2 + 2  # eight maps, two totals, the step, then the status
+    assert len(order) == 10 + 2 + 2  # ten maps, two totals, the step, then the status
 
 
 def test_open_refuses_what_is_not_a_store(tmp_path):
@@ -89,3 +89,16 @@ def test_open_refuses_what_is_not_a_store(tmp_path):
         open_members(tmp_path)
     with pytest.raises(FileProblem, match="not a member store"):
         MemberStore.open(tmp_path / "none.zarr")
+
+
+def test_a_store_without_the_timing_margin_is_refused(tmp_path):
+    # design requirement: a store written before the timing margin cannot be continued
+    # (its members would lack the maps the change rule needs); the message says what to do
+    import zarr
+
+    make(tmp_path / "m.zarr")
+    g = zarr.open_group(tmp_path / "m.zarr", mode="r+", zarr_format=3)
+    for sp in ("prey", "predator"):
+        del g[f"{sp}_margin"]
+    with pytest.raises(FileProblem, match="prey_margin, predator_margin.*--overwrite"):
+        MemberStore.open(tmp_path / "m.zarr")

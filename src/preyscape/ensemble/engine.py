@@ -468,9 +468,9 @@ def run_ensemble(scenario: Scenario | str | Path, out: str | Path, *,
 def _member_memory_mb(land) -> float:
     """Estimated memory of one worker running a member, MB (Python and libraries included)."""
     cells = land.setup.grid.ny * land.setup.grid.nx
-    # a run's ~180 B per cell, the shared landscape (~120 B) and the summaries (~80 B),
-    # plus ~300 MB for a worker process with the libraries
-    return 300.0 + cells * 380 / 1e6
+    # a run's ~180 B per cell, the shared landscape (~120 B) and the summaries (~190 B at
+    # their peak, the timing margin's passes), plus ~300 MB for a worker with the libraries
+    return 300.0 + cells * 490 / 1e6
 
 
 def _write_record(out: Path, run: EnsembleRun) -> None:

@@ -8,7 +8,9 @@ by :func:`prepare_variant` and sent to the workers once. A member's
 (:func:`preyscape.ensemble.design.rebuild_of`); no raster or GeoJSON is read
 again. :func:`run_member` runs the member in memory and keeps only its
 summaries (:class:`SummarySink`), so a member's memory is that of one run
-without its snapshots.
+without its snapshots: the snapshots the timing margin needs a second time
+are kept on disk, in a temporary file of the worker's local folder, while
+the member runs.
 
 A member that fails on its values (an invalid combination, densities that
 stop being finite) returns a :class:`MemberFailure` with the message instead
@@ -18,25 +20,33 @@ of raising, so it does not sink the others.
 from __future__ import annotations
 
 import math
+import sys
+import tempfile
 import time
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, replace
+from pathlib import Path
 
 import numpy as np
 
+from preyscape.analysis.change import window_statistics
 from preyscape.assemble import Setup, epoch_state, interaction_of, prepare
 from preyscape.ensemble.design import rebuild_of
+from preyscape.errors import FileProblem
 from preyscape.landscape.placed import combine
 from preyscape.model.fields import build_fields, multipliers_from_classes
 from preyscape.scenario import Scenario
 from preyscape.store import SPECIES, used_snapshots
 
-__all__ = ["MAPS", "MemberFailure", "MemberResult", "SummarySink", "VariantLandscape",
-           "derive_setup", "prepare_variant", "run_member"]
+__all__ = ["MAPS", "MemberFailure", "MemberResult", "ScratchProblem", "SummarySink",
+           "VariantLandscape", "derive_setup", "prepare_variant", "run_member"]
 
-MAPS = ("mean", "persistence", "final", "arrival")
-"""Per-member maps of each species: time-mean density (animals/km²), persistence (share
-of snapshots present, 0–1), final density (animals/km²), arrival time (years; NaN: never)."""
+MAPS = ("mean", "margin", "persistence", "final", "arrival")
+"""Per-member maps of each species: time-mean density (animals/km²), timing margin
+(R/n of :func:`preyscape.analysis.change.window_statistics`, animals/km²), persistence
+(share of snapshots present, 0–1), final density (animals/km²), arrival time (years;
+NaN: never). Mean, margin and persistence are over the snapshots after the start."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -159,6 +169,28 @@ def derive_setup(land: VariantLandscape, sc: Scenario) -> Setup:
     return replace(setup, dt=time_step(sc, setup, fields, inter, P0))
 
 
+class ScratchProblem(FileProblem):
+    """A member's temporary snapshot files could not be written or read back.
+
+    A full or vanished temporary folder is not the member's fault: unlike a
+    :class:`MemberFailure` it is raised, so dask retries the task elsewhere and
+    a later run of the same command runs the member again.
+    """
+
+
+@contextmanager
+def _scratch_io(path: str | Path) -> Iterator[None]:
+    """Turn an I/O error on a member's temporary files into a :class:`ScratchProblem`."""
+    try:
+        yield
+    except OSError as exc:
+        raise ScratchProblem(f"cannot write or read a member's temporary snapshots "
+                             f"({exc.strerror or exc}); the timing margin needs 4 bytes per "
+                             "cell and snapshot of each species in the temporary folder "
+                             "(TMPDIR, or the dask worker's local directory)",
+                             str(path)) from None
+
+
 class SummarySink:
     """Receives a member's snapshots and keeps only its summaries (memory O(cells)).
 
@@ -166,7 +198,16 @@ class SummarySink:
     means and persistence equal those of the same run written with
     :func:`preyscape.runfolder.simulate` and read back (definitions of
     :mod:`preyscape.analysis.results`: snapshots after the start, presence
-    at or above the threshold).
+    at or above the threshold), and the timing margin equals
+    :func:`preyscape.analysis.change.window_statistics` of that run over the
+    same snapshots (the statistic of ``preyscape compare``).
+
+    The margin R/n needs the window mean before its second pass over the
+    snapshots, so the used snapshots of each species are appended, as
+    float32, to a ``.npy`` file in ``folder`` and read back one at a time
+    with plain reads: a long-lived memory map would leave every page it
+    touched in the process's resident memory, which dask's nanny counts
+    against the worker's memory limit. The caller removes ``folder``.
 
     Parameters
     ----------
@@ -180,10 +221,13 @@ class SummarySink:
         Presence threshold, animals/km².
     thresholds : dict
         Arrival density per species, animals/km².
+    folder : str or pathlib.Path
+        An existing temporary folder for the snapshot files (keyword only);
+        it needs 4 bytes per cell and used snapshot for each species.
     """
 
     def __init__(self, mask: np.ndarray, cell_area_km2: float, n_snapshots: int,
-                 presence: float, thresholds: dict) -> None:
+                 presence: float, thresholds: dict, *, folder: str | Path) -> None:
         self.mask = mask
         self.area = cell_area_km2
         self.used = used_snapshots(n_snapshots)
@@ -195,6 +239,15 @@ class SummarySink:
         self.arrival = {sp: np.full(mask.shape, np.nan) for sp in SPECIES}
         self.final = {sp: np.zeros(mask.shape, dtype=np.float32) for sp in SPECIES}
         self.totals = {sp: np.full(n_snapshots, np.nan) for sp in SPECIES}
+        self.files = {sp: Path(folder) / f"{sp}_snapshots.npy" for sp in SPECIES}
+        self.stored = 0
+        self.offset = {}
+        header = {"descr": np.lib.format.dtype_to_descr(np.dtype(np.float32)),
+                  "fortran_order": False, "shape": (len(self.used), *mask.shape)}
+        for sp, path in self.files.items():
+            with _scratch_io(path), open(path, "wb") as fh:
+                np.lib.format.write_array_header_1_0(fh, header)
+                self.offset[sp] = fh.tell()
 
     def write(self, t: float, N: np.ndarray, P: np.ndarray) -> None:
         """Take one snapshot at time ``t`` (years), densities in animals/km²."""
@@ -206,20 +259,49 @@ class SummarySink:
             if k in self.used:
                 self.sum[sp] += f
                 self.occ[sp] += f >= self.presence
+                with _scratch_io(self.files[sp]), open(self.files[sp], "ab") as fh:
+                    f.astype(np.float32).tofile(fh)  # exact: f holds float32 values
             new = np.isnan(self.arrival[sp]) & (f >= self.thresholds[sp]) & self.mask
             self.arrival[sp][new] = t
             self.final[sp] = f32
+        self.stored += k in self.used
         self.k += 1
+
+    def snapshots(self, species: str) -> Iterator[np.ndarray]:
+        """The used snapshots of ``species`` again, one at a time (animals/km², float64)."""
+        cells, path = self.mask.size, self.files[species]
+        with _scratch_io(path), open(path, "rb") as fh:
+            fh.seek(self.offset[species])
+            for _ in range(self.stored):
+                u = np.fromfile(fh, dtype=np.float32, count=cells)
+                if u.size != cells:
+                    raise OSError(f"{path} ends early")
+                yield u.reshape(self.mask.shape).astype(np.float64)
 
     def maps(self) -> dict[str, np.ndarray]:
         """``{"<species>_<map>": float32 map}`` for :data:`MAPS`, NaN off the data mask."""
         n = max(len(self.used), 1)
         out = {}
         for sp in SPECIES:
-            for name, a in (("mean", self.sum[sp] / n), ("persistence", self.occ[sp] / n),
+            stats = window_statistics(lambda sp=sp: self.snapshots(sp),
+                                      presence=self.presence, mask=self.mask)
+            for name, a in (("mean", self.sum[sp] / n), ("margin", stats.margin),
+                            ("persistence", self.occ[sp] / n),
                             ("final", self.final[sp]), ("arrival", self.arrival[sp])):
                 out[f"{sp}_{name}"] = np.where(self.mask, a, np.nan).astype(np.float32)
         return out
+
+
+def _scratch_folder() -> str | None:
+    """The dask worker's local folder when running on one, else None (the system's)."""
+    if "distributed" not in sys.modules:  # not on a worker: do not import dask for this
+        return None
+    try:
+        from distributed import get_worker
+
+        return get_worker().local_directory
+    except (ValueError, AttributeError):  # in the client's process: no worker
+        return None
 
 
 @dataclass(frozen=True, eq=False)
@@ -288,18 +370,27 @@ def run_member(land: VariantLandscape, index: int, values: dict, seed: int, *,
     t0 = time.perf_counter()
     if threads:
         _set_threads(threads)
-    try:
-        sc = land.setup.scenario.with_values({**values, "run.seed": int(seed)})
-        setup = derive_setup(land, sc)
-        n = round(sc.run.years / sc.run.save_every) + 1
-        sink = SummarySink(setup.grid.mask, setup.grid.cell_area_km2, n, land.presence,
-                           land.thresholds)
-        integrate_epochs(setup.epoch_stepper, [e[:2] for e in setup.epochs], setup.N0,
-                         setup.P0, sc.run.save_every, setup.dt, sink, progress=False)
-    except Exception as exc:  # a member's failure is reported, not raised
-        text = getattr(exc, "message", None) or str(exc) or type(exc).__name__
-        return MemberFailure(land.variant, int(index), f"{type(exc).__name__}: {text}")
-    if not all(math.isfinite(float(t[-1])) for t in sink.totals.values()):
-        return MemberFailure(land.variant, int(index), "the run did not write every snapshot")
-    return MemberResult(land.variant, int(index), sink.maps(), sink.totals, setup.dt,
+    # the snapshot files of the timing margin: removed when the member ends, however it ends
+    root = _scratch_folder()
+    with _scratch_io(root or tempfile.gettempdir()):
+        scratch = tempfile.TemporaryDirectory(prefix="preyscape-member-", dir=root)
+    with scratch as tmp:
+        try:
+            sc = land.setup.scenario.with_values({**values, "run.seed": int(seed)})
+            setup = derive_setup(land, sc)
+            n = round(sc.run.years / sc.run.save_every) + 1
+            sink = SummarySink(setup.grid.mask, setup.grid.cell_area_km2, n, land.presence,
+                               land.thresholds, folder=tmp)
+            integrate_epochs(setup.epoch_stepper, [e[:2] for e in setup.epochs], setup.N0,
+                             setup.P0, sc.run.save_every, setup.dt, sink, progress=False)
+        except ScratchProblem:
+            raise
+        except Exception as exc:  # a member's failure is reported, not raised
+            text = getattr(exc, "message", None) or str(exc) or type(exc).__name__
+            return MemberFailure(land.variant, int(index), f"{type(exc).__name__}: {text}")
+        if not all(math.isfinite(float(t[-1])) for t in sink.totals.values()):
+            return MemberFailure(land.variant, int(index),
+                                 "the run did not write every snapshot")
+        maps = sink.maps()
+    return MemberResult(land.variant, int(index), maps, sink.totals, setup.dt,
                         time.perf_counter() - t0)

@@ -5,8 +5,10 @@
 
 - ``persistence_<variant>_<species>.tif`` / ``.png``: probability of persistence;
 - ``gain_<alternative>_<species>.tif``, ``loss_...``: probability of a gain or a
-  loss against the baseline, and ``robust_<alternative>_<species>.tif``: robust
-  change (int8: 1 gain, −1 loss, 0 none, −128 no data), each with a PNG map;
+  loss against the baseline (beyond the timing margin: the rule of
+  :func:`preyscape.analysis.change.level_change`), and
+  ``robust_<alternative>_<species>.tif``: robust change (int8: 1 gain, −1 loss,
+  0 none, −128 no data), each with a PNG map;
 - ``ranking.csv`` / ``ranking.png``: the alternatives with the median and 5–95 %
   interval of every ranking column;
 - ``outcomes.csv``: every stored member's landscape outcomes and values;
@@ -56,6 +58,8 @@ OUTCOMES = {"total": "animals in the landscape (time mean)",
 """Landscape outcomes of the sensitivity analysis, per species (``<species>_<outcome>``)."""
 
 SOURCES = [
+    "Change beyond the timing of population cycles: the adjusted range of cumulative "
+    "departures, Hurst 1951, Trans Am Soc Civ Eng 116:770 (from memory).",
     "Latin hypercube sampling: McKay, Beckman & Conover 1979, Technometrics 21:239 "
     "(scipy.stats.qmc).",
     "Partial rank correlation coefficients and their t-test: Marino, Hogue, Ray & "
@@ -127,10 +131,12 @@ class EnsembleOutput(Written):
             f"{rec['members']} members per variant drew the uncertain parameters from their "
             f"ranges; member i of each alternative uses the same values and seed as member i "
             f"of the baseline, so each alternative is compared with the baseline member by "
-            f"member. A cell gains (loses) when its time-mean density rises (falls) by more "
-            f"than {rec['change_threshold']:.0%}, or the species appears (disappears). A "
-            f"robust change is one at least {rec['agreement']:.0%} of the member pairs agree "
-            "on.")]
+            f"member. A cell gains (loses) when its mean density over the run rises (falls) "
+            f"by more than {rec['change_threshold']:.0%} and by more than the timing margin "
+            "of the two members' population cycles, or the species appears (disappears): "
+            "the rule of the run comparison, so a measure that only shifts the timing of "
+            "the cycles is no change. A robust change is one at least "
+            f"{rec['agreement']:.0%} of the member pairs agree on.")]
         if self.ranking:
             blocks.append(_ranking_table(self.ranking, rec["rank_by"]))
             blocks += self._figs("figure", key="ranking")
@@ -148,7 +154,8 @@ class EnsembleOutput(Written):
         blocks: list = [Paragraph(
             "Probability of persistence: the share of members in which the species is "
             "present at the end of the run. Probability of a gain or loss: the share of "
-            "member pairs in which the cell gains or loses against the baseline.")]
+            "member pairs in which the cell gains or loses against the baseline beyond what "
+            "the timing of population cycles alone explains.")]
         for sp in SPECIES:
             blocks += self._figs("map", key="persistence", species=sp)
         for alt in self.record["alternatives"]:
@@ -359,7 +366,8 @@ def write_summaries(folder: str | Path, *, threshold: float, agreement: float,
     folder : str or pathlib.Path
         The ensemble folder (with ``members.zarr`` and ``ensemble.json``).
     threshold : float
-        Relative change of the time mean that counts (0.1 = 10 %).
+        Smallest relative change of the time mean that counts (0.1 = 10 %), besides
+        the timing margin (:func:`preyscape.ensemble.summaries.change_classes`).
     agreement : float
         Share of member pairs that must agree for a robust change.
     rank_by : str

@@ -15,6 +15,7 @@ Layout (``members.zarr``):
 variable               dims                                 meaning
 =====================  ===================================  =============================
 ``<sp>_mean``          variant, member, y, x                time-mean density, animals/km²
+``<sp>_margin``        variant, member, y, x                timing margin R/n, animals/km²
 ``<sp>_persistence``   variant, member, y, x                share of snapshots present (0–1)
 ``<sp>_final``         variant, member, y, x                density at the end, animals/km²
 ``<sp>_arrival``       variant, member, y, x                first time at or above the arrival
@@ -62,10 +63,13 @@ __all__ = ["MemberStore", "STATUS", "open_members"]
 STATUS = {0: "not run", 1: "stored", 2: "failed"}
 """Codes of the ``status`` variable."""
 
-_MAPS = ("mean", "persistence", "final", "arrival")
-_UNITS = {"mean": "animals per km2", "persistence": "1", "final": "animals per km2",
-          "arrival": "year"}
+_MAPS = ("mean", "margin", "persistence", "final", "arrival")
+_UNITS = {"mean": "animals per km2", "margin": "animals per km2", "persistence": "1",
+          "final": "animals per km2", "arrival": "year"}
 _LONG = {"mean": "time-mean density over the snapshots after the start",
+         "margin": "timing margin over the snapshots after the start: adjusted range of the "
+                   "cumulative departures from the time mean (Hurst 1951) over the number "
+                   "of snapshots",
          "persistence": "share of the snapshots after the start with density at or above "
                         "the presence threshold",
          "final": "density at the end of the run",
@@ -171,9 +175,15 @@ class MemberStore:
 
         try:
             g = zarr.open_group(Path(path), mode="r+", zarr_format=3)
-            return cls(path, g)
+            store = cls(path, g)
         except (FileNotFoundError, KeyError, ValueError) as exc:
             raise FileProblem(f"not a member store ({exc})", str(path)) from None
+        missing = [f"{sp}_{m}" for sp in SPECIES for m in _MAPS if f"{sp}_{m}" not in g]
+        if missing:  # a store of an earlier version (before the timing margin)
+            raise FileProblem(f"this member store lacks {', '.join(missing)} (written by an "
+                              "earlier preyscape); pass --overwrite to run the ensemble "
+                              "again", str(path))
+        return store
 
     @property
     def attrs(self) -> dict:

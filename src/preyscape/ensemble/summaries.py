@@ -9,11 +9,18 @@ probability of persistence
     present at the end.
 change of a member pair
     Member *i* of an alternative against member *i* of the baseline (same
-    drawn values, same seed) by :func:`classify_change`: a gain, a loss or no
-    change of the time-mean density, with the rules of the run comparison
-    (``preyscape compare``): where the baseline is present, a relative change
-    beyond the change threshold; where it is absent, the species appearing is
-    a gain.
+    drawn values, same seed) by :func:`change_classes`, the rule of the run
+    comparison (``preyscape compare``,
+    :func:`preyscape.analysis.change.level_change`): the difference of the
+    time means over the snapshots after the start counts only where it
+    exceeds both the timing margin (R_A + R_B)/n, the adjusted range of the
+    cumulative departures of each member (Hurst 1951, Trans. Am. Soc. Civ.
+    Eng. 116:770) over the number of snapshots, and the change threshold times
+    the baseline's mean. A cell gains where the classes are above 0 (*more*,
+    *new*) and loses where they are below 0 (*fewer*, *gone*). A measure that
+    only shifts the timing of population cycles moves the means by less than
+    the margin, so it is no change; the earlier rule (the mean changes by
+    more than 10 %) counted it as one nearly everywhere.
 probability of a gain (loss)
     Per cell, the share of member pairs classed as a gain (loss).
 robust change
@@ -29,10 +36,18 @@ time), so memory does not grow with the number of members.
 
 Examples
 --------
->>> a = np.array([[10.0, 10.0, 0.0, 10.0]])
->>> b = np.array([[12.0, 8.0, 5.0, 10.5]])
->>> classify_change(a, b, threshold=0.1, presence=1.0).tolist()
-[[1, -1, 1, 0]]
+Four cells over one period of a cycle: in member B the first cell cycles half a
+period later, the second at half the level, the third at twice the level, and
+the fourth cell's species appears:
+
+>>> from preyscape.analysis.change import window_statistics
+>>> t = np.arange(1, 9) / 8.0
+>>> c = 10 + 8 * np.sin(2 * np.pi * t)
+>>> a = window_statistics([np.array([[v, v, v, 0.0]]) for v in c], presence=1.0)
+>>> b = window_statistics([np.array([[20 - v, v / 2, 2 * v, 5.0]]) for v in c],
+...                       presence=1.0)
+>>> change_classes(a, b, threshold=0.1, presence=1.0).tolist()
+[[0, -1, 1, 2]]
 """
 
 from __future__ import annotations
@@ -41,61 +56,71 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from preyscape.analysis.change import NO_DATA, WindowStatistics, level_change
 from preyscape.store import SPECIES, used_snapshots
 
-__all__ = ["NO_DATA", "RANKING_COLUMNS", "Summaries", "classify_change", "member_outcomes",
-           "ranking", "summarise"]
+__all__ = ["NO_DATA", "RANKING_COLUMNS", "Summaries", "change_classes", "member_outcomes",
+           "member_statistics", "ranking", "summarise"]
 
-NO_DATA = -128
-"""Code of :func:`classify_change` and the robust change maps for cells without data."""
+# NO_DATA (-128): code of change_classes and the robust change maps for cells without data
 
 RANKING_COLUMNS = ("total_change", "area_gained_km2", "area_lost_km2", "occupied_change_km2")
 """Per-species ranking columns, named ``<species>_<column>``."""
 
 
-def classify_change(mean_a: np.ndarray, mean_b: np.ndarray, *, threshold: float,
-                    presence: float) -> np.ndarray:
-    """Gain, loss or no change of the time-mean density from member A to member B, per cell.
+def change_classes(a: WindowStatistics, b: WindowStatistics, *, threshold: float,
+                   presence: float) -> np.ndarray:
+    """Level change of member B against member A per cell, by the comparison's rule.
 
-    * Where A >= ``presence``: a gain if B − A > ``threshold`` · A, a loss if
-      A − B > ``threshold`` · A (a species that disappears is a loss);
-    * where A < ``presence``: a gain if B >= ``presence`` (the species
-      appears), else no change.
+    The classes of :func:`preyscape.analysis.change.level_change`: −2 gone,
+    −1 fewer, 0 no clear change, 1 more, 2 new; a gain is a class above 0, a
+    loss one below 0 (other than :data:`NO_DATA`).
 
     Parameters
     ----------
-    mean_a, mean_b : numpy.ndarray
-        Time-mean densities of the two members, animals/km², same shape.
+    a, b : WindowStatistics
+        Window mean and timing margin of each member (animals/km², over the
+        same snapshots), for example :func:`member_statistics`.
     threshold : float
-        Relative change that counts (0.1 = 10 %), ≥ 0.
+        Smallest relative change of the mean that counts (0.1 = 10 % of A's), ≥ 0.
     presence : float
         Presence threshold, animals/km², > 0.
 
     Returns
     -------
     numpy.ndarray of int8
-        1 gain, −1 loss, 0 no change, :data:`NO_DATA` where either map is
-        not finite.
+        The classes; :data:`NO_DATA` where either mean is not finite.
     """
     if not (np.isfinite(presence) and presence > 0):
         raise ValueError(f"presence must be a positive density, not {presence!r}")
     if not (np.isfinite(threshold) and threshold >= 0):
         raise ValueError(f"threshold must be a non-negative fraction, not {threshold!r}")
-    a = np.asarray(mean_a, dtype=np.float64)
-    b = np.asarray(mean_b, dtype=np.float64)
-    if a.shape != b.shape:
-        raise ValueError(f"maps have shapes {a.shape} and {b.shape}")
-    ok = np.isfinite(a) & np.isfinite(b)
-    with np.errstate(invalid="ignore"):
-        here = a >= presence
-        gain = np.where(here, b - a > threshold * a, b >= presence)
-        loss = here & (a - b > threshold * a)
-    code = gain.astype(np.int8) - loss.astype(np.int8)
-    return np.where(ok, code, NO_DATA).astype(np.int8)
+    if a.mean.shape != b.mean.shape:
+        raise ValueError(f"maps have shapes {a.mean.shape} and {b.mean.shape}")
+    return level_change(a, b, threshold=threshold, presence=presence).classes
 
 
 def _read(ds, name: str, v: int, m: int) -> np.ndarray:
     return np.asarray(ds[name].isel(variant=v, member=m).values)
+
+
+def member_statistics(ds, species: str, v: int, m: int) -> WindowStatistics:
+    """One stored member's window statistics of ``species`` (float64 of the float32 maps).
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        The member store.
+    species : str
+        ``"prey"`` or ``"predator"``.
+    v, m : int
+        Variant and member positions.
+    """
+    def get(k: str) -> np.ndarray:
+        return _read(ds, f"{species}_{k}", v, m).astype(np.float64)
+
+    return WindowStatistics(get("mean"), get("margin"), get("persistence"),
+                            len(used_snapshots(ds.sizes["time"])))
 
 
 def _used_mean(totals: np.ndarray) -> float:
@@ -163,9 +188,10 @@ def _pair(ds, base: int, v: int, m: int, *, presence, threshold, area, out_count
     """Classify one member pair; add to the gain/loss counts; return its ranking columns."""
     cols = {}
     for sp in SPECIES:
-        a, b = _read(ds, f"{sp}_mean", base, m), _read(ds, f"{sp}_mean", v, m)
-        cls = classify_change(a, b, threshold=threshold, presence=presence)
-        gain, loss = (cls == 1) & mask, (cls == -1) & mask
+        cls = change_classes(member_statistics(ds, sp, base, m),
+                             member_statistics(ds, sp, v, m), threshold=threshold,
+                             presence=presence)
+        gain, loss = (cls > 0) & mask, (cls < 0) & (cls != NO_DATA) & mask
         out_counts[sp][0] += gain
         out_counts[sp][1] += loss
         ta = _used_mean(_read(ds, f"{sp}_total", base, m))
@@ -190,7 +216,8 @@ def summarise(ds, *, presence: float, threshold: float, agreement: float,
     presence : float
         Presence threshold, animals/km².
     threshold : float
-        Relative change of the time mean that counts (0.1 = 10 %).
+        Smallest relative change of the time mean that counts (0.1 = 10 % of
+        the baseline's), besides the timing margin (:func:`change_classes`).
     agreement : float
         Share of member pairs (0.5–1] that must agree on a robust change.
     baseline : str
