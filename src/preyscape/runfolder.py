@@ -131,7 +131,10 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
         "snapshots": n_snapshots,
         "grid": {"rows": grid.ny, "cols": grid.nx, "cell_size_m": [grid.dx, grid.dy],
                  "cells_with_data": grid.n_cells},
-        "species": {"prey": sc.prey.name, "predator": sc.predator.name},
+        "species": {"prey": sc.prey.name,
+                    "predator": sc.predator.name if sc.has_predator else None},
+        "species_present": list(sc.species),
+        "extinction": _extinction_record(sc, grid),
         "measures": measures,
         "targets": targets,
         "epochs": [{"start_year": a, "end_year": b, "measures": list(n)}
@@ -143,10 +146,24 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
         "classes": ({str(c.code): c.name for c in sc.landscape.classes}
                     if sc.landscape.values == "classes" else None),
         "positivity_clip_total": stats.clipped,
+        "extinction_removed_animals": stats.floored * grid.cell_area_km2,
         "wall_time_s": round(wall, 3),
         "compile_or_cache_load_s": round(compiled, 3),
         "finished": store.now_iso(),
     }
+
+
+def _extinction_record(sc: Scenario, grid: Grid) -> dict:
+    """Each species' extinction threshold as given and in animals/km² (None: none)."""
+    out = {}
+    for sp in sc.species:
+        spec = getattr(sc, sp)
+        per_km2 = spec.extinction_per_km2(grid.cell_area_km2)
+        out[sp] = None if per_km2 is None else {
+            "per_km2": per_km2, "per_cell": per_km2 * grid.cell_area_km2,
+            "given_as": "per cell" if spec.extinction_threshold_per_cell is not None
+            else "per km²"}
+    return out
 
 
 def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: bool = False,
@@ -188,7 +205,8 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
         compiled = time.perf_counter() - t0
         grid, habitat = setup.grid, setup.habitat
         writer = store.ResultWriter(
-            tmp / "results.nc", grid, {"prey": sc.prey.name, "predator": sc.predator.name},
+            tmp / "results.nc", grid,
+            {"prey": sc.prey.name, "predator": sc.predator.name if sc.has_predator else ""},
             {"title": sc.title or sc.path.stem, "source": f"preyscape {__version__}",
              "scenario_sha256": sc.digest(), "history": f"{store.now_iso()} preyscape run"},
             habitat=habitat,
@@ -226,7 +244,8 @@ def draw_run_maps(folder: Path, sc: Scenario, grid: Grid, habitat: np.ndarray, m
     from preyscape import plots
 
     maps = folder / "maps"
-    names = {"prey": sc.prey.name or "prey", "predator": sc.predator.name or "predator"}
+    names = {"prey": sc.prey.name or "prey",
+             "predator": (sc.predator.name if sc.has_predator else "") or "predator"}
     classes = ({c.code: c.name or str(c.code) for c in sc.landscape.classes}
                if sc.landscape.values == "classes" else None)
     title = f"Habitat: {sc.title or sc.path.stem}"
@@ -234,7 +253,7 @@ def draw_run_maps(folder: Path, sc: Scenario, grid: Grid, habitat: np.ndarray, m
         title += f" [{sc.variant}]"
     out = [plots.habitat_map(grid, habitat, classes, title, maps / "habitat.png",
                              outlines=outlines)]
-    for sp in ("prey", "predator"):
+    for sp in sc.species:  # prey alone: no empty predator maps
         out.append(plots.density_map(grid, means[sp], f"Time-mean {sp} ({names[sp]})",
                                      maps / f"{sp}_mean.png", cmap=plots.SPECIES_CMAP[sp]))
         out.append(plots.density_map(grid, finals[sp],
@@ -242,10 +261,11 @@ def draw_run_maps(folder: Path, sc: Scenario, grid: Grid, habitat: np.ndarray, m
                                      maps / f"{sp}_final.png", cmap=plots.SPECIES_CMAP[sp]))
     with xr.open_dataset(folder / "results.nc", decode_times=False) as ds:
         t = ds["time"].values
-        out.append(plots.totals_plot(t, ds["prey_total"].values, ds["predator_total"].values,
+        out.append(plots.totals_plot(t, ds["prey_total"].values,
+                                     ds["predator_total"].values if sc.has_predator else None,
                                      names, maps / "totals.png"))
         pick = np.unique(np.linspace(0, len(t) - 1, 5).round().astype(int))
-        for sp in ("prey", "predator"):
+        for sp in sc.species:
             frames = [ds[sp].isel(time=int(k)).values for k in pick]
             out.append(plots.snapshot_panels(grid, t[pick], frames, sp, names[sp],
                                              maps / f"{sp}_snapshots.png"))

@@ -50,6 +50,7 @@ from preyscape.analysis.output import (
     write_csv,
     write_raster,
 )
+from preyscape.analysis.results import NO_PREDATOR
 from preyscape.analysis.settings import AnalysisSettings
 from preyscape.errors import InputError
 from preyscape.store import SPECIES, write_json
@@ -111,6 +112,8 @@ class ComparisonOutput(Written):
         lines = [f"comparison: {self.folder}"]
         for k, v in self.changed_area_km2.items():
             lines.append(f"  {k:<16} {self.changed_cells[k]:>9} cells  {v:10.4g} km²")
+        if "predator" not in self.record.get("species", SPECIES):
+            lines.append(f"  {NO_PREDATOR}")
         return lines
 
     def report_parts(self) -> list[Part]:
@@ -162,7 +165,7 @@ def _zone_rows(tables: dict, zone_names: list[str]) -> tuple[list[str], list[lis
         header += [f"{stat}_a", f"{stat}_b", f"{stat}_b_minus_a"]
     rows = []
     for k in range(len(zone_names)):
-        for sp in SPECIES:
+        for sp in tables:
             a, b = tables[sp][0][k], tables[sp][1][k]
             row = [a["zone"], sp, a["area_km2"]]
             for stat in ZONE_STATISTICS:
@@ -171,13 +174,19 @@ def _zone_rows(tables: dict, zone_names: list[str]) -> tuple[list[str], list[lis
     return header, rows
 
 
+def _species(ra, rb) -> tuple[str, ...]:
+    """The species both runs model (prey alone in either: prey only)."""
+    return tuple(sp for sp in ra.species if sp in rb.species)
+
+
 def _record(ra, rb, maps, grid, settings: AnalysisSettings, zones, zone_field, zone_kind,
             zone_names) -> dict:
     from preyscape.analysis.compare import CHANGE_CODES
 
     change = maps["change"].values
     area = grid.cell_area_km2
-    counts = {CHANGE_CODES[k]: int(np.count_nonzero(change == k)) for k in range(4)}
+    codes = range(4) if "predator" in _species(ra, rb) else range(2)
+    counts = {CHANGE_CODES[k]: int(np.count_nonzero(change == k)) for k in codes}
     return {
         "run_a": str(ra.path.resolve()), "run_b": str(rb.path.resolve()),
         "title_a": ra.info.get("title"), "title_b": rb.info.get("title"),
@@ -202,7 +211,8 @@ def _record(ra, rb, maps, grid, settings: AnalysisSettings, zones, zone_field, z
         "changed_cells": counts,
         "changed_area_km2": {k: v * area for k, v in counts.items()},
         "time_mean_totals_animals": {sp: {"a": ra.mean_total(sp), "b": rb.mean_total(sp)}
-                                     for sp in SPECIES},
+                                     for sp in _species(ra, rb)},
+        "species": list(_species(ra, rb)),
         "zones": zone_names,
     }
 
@@ -252,16 +262,18 @@ def write_comparison(run_a, run_b, out: str | Path, *, settings: AnalysisSetting
                         names=(f"A ({ra.path})", f"B ({rb.path})"))
     grid = ra.grid
     labels, zone_names, zone_kind = load_zones(zones, zone_field, grid, ra.ds)
+    species = _species(ra, rb)
     tables = {sp: (zone_table(ra.ds, labels, zone_names, sp, presence=presence),
                    zone_table(rb.ds, labels, zone_names, sp, presence=presence))
-              for sp in SPECIES}
+              for sp in species}
     record = _record(ra, rb, maps, grid, settings, zones, zone_field, zone_kind, zone_names)
     with output_folder(out, overwrite=overwrite) as tmp:
-        files = _write_maps(tmp, grid, maps, ra.species_names, settings.change_threshold)
+        files = _write_maps(tmp, grid, maps, ra.species_names, settings.change_threshold,
+                            species)
         write_csv(tmp / "zones.csv", *_zone_rows(tables, zone_names))
         files.append(FileRecord("zones.csv", "table", "Zone statistics of both runs"))
-        totals_compare_plot(ra.times, {sp: ra.totals(sp) for sp in SPECIES}, rb.times,
-                            {sp: rb.totals(sp) for sp in SPECIES},
+        totals_compare_plot(ra.times, {sp: ra.totals(sp) for sp in species}, rb.times,
+                            {sp: rb.totals(sp) for sp in species},
                             [f"A: {ra.title}", f"B: {rb.title}"], ra.species_names,
                             tmp / "totals.png")
         files.append(FileRecord("totals.png", "figure", "Landscape totals of both runs",
@@ -272,9 +284,10 @@ def write_comparison(run_a, run_b, out: str | Path, *, settings: AnalysisSetting
     return ComparisonOutput(Path(out), tuple(files), record, ra.label, rb.label)
 
 
-def _write_maps(tmp: Path, grid, maps, names: dict, threshold: float) -> list[FileRecord]:
+def _write_maps(tmp: Path, grid, maps, names: dict, threshold: float,
+                species: tuple[str, ...] = SPECIES) -> list[FileRecord]:
     files = []
-    for sp in SPECIES:
+    for sp in species:
         for stat, units in (("mean", "animals per km²"), ("persistence", "fraction of snapshots")):
             name = f"{sp}_{stat}_difference"
             arr = maps[name].values
@@ -291,7 +304,7 @@ def _write_maps(tmp: Path, grid, maps, names: dict, threshold: float) -> list[Fi
     change = maps["change"].values
     write_raster(tmp / "change.tif", grid, change.astype(np.int8), nodata=-1, dtype="int8")
     change_map(grid, change, f"Change of the time mean by more than {threshold:.0%}",
-               tmp / "change.png")
+               tmp / "change.png", codes=range(4) if "predator" in species else range(2))
     files += [FileRecord("change.tif", "raster", "Where the outcome changes", key="change"),
               FileRecord("change.png", "map", "Where the outcome changes", key="change")]
     return files
@@ -314,8 +327,12 @@ def difference_map(grid, diff: np.ndarray, title: str, path: Path,
     return finish_map(fig, path)
 
 
-def change_map(grid, classes: np.ndarray, title: str, path: Path) -> Path:
-    """The change classes (0 none, 1 prey only, 2 predator only, 3 both; −1 no data)."""
+def change_map(grid, classes: np.ndarray, title: str, path: Path,
+               codes: Sequence[int] = range(4)) -> Path:
+    """The change classes (0 none, 1 prey only, 2 predator only, 3 both; −1 no data).
+
+    ``codes``: the classes the legend lists (prey alone: 0 and 1).
+    """
     from matplotlib.colors import BoundaryNorm, ListedColormap
     from matplotlib.patches import Patch
 
@@ -326,7 +343,7 @@ def change_map(grid, classes: np.ndarray, title: str, path: Path) -> Path:
     fig, ax, _ = map_figure(grid, np.where(codes < 0, np.nan, codes).astype(float), title,
                             ListedColormap(colours), norm=BoundaryNorm(np.arange(5) - 0.5, 4))
     handles = [Patch(facecolor=CHANGE_COLOURS[k], edgecolor="#808080", label=CHANGE_LABELS[k])
-               for k in range(4)]
+               for k in codes]
     handles.append(Patch(facecolor=NO_DATA, edgecolor="#808080", label="no data"))
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1), fontsize=8,
               frameon=False)
@@ -341,8 +358,8 @@ def totals_compare_plot(times_a: np.ndarray, tot_a: dict, times_b: np.ndarray, t
     fig = _new((7.0, 5.4))
     colour = {"prey": "#2a788e", "predator": "#b5367a"}
     axes = []
-    for k, sp in enumerate(SPECIES):
-        ax = fig.add_subplot(2, 1, k + 1, sharex=axes[0] if axes else None)
+    for k, sp in enumerate(tot_a):
+        ax = fig.add_subplot(len(tot_a), 1, k + 1, sharex=axes[0] if axes else None)
         axes.append(ax)
         ax.plot(times_a, tot_a[sp], color=colour[sp], lw=1.6, label=labels[0])
         ax.plot(times_b, tot_b[sp], color=colour[sp], lw=1.6, ls="--", label=labels[1])

@@ -40,8 +40,8 @@ from preyscape.analysis.output import (
     write_csv,
     write_raster,
 )
+from preyscape.analysis.results import NO_PREDATOR
 from preyscape.analysis.settings import AnalysisSettings
-from preyscape.store import SPECIES
 
 COMMAND = Command(
     name="hotspots",
@@ -113,6 +113,8 @@ class HotspotsOutput(Written):
         for sp, d in self.species.items():
             lines.append(f"  {sp:<9} {d.hot_cells} hotspot cells ({d.hot_area_km2:.4g} km²), "
                          f"{100 * d.hot_share_of_animals:.1f} % of the animals")
+        if "predator" not in self.species:
+            lines.append(f"  {NO_PREDATOR}")
         return lines
 
     def report_parts(self) -> list[Part]:
@@ -193,7 +195,7 @@ def write_hotspots(run, out: str | Path, *, settings: AnalysisSettings | None = 
     files: list[FileRecord] = []
     species: dict[str, SpeciesHotspots] = {}
     with output_folder(out, overwrite) as tmp:
-        for sp in SPECIES:
+        for sp in run.species:
             res = hotspots_of_run(run.ds, sp, band_m=band, alpha=alpha, persistent=True)
             files += _write_species(tmp, grid, res, _label(sp, names[sp]))
             species[sp] = SpeciesHotspots(

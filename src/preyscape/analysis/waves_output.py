@@ -40,6 +40,7 @@ from preyscape.analysis.output import (
     write_csv,
     write_raster,
 )
+from preyscape.analysis.results import NO_PREDATOR
 from preyscape.analysis.settings import FRONT_THRESHOLD_SHARE, AnalysisSettings, TransectLine
 from preyscape.errors import InputError
 from preyscape.names import slug
@@ -159,6 +160,8 @@ class WavesOutput(Written):
                 continue
             lines.append(f"  {f.transect}, {f.species}: front {_fmt(f.speed_km_yr, 'km/yr')} "
                          f"(predicted minimal {_fmt(f.predicted_km_yr, 'km/yr')})")
+        if "predator" not in self.arrival:
+            lines.append(f"  {NO_PREDATOR}")
         return lines
 
     def report_parts(self) -> list[Part]:
@@ -178,15 +181,18 @@ def _label(out: WavesOutput, sp: str) -> str:
 
 def _report_blocks(out: WavesOutput) -> list:
     thr = {sp: a.threshold for sp, a in out.arrival.items()}
+    two = "predator" in out.arrival  # prey alone: no predator threshold or prediction
     blocks: list = [Paragraph(
         "The arrival time of a cell is the first time its density reaches the threshold "
-        f"(prey {_fmt(thr.get('prey'), 'per km²')}, predators "
-        f"{_fmt(thr.get('predator'), 'per km²')}). The front speed along a transect is the "
+        f"(prey {_fmt(thr.get('prey'), 'per km²')}"
+        + (f", predators {_fmt(thr.get('predator'), 'per km²')})" if two else ")")
+        + ". The front speed along a transect is the "
         "slope of the front's position against time. Predicted speeds are the published "
         "minimal speeds for the best habitat: Fisher–KPP 2√(rD) for prey spreading into "
-        "empty habitat, and Dunbar's 2√(D(eaK/(1+ahK) − m)) for predators invading prey at "
-        "capacity. A front approaches its minimal speed from below: over a few kilometres "
-        "it is slower, and poorer habitat slows it further.")]
+        "empty habitat"
+        + (", and Dunbar's 2√(D(eaK/(1+ahK) − m)) for predators invading prey at "
+           "capacity" if two else "") + ". A front approaches its minimal speed from below: "
+        "over a few kilometres it is slower, and poorer habitat slows it further.")]
     settled = {sp for sp, a in out.arrival.items() if a.settled}
     notes = [f"{_label(out, sp)} occupied most of the landscape from the start, so there is "
              "no front of it to follow." for sp in SPECIES if sp in settled]
@@ -360,7 +366,7 @@ def _arrival_maps(tmp: Path, run, settings: AnalysisSettings):
     grid = run.grid
     arrival: dict[str, SpeciesArrival] = {}
     arrivals, speeds, files = {}, {}, []
-    for sp in SPECIES:
+    for sp in run.species:
         mean = run.time_mean(sp)
         top = float(np.nanmax(mean)) if np.any(np.isfinite(mean)) else 0.0
         thr = settings.front_threshold(sp, top)
@@ -402,7 +408,7 @@ def _sample(grid, lines: Sequence[TransectLine], auto: bool) -> list:
 
 def _draw_maps(tmp: Path, run, arrival, arrivals, speeds, trs) -> list[FileRecord]:
     files = []
-    for sp in SPECIES:
+    for sp in arrival:
         thr = arrival[sp].threshold
         title = (f"{sp.capitalize()} arrival (density ≥ {thr:.3g} per km²)" if thr is not None
                  else f"{sp.capitalize()} arrival (absent)")
@@ -421,7 +427,7 @@ def _fit_fronts(tmp: Path, run, arrival, trs, pred) -> tuple[list[FrontRow], lis
     from preyscape.analysis import waves as W
 
     fronts, files = [], []
-    for sp in SPECIES:
+    for sp in arrival:
         thr = arrival[sp].threshold
         if not trs or thr is None:
             continue

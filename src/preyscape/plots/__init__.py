@@ -235,14 +235,18 @@ def habitat_map(grid: Grid, habitat: np.ndarray, classes: dict[int, str] | None,
     return _save(fig, path)
 
 
-def totals_plot(time: np.ndarray, prey: np.ndarray, predator: np.ndarray,
+def totals_plot(time: np.ndarray, prey: np.ndarray, predator: np.ndarray | None,
                 names: dict[str, str], path: Path) -> Path:
-    """Landscape totals of both species against time (years)."""
+    """Landscape totals of both species (``predator`` None: prey alone) against time (years)."""
     fig = _new((7.0, 3.8))
     ax = fig.add_subplot()
     ax.plot(time, prey, color="#2a788e", label=f"prey ({names.get('prey') or 'prey'})")
     ax.set_xlabel("time (years)")
     ax.set_ylabel("prey in the landscape (animals)", color="#2a788e")
+    if predator is None:
+        ax.set_title("Landscape total (no predator in this scenario)", fontsize=10)
+        fig.tight_layout()
+        return _save(fig, path)
     ax2 = ax.twinx()
     ax2.plot(time, predator, color="#b5367a",
              label=f"predator ({names.get('predator') or 'predator'})")

@@ -27,8 +27,8 @@ from pathlib import Path
 from typing import Any
 
 from preyscape.analysis.output import Bullets, Facts, Figure, Paragraph, Part, Table
+from preyscape.analysis.results import NO_PREDATOR
 from preyscape.errors import InputError
-from preyscape.store import SPECIES
 
 __all__ = ["SOURCES", "write_report"]
 
@@ -85,14 +85,18 @@ def render_part(rep, part: Part) -> None:
 def _species_facts(run) -> list[tuple[str, str]]:
     st = run.info.get("settings") or {}
     facts = []
-    for sp in SPECIES if st else ():
+    for sp in run.species if st else ():
         s = st.get(sp) or {}
         coef = s.get("diffusivity") if s.get("movement") == "fickian" else s.get("motility")
         what = "diffusivity" if s.get("movement") == "fickian" else "motility"
         rate = (f"growth {s.get('growth')} /yr, capacity {s.get('capacity')} per km²"
                 if sp == "prey" else f"mortality {s.get('mortality')} /yr")
         facts.append((_name(run, sp), f"{rate}; {s.get('movement')} movement, {what} "
-                                      f"{coef} km²/yr (best habitat)"))
+                                      f"{coef} km²/yr (best habitat)"
+                       + _extinction_text(run, sp)))
+    if "predator" not in run.species:
+        facts.append(("predator", NO_PREDATOR))
+        return facts
     it = st.get("interaction") or {}
     if it:
         facts.append(("interaction", f"{it.get('form')}: attack rate {it.get('attack_rate')} "
@@ -101,8 +105,31 @@ def _species_facts(run) -> list[tuple[str, str]]:
     return facts
 
 
+def _extinction_text(run, sp: str) -> str:
+    """The species' extinction threshold as recorded in ``run.json``, or ""."""
+    ex = (run.info.get("extinction") or {}).get(sp)
+    if not ex:
+        return ""
+    return (f"; extinction threshold {ex['per_km2']:.4g} per km² ({ex['per_cell']:.4g} "
+            "per cell): lower densities were set to zero after every step")
+
+
+def _extinction_facts(run) -> list[tuple[str, str]]:
+    """What the extinction thresholds removed, once for the run (none: no fact)."""
+    if not any((run.info.get("extinction") or {}).values()):
+        return []
+    removed = run.info.get("extinction_removed_animals") or 0.0
+    return [("extinction thresholds", f"{removed:.4g} animals removed over the run (all "
+             "species). A threshold removes populations that would otherwise recover from a "
+             "fraction of an animal (common practice); it also slows invasion fronts a little "
+             "(Brunet & Derrida 1997, Phys Rev E 56:2597).")]
+
+
 def _prediction_facts(run) -> list[tuple[str, str]]:
     pr = run.predictions
+    if "predator" not in run.species:
+        return [("predicted front speed", "prey into empty habitat "
+                 f"{_num(pr.get('prey_front_speed'), 'km/yr')} (Fisher–KPP 2√(rD))")]
     eq = pr.get("equilibrium") or [None, None]
     stable = pr.get("stable")
     return [
@@ -152,7 +179,7 @@ def _settings_section(rep, run) -> None:
                            f"{info['save_every_years']:g} yr ({info['snapshots']} snapshots)"),
         ("time step", f"{info['step_years']:.4g} yr ({info['steps']} steps, scheme "
                       f"{info.get('scheme')})"),
-        *_species_facts(run), *_prediction_facts(run),
+        *_species_facts(run), *_extinction_facts(run), *_prediction_facts(run),
         ("computed with", f"preyscape {info.get('preyscape_version')} in "
                           f"{info.get('wall_time_s')} s; finished {info.get('finished')}"),
     ]
@@ -178,8 +205,10 @@ def _maps_section(rep, run, gif: Path | None) -> None:
         if (maps / f).is_file():
             sec.figure(maps / f, cap, cap)
     if gif is not None and gif.is_file():
-        sec.figure(gif, "Animation of both species (each on one colour scale for the "
-                   "whole run)", "animated maps of prey and predator density")
+        both = "predator" in run.species
+        sec.figure(gif, f"Animation of {'both species (each' if both else 'the prey ('} on one "
+                   "colour scale for the whole run)",
+                   f"animated maps of {'prey and predator' if both else 'prey'} density")
 
 
 def _colonisation_parts(other) -> list[Part]:
@@ -190,11 +219,12 @@ def _colonisation_parts(other) -> list[Part]:
     if not targets:
         return []
     settings = other.settings()
-    thr = {sp: settings.arrival_threshold(sp) for sp in SPECIES}
-    rows = tuple((t.name, t.years.get("prey"), t.years.get("predator"))
+    thr = {sp: settings.arrival_threshold(sp) for sp in other.species}
+    rows = tuple((t.name, *(t.years.get(sp) for sp in thr))
                  for t in colonisation(other.ds, targets, thr, COLONISED_SHARE))
+    what = {"prey": "prey", "predator": "predators"}
     return [Part(f"Colonisation in {other.label}", (Table(
-        ("target patch", "prey colonised (year)", "predators colonised (year)"), rows),))]
+        ("target patch", *(f"{what[sp]} colonised (year)" for sp in thr)), rows),))]
 
 
 def _analysis_parts(run, others, work: Path) -> list[Part]:
@@ -260,7 +290,7 @@ def write_report(run_folder: str | Path, out: str | Path | None = None,
         gif = None
         if animate:
             gif = animate_run(run.grid, run.times, run.frame, work / "animation.gif",
-                              names=run.species_names, title=run.title)
+                              species=run.species, names=run.species_names, title=run.title)
         _maps_section(rep, run, gif)
         for part in _analysis_parts(run, others, work):
             render_part(rep, part)
