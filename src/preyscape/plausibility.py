@@ -262,18 +262,28 @@ def _threshold_warnings(setup: Setup, d: dict) -> list[CheckWarning]:
 
 
 def _edge_warnings(setup: Setup, d: dict) -> list[CheckWarning]:
+    """Species that cannot persist on the whole map when its edge is lethal."""
     sc, g = setup.scenario, setup.grid
     if sc.landscape.edge != "hostile":
         return []
-    cp = d.get("critical_patch_prey") or {}
-    side = cp.get("square_side")
+    b = d["best_habitat"]
     w, h = g.width_m / 1000.0, g.height_m / 1000.0
-    if side is not None and math.isfinite(side) and min(w, h) < cp.get("strip_width", 0):
-        return [CheckWarning("landscape.edge", "hostile", "",
-                        f"the landscape ({w:.3g} × {h:.3g} km) is narrower than the "
-                        f"prey's critical strip width π√(D/r) = {cp['strip_width']:.3g} km "
-                        "(Skellam 1951): with lethal edges prey cannot persist on it")]
-    return []
+    shape = math.pi ** 2 * (1.0 / w ** 2 + 1.0 / h ** 2)  # 1/km²: slowest mode of the box
+    out = []
+    for sp, rate, D in (("prey", b["r"], b["D_N"]),
+                        ("predator", d.get("predator_growth_at_capacity"), b.get("D_P"))):
+        if sp not in sc.species or rate is None or not rate > 0 or D is None:
+            continue
+        if D * shape > rate:
+            what = "prey" if sp == "prey" else "predators (in prey at capacity)"
+            out.append(CheckWarning(
+                "landscape.edge", "hostile", "",
+                f"the landscape ({w:.3g} × {h:.3g} km) is too small for {what} with lethal "
+                f"edges: even if every cell were best habitat, animals would be lost over the "
+                f"edge at Dπ²(1/W² + 1/H²) = {D * shape:.3g}/yr, faster than they grow "
+                f"({rate:.3g}/yr), so they cannot persist (Skellam 1951; critical square "
+                f"side π√(2D/r) = {math.pi * math.sqrt(2 * D / rate):.3g} km)"))
+    return out
 
 
 def plausibility_warnings(setup: Setup, d: dict) -> list[CheckWarning]:

@@ -217,6 +217,8 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
         targets = _write_targets(tmp, sc, grid)
         stats = StepStats()
         N, P = setup.N0, setup.P0  # this setup is private to the run: no copies
+        start = {sp: float(np.sum(u)) * grid.cell_area_km2 for sp, u in (("prey", N),
+                                                                          ("predator", P))}
         dt, epochs = setup.dt, setup.epochs
         setup = setup.without_build_arrays()  # memory: one copy of each field during the run
         _integrate(tmp, setup, N, P, writer, stats, progress)
@@ -228,6 +230,9 @@ def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: boo
             draw_run_maps(tmp, sc, grid, habitat, means, finals, outlines)
         record = _record(sc, grid, dt, epochs, stats, writer.n, measures, targets, preds,
                          time.perf_counter() - t0, compiled)
+        record["totals_animals"] = {
+            sp: {"start": start[sp], "end": float(np.nansum(finals[sp])) * grid.cell_area_km2}
+            for sp in sc.species}
         store.write_json(tmp / "run.json", record)
     return out
 

@@ -119,8 +119,8 @@ def start_warning_lines(d: dict) -> list[str]:
                      f"in {r['cells']} cell{'' if r['cells'] == 1 else 's'}")
     ws = d["warnings"]
     if ws:
-        lines.append(f"WARNINGS            {len(ws)}: the scenario is valid and runs, but these "
-                     "values look like slips (units?)")
+        lines.append(f"WARNINGS            {len(ws)}: the scenario is valid and runs, but check "
+                     "these values (a slip of units?)")
         lines += [f"  WARNING {CheckWarning(**w).line()}" for w in ws]
     return lines
 

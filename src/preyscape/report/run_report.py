@@ -206,8 +206,9 @@ def _maps_section(rep, run, gif: Path | None) -> None:
             sec.figure(maps / f, cap, cap)
     if gif is not None and gif.is_file():
         both = "predator" in run.species
-        sec.figure(gif, f"Animation of {'both species (each' if both else 'the prey ('} on one "
-                   "colour scale for the whole run)",
+        sec.figure(gif, ("Animation of both species (each on one colour scale for the whole "
+                         "run)") if both else "Animation of the prey (on one colour scale for "
+                   "the whole run)",
                    f"animated maps of {'prey and predator' if both else 'prey'} density")
 
 
