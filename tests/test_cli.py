@@ -9,7 +9,17 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import DX, NODATA_CELLS, SHAPE, X0, Y0, habitat_array, make_landscape, write_habitat
+from conftest import (
+    DELETE,
+    DX,
+    NODATA_CELLS,
+    SHAPE,
+    X0,
+    Y0,
+    habitat_array,
+    make_landscape,
+    write_habitat,
+)
 from rasterio.crs import CRS
 
 from preyscape.cli import main
@@ -410,3 +420,131 @@ def test_analysis_command_refuses_an_existing_out(variant_runs, command, tmp_pat
     else:
         assert [p.name for p in out.iterdir()] == ["keep.txt"]
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]
+
+
+# ---------------------------------------------------------------------------
+# check: start totals, warnings, prey alone, species that cannot invade (issue 12)
+# ---------------------------------------------------------------------------
+def test_check_prints_start_totals_and_releases(scenario_path, capsys):
+    assert main(["check", str(scenario_path)]) == 0
+    text = capsys.readouterr().out
+    # 21 cells of 0.01 km² at 10 per km² (conftest's release, counted in test_assemble)
+    assert "start totals        prey 5720 animals, predator 2.1 animals" in text
+    assert "released            start.releases[0]: 2.1 animals (predator) in 21 cells" in text
+
+
+@pytest.mark.parametrize("overrides,needle", [
+    # the issue's slips: metres typed for kilometres
+    ({"predator.diffusivity": 15_000_000.0},
+     "WARNING predator.diffusivity = 1.5e+07 km²/yr: far above the usual range"),
+    ({"start.releases.0.radius": 0.5},
+     "WARNING start.releases[0].radius = 0.5 m: smaller than a cell (100 m)"),
+])
+def test_check_warns_about_unit_slips_naming_the_key(write_scenario, capsys, overrides,
+                                                     needle):
+    assert main(["check", str(write_scenario(overrides))]) == 0  # a warning, not an error
+    text = capsys.readouterr().out
+    assert needle in text
+    assert "WARNINGS  " in text and "the scenario is valid and runs" in text
+
+
+def test_check_json_holds_start_and_warnings(write_scenario, capsys):
+    path = write_scenario({"start.releases.0.radius": 0.5})
+    assert main(["check", str(path), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["start"]["releases"][0]["cells"] == 1
+    keys = [w["key"] for w in d["warnings"]]
+    assert "start.releases[0].radius" in keys and "start.releases[0].density" in keys
+    w = d["warnings"][keys.index("start.releases[0].radius")]
+    assert w["value"] == 0.5 and w["unit"] == "m"
+
+
+def test_check_of_prey_alone_prints_no_predator_numbers(write_scenario, capsys):
+    path = write_scenario({"predator": DELETE, "interaction": DELETE,
+                           "start.releases.0.species": "prey"})
+    assert main(["check", str(path)]) == 0
+    text = capsys.readouterr().out
+    assert text.count("no predator in this scenario") == 1
+    for absent in ("predator front", "equilibrium", "Hopf", "local period", "m = ",
+                   "predator (prey at K)", "nan", "n/a"):
+        assert absent not in text, absent
+    assert "prey front speed    2.72 km/yr" in text
+    # capacity plus 2.1 prey released
+    assert "start totals        prey 5722 animals (in 715 cells with data)" in text
+
+
+def test_check_says_in_words_when_a_species_cannot_invade(write_scenario, capsys):
+    # predators gain e a K / (1 + a h K) = 1.667/yr at prey capacity: with m = 2 they decline
+    assert main(["check", str(write_scenario({"predator.mortality": 2.0}))]) == 0
+    text = capsys.readouterr().out
+    assert "predator front      none: predators cannot invade or persist" in text
+    assert "0 km/yr" not in text
+    assert main(["check", str(write_scenario({"prey.growth": 0.0}, name="r0.toml"))]) == 0
+    text = capsys.readouterr().out
+    assert "prey front speed    none: prey do not grow (prey.growth = 0)" in text
+    assert "critical patch      prey: none" in text and "0 km/yr" not in text
+
+
+def test_run_summary_prints_totals_and_no_predator(write_scenario, tmp_path, capsys):
+    path = write_scenario({"predator": DELETE, "interaction": DELETE,
+                           "start.releases.0.species": "prey"})
+    assert main(["run", str(path), "--out", str(tmp_path / "r")]) == 0
+    text = capsys.readouterr().out
+    assert "prey: 5722 animals at the start" in text and "at the end (t = 0.5 yr)" in text
+    assert "no predator in this scenario" in text and "predator:" not in text
+
+
+@pytest.fixture(scope="module")
+def prey_alone_runs(tmp_path_factory):
+    """A scenario of prey alone (refuge, target, transect, a variant), run once."""
+    from conftest import BASE, RELEASE_X, RELEASE_Y, apply_overrides, to_toml
+    from test_runfolder import box, geojson
+
+    folder = tmp_path_factory.mktemp("cli_prey_alone")
+    make_landscape(folder)
+    geojson(folder / "refuge.geojson", box(*REFUGE_BOX))
+    over = {
+        "predator": DELETE, "interaction": DELETE,
+        "start.prey": "uniform", "start.prey_density": 0.0,
+        "start.releases.0.species": "prey", "start.releases.0.density": 1000.0,
+        "measures": [{"name": "fen refuge", "kind": "refuge", "geometry": "refuge.geojson",
+                      "protected_fraction": 0.7}],
+        "variants": [{"name": "faster", "set": {"prey.diffusivity": 1.0}}],
+        "analysis": {"transects": [{"name": "east line", "points": [
+            [RELEASE_X, RELEASE_Y + 30.0], [X0 + SHAPE[1] * DX - 50.0, RELEASE_Y + 30.0]]}],
+            "targets": [{"name": "fen", "geometry": "refuge.geojson"}]},
+    }
+    path = folder / "prey.toml"
+    path.write_text(to_toml(apply_overrides(BASE, over)))
+    out = folder / "runs"
+    assert main(["run", str(path), "--out", str(out), "--quiet"]) == 0
+    return out
+
+
+@pytest.mark.parametrize("command", ("hotspots", "waves", "effects", "compare"))
+def test_analyses_of_prey_alone_say_so_once_and_write_no_predator_files(
+        prey_alone_runs, command, tmp_path, capsys):
+    base, other = prey_alone_runs / "baseline", prey_alone_runs / "faster"
+    out = tmp_path / command
+    argv = ([command, str(base), str(other)] if command == "compare" else [command, str(base)])
+    assert main(argv + ["--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert text.count("no predator in this scenario") == 1
+    files = [p.name for p in out.iterdir()]
+    assert files and not [f for f in files if "predator" in f]
+    for f in out.glob("*.csv"):
+        assert "predator" not in f.read_text()
+    for f in out.glob("*.json"):
+        assert "predator" not in f.read_text()
+
+
+def test_report_of_prey_alone_says_so_once(prey_alone_runs, tmp_path):
+    out = tmp_path / "report.html"
+    assert main(["report", str(prey_alone_runs / "baseline"), str(prey_alone_runs / "faster"),
+                 "--out", str(out), "--no-animation"]) == 0
+    html = out.read_text(encoding="utf-8")
+    assert html.count("no predator in this scenario") == 1
+    for absent in ("predator arrival", "density of predator", "predators colonised",
+                   "Predators from start", "predators invading", "None /yr"):
+        assert absent not in html, absent
+    assert "prey colonised (year)" in html  # the target table keeps its prey column

@@ -25,7 +25,7 @@ RANK = {
     "solve": 3,
     "store": 4,
     "assemble": 5, "plots": 5, "starter": 5,
-    "analysis": 6,
+    "analysis": 6, "plausibility": 6,
     "runfolder": 7,
     "report": 8,
     "demo": 9,

@@ -13,7 +13,18 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import BASE, DX, RELEASE_COL, RELEASE_ROW, SHAPE, X0, Y0, apply_overrides, to_toml
+from conftest import (
+    BASE,
+    DELETE,
+    DX,
+    RELEASE_COL,
+    RELEASE_ROW,
+    SHAPE,
+    X0,
+    Y0,
+    apply_overrides,
+    to_toml,
+)
 
 from preyscape.assemble import epoch_state, prepare
 from preyscape.errors import InputError
@@ -292,3 +303,100 @@ def test_toml_round_trip_of_measures(tmp_path):
     data = apply_overrides(BASE, {"measures": [{"name": "x", "kind": "fence", "geometry": "f",
                                                 "permeability": {"predator": 0.0}}]})
     assert "[measures.permeability]" in to_toml(data)
+
+
+# ---------------------------------------------------------------------------
+# prey alone, extinction thresholds, start and end totals
+# ---------------------------------------------------------------------------
+STRIP_TOML = """
+[landscape]
+habitat = "strip.tif"
+values = "classes"
+[[landscape.classes]]
+code = 1
+[prey]
+growth = 1.0
+capacity = 100.0
+diffusivity = 1.0
+[start]
+prey = "uniform"
+prey_density = 0.0
+[[start.releases]]
+x = 500150.0
+y = 4999850.0
+radius = 150.0
+density = 100.0
+species = "prey"
+[run]
+years = 20.0
+save_every = 0.5
+"""
+
+
+def test_prey_alone_front_moves_at_the_fisher_kpp_speed(tmp_path):
+    # Fisher 1937 (Ann Eugen 7:355); Kolmogorov, Petrovsky & Piskunov 1937: a front of prey
+    # alone moves at 2 sqrt(rD) = 2 km/yr for r = 1/yr, D = 1 km²/yr; from a compact start
+    # it approaches that speed from below, lagging by (3/2) sqrt(D/r) ln t (Bramson 1983,
+    # Mem AMS 44(285); theory.mean_front_speed). Fitted over 10-20 years on a strip of
+    # 3 x 500 cells of 100 m, the run of a scenario without [predator] gave 1.890 km/yr:
+    # 0.945 of 2 sqrt(rD) and 0.996 of Bramson's finite-time mean (1.897 km/yr).
+    from conftest import utm_grid
+
+    from preyscape.landscape.io import write_geotiff
+    from preyscape.model import theory
+
+    grid = utm_grid((3, 500))
+    write_geotiff(tmp_path / "strip.tif", grid, np.ones((3, 500), np.uint8), nodata=0,
+                  dtype="uint8")
+    (tmp_path / "fk.toml").write_text(STRIP_TOML)
+    run = simulate(tmp_path / "fk.toml", tmp_path / "run", maps=False, progress=False)
+    info = json.loads((run / "run.json").read_text())
+    assert info["species_present"] == ["prey"] and info["species"]["predator"] is None
+    assert info["predictions"]["prey_front_speed"] == pytest.approx(2.0)
+    import xarray as xr
+
+    with xr.open_dataset(run / "results.nc", decode_times=False) as ds:
+        t = ds["time"].values
+        u = ds["prey"].values[:, 1, :]
+        assert not np.nanmax(ds["predator"].values) > 0  # no predator anywhere, ever
+    x = grid.x - grid.x0  # m from the west edge
+    sel = t >= 10.0
+    pos = []
+    for row in u[sel]:
+        j = int(np.nonzero(row >= 50.0)[0].max())  # the front: where the prey reach K/2
+        pos.append((x[j] + (row[j] - 50.0) / (row[j] - row[j + 1]) * DX) / 1000.0)
+    speed = float(np.polyfit(t[sel], pos, 1)[0])
+    bramson = theory.mean_front_speed(2.0, 1.0, 0, 0, times=t[sel]).mean
+    assert 0.92 < speed / 2.0 < 1.0
+    assert speed / bramson == pytest.approx(1.0, abs=0.015)
+    assert info["totals_animals"]["prey"]["start"] == pytest.approx(9 * 100.0 * 0.01)
+
+
+def test_extinction_threshold_recorded_and_nothing_left_below_it(write_scenario, tmp_path):
+    # Design requirement: with predator.extinction_threshold_per_cell = 0.05 animals (0.01 km²
+    # cells: 5 per km²) every saved predator density is 0 or at least 5 per km², and run.json
+    # records the threshold in both units and the animals removed.
+    path = write_scenario({"predator.extinction_threshold_per_cell": 0.05,
+                           "start.releases.0.density": 500.0})
+    run = simulate(path, tmp_path / "run", maps=False, progress=False)
+    info = json.loads((run / "run.json").read_text())
+    assert info["extinction"] == {"prey": None, "predator": {
+        "per_km2": pytest.approx(5.0), "per_cell": pytest.approx(0.05),
+        "given_as": "per cell"}}
+    assert info["extinction_removed_animals"] > 0
+    import xarray as xr
+
+    with xr.open_dataset(run / "results.nc", decode_times=False) as ds:
+        P = ds["predator"].values[1:]
+    P = P[np.isfinite(P)]
+    assert np.all((P == 0.0) | (P >= 5.0)) and np.count_nonzero(P) > 0
+    assert np.count_nonzero(P == 0.0) > 0
+
+
+def test_prey_alone_run_draws_no_predator_maps(write_scenario, tmp_path):
+    path = write_scenario({"predator": DELETE, "interaction": DELETE,
+                           "start.releases.0.species": "prey"})
+    run = simulate(path, tmp_path / "run", progress=False)
+    maps = sorted(p.name for p in (run / "maps").iterdir())
+    assert "prey_mean.png" in maps and "totals.png" in maps
+    assert not [m for m in maps if m.startswith("predator")]

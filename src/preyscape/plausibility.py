@@ -34,8 +34,8 @@ Examples
 >>> totals = start_totals(setup)
 >>> totals["predator"] > 0 and totals["releases"][0]["species"]
 'predator'
->>> [w.key for w in plausibility_warnings(setup, derived(setup))]
-[]
+>>> [w.key for w in plausibility_warnings(setup, derived(setup))]  # half a year
+['run.years']
 """
 
 from __future__ import annotations
@@ -219,10 +219,11 @@ def _time_warnings(setup: Setup, d: dict) -> list[CheckWarning]:
     period = d.get("period_years")
     if period is not None and math.isfinite(period) and period > 0:
         if sc.run.years < period:
+            damped = "; damped there" if d.get("stable") else ""
             out.append(CheckWarning(
                 "run.years", sc.run.years, "yr",
                 f"shorter than one local predator–prey cycle ({period:.3g} yr in the best "
-                "habitat): the run cannot show a cycle; run for several periods"))
+                f"habitat{damped}): the run cannot show a cycle; run for several periods"))
         if save > period / 4:
             out.append(CheckWarning(
                 "run.save_every", save, "yr",

@@ -201,7 +201,7 @@ def _record(ra, rb, maps, grid, settings: AnalysisSettings, zones, zone_field, z
             "persistence": "fraction of snapshots after t = 0 with density >= presence",
             "change": "|B - A| > threshold * A where A >= presence; B >= presence where "
                       "A < presence",
-            "change_codes": {str(k): v for k, v in CHANGE_CODES.items()},
+            "change_codes": {str(k): CHANGE_CODES[k] for k in codes},
         },
         "same_snapshot_times": bool(maps.attrs["same_times"]),
         "snapshots_used": {"a": int(maps.attrs["prey_snapshots_a"]),
@@ -304,7 +304,7 @@ def _write_maps(tmp: Path, grid, maps, names: dict, threshold: float,
     change = maps["change"].values
     write_raster(tmp / "change.tif", grid, change.astype(np.int8), nodata=-1, dtype="int8")
     change_map(grid, change, f"Change of the time mean by more than {threshold:.0%}",
-               tmp / "change.png", codes=range(4) if "predator" in species else range(2))
+               tmp / "change.png", listed=range(4) if "predator" in species else range(2))
     files += [FileRecord("change.tif", "raster", "Where the outcome changes", key="change"),
               FileRecord("change.png", "map", "Where the outcome changes", key="change")]
     return files
@@ -328,10 +328,10 @@ def difference_map(grid, diff: np.ndarray, title: str, path: Path,
 
 
 def change_map(grid, classes: np.ndarray, title: str, path: Path,
-               codes: Sequence[int] = range(4)) -> Path:
+               listed: Sequence[int] = range(4)) -> Path:
     """The change classes (0 none, 1 prey only, 2 predator only, 3 both; −1 no data).
 
-    ``codes``: the classes the legend lists (prey alone: 0 and 1).
+    ``listed``: the classes the legend lists (prey alone: 0 and 1).
     """
     from matplotlib.colors import BoundaryNorm, ListedColormap
     from matplotlib.patches import Patch
@@ -343,7 +343,7 @@ def change_map(grid, classes: np.ndarray, title: str, path: Path,
     fig, ax, _ = map_figure(grid, np.where(codes < 0, np.nan, codes).astype(float), title,
                             ListedColormap(colours), norm=BoundaryNorm(np.arange(5) - 0.5, 4))
     handles = [Patch(facecolor=CHANGE_COLOURS[k], edgecolor="#808080", label=CHANGE_LABELS[k])
-               for k in codes]
+               for k in listed]
     handles.append(Patch(facecolor=NO_DATA, edgecolor="#808080", label="no data"))
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1), fontsize=8,
               frameon=False)

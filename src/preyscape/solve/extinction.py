@@ -1,16 +1,28 @@
-"""The extinction threshold: densities below a level set to exactly zero.
+"""The extinction threshold: densities below a level set to exactly zero, at each census.
 
 A deterministic density never reaches zero by itself: a population that
 declines for decades keeps a tiny, positive density (a millionth of an animal
 per km²) and can grow back from it when conditions improve, which no real
 population of whole animals does. Mollison (1991, Math Biosci 107:255; from
 memory) called the predator density of 10⁻¹⁸ fox behind such recoveries in a
-rabies model the "atto-fox". Setting densities below a threshold to zero after
-every step is the usual remedy (common practice, no source). It changes the
-model: it removes animals, and it slows invasion fronts, whose speed is set at
-their low-density leading edge (Brunet & Derrida 1997, Phys Rev E 56:2597: the
-speed falls short of 2√(rD) by an amount proportional to (ln ε)⁻², with ε the
-threshold as a share of the density behind the front).
+rabies model the "atto-fox". Setting densities below a threshold to zero is
+the usual remedy (common practice, no source).
+
+When the threshold acts matters. A cell's density rises from zero
+continuously as animals move in, so a floor applied after every time step
+stops animals from entering empty cells, the more so the shorter the step: in
+the limit nothing would ever spread. The threshold therefore acts as a
+*census*: at the end of every :meth:`~preyscape.solve.stepper.Stepper.advance`,
+which in a run is every save interval (``run.save_every``), so results do not
+depend on the time step (``tests/test_solve_extinction.py``). Between two
+censuses animals move and grow freely.
+
+A threshold changes the model: it removes animals, and it slows invasion
+fronts, whose speed is set at their low-density leading edge (Brunet &
+Derrida 1997, Phys Rev E 56:2597: a cut-off slows a pulled front, less and
+less as the cut-off falls). Measured on a Fisher–KPP front (r = D = 1,
+census every 0.5 yr, 10–20 yr): 1.56 km/yr with a threshold of 1 % of the
+capacity, 1.85 km/yr with 0.01 %, 1.89 km/yr without (2√(rD) = 2 km/yr).
 
 The stepper calls :func:`apply_thresholds` only when a threshold is set, so
 runs without one are unchanged, bit for bit.

@@ -91,8 +91,9 @@ class Stepper:
         Reaction substeps per reaction step (1: plain RK4 where safe; more:
         RK4 on log densities with that many substeps).
     extinction : tuple of float, optional
-        Prey and predator densities below which a cell is set to zero after
-        every step, animals/km² (0: none); see :mod:`preyscape.solve.extinction`.
+        Prey and predator densities below which a cell is set to zero at the
+        end of every :meth:`advance` (the run loop advances from save point to
+        save point), animals/km² (0: none); see :mod:`preyscape.solve.extinction`.
     """
 
     mask: np.ndarray
@@ -239,8 +240,8 @@ class Stepper:
                 self._explicit_move(P, 1)
                 self._react(N, P, half)
                 self.stats.steps += 1
-                if self.extinction is not None:
-                    self.stats.floored += apply_thresholds(N, P, self.extinction, self._tot)
+            if self.extinction is not None:  # a census: see solve/extinction.py
+                self.stats.floored += apply_thresholds(N, P, self.extinction, self._tot)
             return
         for s in range(n):
             dt_r = half if s == 0 else self.dt
@@ -255,10 +256,8 @@ class Stepper:
                 self._pass1(N, P, dt_r, half)
                 self._pass2(N, P, half, self._may_undershoot)
             self.stats.steps += 1
-            if self.extinction is not None:
-                self.stats.floored += apply_thresholds(N, P, self.extinction, self._tot)
         self._react(N, P, half)
-        if self.extinction is not None:  # the state handed back holds no density below it
+        if self.extinction is not None:  # a census: see solve/extinction.py
             self.stats.floored += apply_thresholds(N, P, self.extinction, self._tot)
 
     def step(self, N: np.ndarray, P: np.ndarray, index: int) -> None:
