@@ -507,6 +507,7 @@ def prey_alone_runs(tmp_path_factory):
         "predator": DELETE, "interaction": DELETE,
         "start.prey": "uniform", "start.prey_density": 0.0,
         "start.releases.0.species": "prey", "start.releases.0.density": 1000.0,
+        "prey.extinction_threshold": 0.5,
         "measures": [{"name": "fen refuge", "kind": "refuge", "geometry": "refuge.geojson",
                       "protected_fraction": 0.7}],
         "variants": [{"name": "faster", "set": {"prey.diffusivity": 1.0}}],
@@ -548,3 +549,89 @@ def test_report_of_prey_alone_says_so_once(prey_alone_runs, tmp_path):
                    "Predators from start", "predators invading", "None /yr"):
         assert absent not in html, absent
     assert "prey colonised (year)" in html  # the target table keeps its prey column
+    # the extinction threshold is shown with what it removed (run.json records both)
+    assert "extinction threshold 0.5 per km² (0.005 per cell)" in html
+    assert "animals removed over the run" in html
+
+
+# ---------------------------------------------------------------------------
+# the exercises of docs/students.md
+# ---------------------------------------------------------------------------
+STUDENTS = Path(__file__).resolve().parents[1] / "docs" / "students.md"
+
+
+def student_commands() -> list[list[str]]:
+    """Every ``preyscape ...`` line of the shell blocks of docs/students.md, split."""
+    import shlex
+
+    out, inside = [], False
+    for line in STUDENTS.read_text(encoding="utf-8").splitlines():
+        if line.startswith("```"):
+            inside = line.strip() == "```sh"
+        elif inside and line.startswith("preyscape "):
+            out.append(shlex.split(line)[1:])
+    return out
+
+
+def test_every_command_of_the_student_page_parses():
+    from preyscape.cli import _parser
+
+    cmds = student_commands()
+    assert len(cmds) >= 20
+    assert {c[0] for c in cmds} >= {"landscape", "starter", "check", "run", "waves", "report"}
+    for argv in cmds:
+        args = _parser(argv).parse_args(argv)  # argparse exits on an unknown option
+        assert callable(args.handler)
+
+
+def _set_years(path: Path, years: float, save_every: float) -> None:
+    text = path.read_text()
+    text = text.replace("years = 6.0", f"years = {years}")
+    text = text.replace("save_every = 0.125", f"save_every = {save_every}")
+    path.write_text(text)
+
+
+def test_student_exercises_run_fast_version(tmp_path, capsys, monkeypatch):
+    # The three exercises of docs/students.md on small maps and short runs: the same
+    # commands and options, smaller --rows/--cols and years, one landscape in the third.
+    monkeypatch.chdir(tmp_path)
+    from preyscape import runfolder
+
+    # the first two exercises read numbers, not maps (maps are tested elsewhere): skip them
+    monkeypatch.setattr(runfolder, "draw_run_maps", lambda *a, **k: [])
+    ok = [main(a) for a in (
+        ["landscape", "make", "random", "square8.tif", "--rows", "8", "--cols", "8",
+         "--classes", "1"],
+        ["starter", "square8.tif", "--prey-only", "--edge", "hostile"])]
+    _set_years(tmp_path / "square8.toml", 1.0, 0.25)
+    capsys.readouterr()
+    ok.append(main(["check", "square8.toml"]))
+    text = capsys.readouterr().out
+    # Skellam 1951: pi sqrt(2 D / r) = pi sqrt(2 x 0.5 / 4) = 1.571 km; a 0.4 km square is
+    # far below it, so check warns that prey cannot persist
+    assert "square side 1.571 km" in text and "WARNING landscape.edge = 'hostile'" in text
+    ok.append(main(["run", "square8.toml"]))
+    assert "at the end (t = 1 yr)" in capsys.readouterr().out
+    info = json.loads((tmp_path / "runs" / "square8" / "run.json").read_text())
+    tot = info["totals_animals"]["prey"]
+    assert tot["end"] < 0.01 * tot["start"]
+    ok += [main(a) for a in (
+        ["landscape", "make", "random", "strip.tif", "--rows", "3", "--cols", "120",
+         "--classes", "1"],
+        ["starter", "strip.tif", "--prey-only"])]
+    _set_years(tmp_path / "strip.toml", 2.0, 0.125)
+    ok += [main(["run", "strip.toml"]), main(["waves", "runs/strip"])]
+    assert "predicted minimal 2.828 km/yr" in capsys.readouterr().out  # Fisher 1937
+    monkeypatch.undo()  # the third exercise ends with the report, which shows the maps
+    monkeypatch.chdir(tmp_path)
+    ok += [main(["landscape", "make", "fractal", "clumped.tif", "--hurst", "0.9", "--rows",
+                 "30", "--cols", "30", "--habitat", "0.4", "--seed", "7"]),
+           main(["starter", "clumped.tif"])]
+    path = tmp_path / "clumped.toml"
+    text = path.read_text()
+    i = text.index("predator_mortality = 1.0", text.index('name = "matrix"'))
+    path.write_text(text[:i] + "predator_mortality = 4.0" + text[i + 24:])
+    _set_years(path, 0.5, 0.125)
+    ok += [main(["run", "clumped.toml"]), main(["report", "runs/clumped", "--no-animation"])]
+    assert ok == [0] * len(ok)
+    assert (tmp_path / "runs" / "clumped" / "report.html").is_file()

@@ -38,6 +38,10 @@ def _grows(rate) -> bool:
     return rate is not None and math.isfinite(rate) and rate > 0
 
 
+def _cannot_grow(rate) -> bool:
+    return rate is not None and math.isfinite(rate) and rate <= 0
+
+
 def _prey_front_line(d: dict) -> str:
     b = d["best_habitat"]
     if not _grows(b["r"]):
@@ -162,11 +166,11 @@ def check_lines(path: Path, d: dict) -> list[str]:
         _prey_front_line(d),
         _predator_front_line(d),
         _prey_patch_line(d),
+        "                    predator: none (predators cannot grow even in prey at capacity)"
+        if _cannot_grow(d["predator_growth_at_capacity"]) else
         f"                    predator (prey at K): strip {_fmt(cq['strip_width'], 'km')}, "
         f"square side {_fmt(cq['square_side'], 'km')}, disc radius "
-        f"{_fmt(cq['disc_radius'], 'km')}  (Skellam 1951; lethal surroundings)"
-        if _grows(d["predator_growth_at_capacity"]) else
-        "                    predator: none (predators cannot grow even in prey at capacity)",
+        f"{_fmt(cq['disc_radius'], 'km')}  (Skellam 1951; lethal surroundings)",
     ]
     lines += [
         f"memory estimate     {_fmt(d['memory_mb'], 'MB', 3)}",
