@@ -373,15 +373,16 @@ def test_prey_alone_front_moves_at_the_fisher_kpp_speed(tmp_path):
 
 
 def test_extinction_threshold_recorded_and_nothing_left_below_it(write_scenario, tmp_path):
-    # Design requirement: with predator.extinction_threshold_per_cell = 0.05 animals (0.01 km²
-    # cells: 5 per km²) every saved predator density is 0 or at least 5 per km², and run.json
-    # records the threshold in both units and the animals removed.
-    path = write_scenario({"predator.extinction_threshold_per_cell": 0.05,
+    # Design requirement: with predator.extinction_threshold_per_cell = 0.12 animals (0.01 km²
+    # cells: 12 per km²) every saved predator density is 0 or at least 12 per km², and run.json
+    # records the threshold in both units and the animals removed. (The 105 predators
+    # released spread over the landscape at 8-22 per km² by the first save point.)
+    path = write_scenario({"predator.extinction_threshold_per_cell": 0.12,
                            "start.releases.0.density": 500.0})
     run = simulate(path, tmp_path / "run", maps=False, progress=False)
     info = json.loads((run / "run.json").read_text())
     assert info["extinction"] == {"prey": None, "predator": {
-        "per_km2": pytest.approx(5.0), "per_cell": pytest.approx(0.05),
+        "per_km2": pytest.approx(12.0), "per_cell": pytest.approx(0.12),
         "given_as": "per cell"}}
     assert info["extinction_removed_animals"] > 0
     import xarray as xr
@@ -389,7 +390,7 @@ def test_extinction_threshold_recorded_and_nothing_left_below_it(write_scenario,
     with xr.open_dataset(run / "results.nc", decode_times=False) as ds:
         P = ds["predator"].values[1:]
     P = P[np.isfinite(P)]
-    assert np.all((P == 0.0) | (P >= 5.0)) and np.count_nonzero(P) > 0
+    assert np.all((P == 0.0) | (P >= 12.0)) and np.count_nonzero(P) > 0
     assert np.count_nonzero(P == 0.0) > 0
 
 
