@@ -44,8 +44,8 @@ class Entry:
 
 
 REGISTRY: tuple[Entry, ...] = (
-    Entry("hotspots", "Getis–Ord Gi* hotspots of both species",
-          "preyscape.analysis.hotspots_output"),
+    Entry("hotspots", "hotspots of both species: the few places where animals are markedly "
+          "denser", "preyscape.analysis.hotspots_output"),
     Entry("waves", "arrival times, front speeds and periodic waves",
           "preyscape.analysis.waves_output"),
     Entry("effects", "refuge, corridor and transect effects", "preyscape.analysis.effects_output"),

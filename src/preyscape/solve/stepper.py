@@ -38,6 +38,7 @@ import numpy as np
 from preyscape.model.movement import Movement
 from preyscape.model.reactions import Interaction
 from preyscape.solve import kernels
+from preyscape.solve.extinction import apply_thresholds
 
 SCHEMES = ("adi", "implicit-euler", "explicit")
 
@@ -57,6 +58,7 @@ class StepStats:
 
     steps: int = 0
     clipped: float = 0.0
+    floored: float = 0.0  # density removed by extinction thresholds, animals/km² over cells
 
 
 @dataclass
@@ -88,6 +90,10 @@ class Stepper:
     reaction_substeps : int
         Reaction substeps per reaction step (1: plain RK4 where safe; more:
         RK4 on log densities with that many substeps).
+    extinction : tuple of float, optional
+        Prey and predator densities below which a cell is set to zero at the
+        end of every :meth:`advance` (the run loop advances from save point to
+        save point), animals/km² (0: none); see :mod:`preyscape.solve.extinction`.
     """
 
     mask: np.ndarray
@@ -103,6 +109,7 @@ class Stepper:
     damping_steps: int = 2
     reaction_substeps: int = 1
     stats: StepStats = field(default_factory=StepStats)
+    extinction: tuple[float, float] | None = None
 
     def __post_init__(self) -> None:
         if self.scheme not in SCHEMES:
@@ -233,6 +240,8 @@ class Stepper:
                 self._explicit_move(P, 1)
                 self._react(N, P, half)
                 self.stats.steps += 1
+            if self.extinction is not None:  # a census: see solve/extinction.py
+                self.stats.floored += apply_thresholds(N, P, self.extinction, self._tot)
             return
         for s in range(n):
             dt_r = half if s == 0 else self.dt
@@ -248,6 +257,8 @@ class Stepper:
                 self._pass2(N, P, half, self._may_undershoot)
             self.stats.steps += 1
         self._react(N, P, half)
+        if self.extinction is not None:  # a census: see solve/extinction.py
+            self.stats.floored += apply_thresholds(N, P, self.extinction, self._tot)
 
     def step(self, N: np.ndarray, P: np.ndarray, index: int) -> None:
         """Advance ``N`` and ``P`` by one Strang step, in place (see :meth:`advance`)."""
