@@ -158,8 +158,6 @@ class Stepper:
         self._neg = (np.zeros(shape[1]), np.zeros(shape[1]))
         self._neg_rows = (np.zeros(shape[0]), np.zeros(shape[0]))
         self._tot = np.zeros(shape[0])
-        self._bands = kernels.n_bands(shape[0])
-        self._bands_t = kernels.n_bands(shape[1])
         # the explicit half of Peaceman-Rachford is positive while tau*dg <= 1
         self._may_undershoot = self.scheme == "adi" and any(
             tau * max(mv.max_rate_along()) > 1.0 for mv in self._mv
@@ -180,7 +178,7 @@ class Stepper:
             self.m, it.attack_rate, it.h, it.c, it.efficiency, self._refuge,
             0.5 * self.dt, tau_e,
             cxn, cyn, wn, ivn, cxp, cyp, wp, ivp,
-            self._neg_rows[0], self._neg_rows[1], self._bands,
+            self._neg_rows[0], self._neg_rows[1],
         )
 
     def _pass2(self, N, P, tau_e: float, fix: bool) -> None:
@@ -192,7 +190,7 @@ class Stepper:
             it.attack_rate, it.h, it.c, it.efficiency, self._refuge,
             0.5 * self.dt, tau_e,
             aln, acn, wn, ivn, alp, acp, wp, ivp,
-            self._neg[0], self._neg[1], self._bands_t,
+            self._neg[0], self._neg[1],
         )
         if fix:
             for u, neg in zip((N, P), self._neg, strict=True):
