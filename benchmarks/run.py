@@ -173,7 +173,7 @@ def _previous_kernels():
     import previous_kernels as prev
 
     def half_step(*args):
-        prev.half_step(*args, prev.n_bands(args[0].shape[0]))
+        prev.half_step(*args[:26], prev.n_bands(args[0].shape[0]))  # no "negatives" flag
 
     return types.SimpleNamespace(half_step=half_step, react=prev.react, factor_x=prev.factor_x,
                                  fix_negative=prev.fix_negative, explicit_step=prev.explicit_step)

@@ -153,10 +153,10 @@ f8 = np.float64  # coefficients are stored as float32 and combined in float64 on
 # threads
 # ---------------------------------------------------------------------------
 BLOCK = 8
-"""Rows whose Thomas recurrences advance together (independent chains per core)."""
+"""Rows whose Thomas recurrences advance together (independent chains per core).
 
-TILE = 16
-"""Rows solved before they are written out as columns (a multiple of BLOCK)."""
+:func:`_solve8` is written out for 8 lanes."""
+
 
 _pool: ThreadPoolExecutor | None = None
 _pool_lock = threading.Lock()
@@ -176,13 +176,13 @@ def _in_parallel(run: Callable[[int, int], object], n: int) -> None:
 
     The number of threads is numba's (``numba.get_num_threads()``, set by
     ``NUMBA_NUM_THREADS`` or ``numba.set_num_threads``). Range limits are
-    multiples of :data:`TILE`; the kernels release the GIL.
+    multiples of :data:`BLOCK`; the kernels release the GIL.
     """
-    k = max(1, min(numba.get_num_threads(), n // TILE))
+    k = max(1, min(numba.get_num_threads(), n // BLOCK))
     if k == 1:
         run(0, n)
         return
-    cuts = [n * t // k // TILE * TILE for t in range(k)] + [n]
+    cuts = [n * t // k // BLOCK * BLOCK for t in range(k)] + [n]
     pool = _workers()
     futures = [pool.submit(run, cuts[t], cuts[t + 1]) for t in range(1, k)]
     try:
@@ -367,10 +367,118 @@ def _coef_row(i, up, rc, dn, tau, tau_e, c_al, c_ac, w, inv, beta, alpha, gamma)
         gamma[j - 1] = cj * f8(w[i, j]) * inv[i, j - 1]
 
 
+@_inline
+def _solve8(b, a, g, T, t0):
+    # The Thomas recurrences of the 8 rows b[0:8] side by side: 8 independent chains
+    # held in registers (one per row, the same operations as for the row alone), so
+    # the core overlaps them instead of waiting on one multiply-add at a time. The
+    # forward elimination overwrites b; the back substitution writes the solution
+    # straight into T, transposed (T[j, t0 + k]: 8 contiguous values per column j).
+    # Returns the smallest value written.
+    nx = b.shape[1]
+    d0 = b[0, 0] + 0.0  # d_0 = beta_0 + alpha_0 * 0
+    d1 = b[1, 0] + 0.0
+    d2 = b[2, 0] + 0.0
+    d3 = b[3, 0] + 0.0
+    d4 = b[4, 0] + 0.0
+    d5 = b[5, 0] + 0.0
+    d6 = b[6, 0] + 0.0
+    d7 = b[7, 0] + 0.0
+    b[0, 0] = d0
+    b[1, 0] = d1
+    b[2, 0] = d2
+    b[3, 0] = d3
+    b[4, 0] = d4
+    b[5, 0] = d5
+    b[6, 0] = d6
+    b[7, 0] = d7
+    for j in range(1, nx):
+        d0 = b[0, j] + a[0, j] * d0
+        d1 = b[1, j] + a[1, j] * d1
+        d2 = b[2, j] + a[2, j] * d2
+        d3 = b[3, j] + a[3, j] * d3
+        d4 = b[4, j] + a[4, j] * d4
+        d5 = b[5, j] + a[5, j] * d5
+        d6 = b[6, j] + a[6, j] * d6
+        d7 = b[7, j] + a[7, j] * d7
+        b[0, j] = d0
+        b[1, j] = d1
+        b[2, j] = d2
+        b[3, j] = d3
+        b[4, j] = d4
+        b[5, j] = d5
+        b[6, j] = d6
+        b[7, j] = d7
+    j = nx - 1
+    T[j, t0] = d0
+    T[j, t0 + 1] = d1
+    T[j, t0 + 2] = d2
+    T[j, t0 + 3] = d3
+    T[j, t0 + 4] = d4
+    T[j, t0 + 5] = d5
+    T[j, t0 + 6] = d6
+    T[j, t0 + 7] = d7
+    m0, m1, m2, m3 = min(d0, d4), min(d1, d5), min(d2, d6), min(d3, d7)
+    for j in range(nx - 2, -1, -1):
+        d0 = b[0, j] + g[0, j] * d0
+        d1 = b[1, j] + g[1, j] * d1
+        d2 = b[2, j] + g[2, j] * d2
+        d3 = b[3, j] + g[3, j] * d3
+        d4 = b[4, j] + g[4, j] * d4
+        d5 = b[5, j] + g[5, j] * d5
+        d6 = b[6, j] + g[6, j] * d6
+        d7 = b[7, j] + g[7, j] * d7
+        T[j, t0] = d0
+        T[j, t0 + 1] = d1
+        T[j, t0 + 2] = d2
+        T[j, t0 + 3] = d3
+        T[j, t0 + 4] = d4
+        T[j, t0 + 5] = d5
+        T[j, t0 + 6] = d6
+        T[j, t0 + 7] = d7
+        m0 = min(m0, min(d0, d4))
+        m1 = min(m1, min(d1, d5))
+        m2 = min(m2, min(d2, d6))
+        m3 = min(m3, min(d3, d7))
+    return min(min(m0, m1), min(m2, m3))
+
+
+@_inline
+def _solve_rows(b, a, g, nb, T, t0):
+    # the same for the nb < 8 rows of a short last block, one row at a time
+    nx = b.shape[1]
+    lo = 0.0
+    for k in range(nb):
+        d = b[k, 0] + 0.0
+        b[k, 0] = d
+        for j in range(1, nx):
+            d = b[k, j] + a[k, j] * d
+            b[k, j] = d
+        T[nx - 1, t0 + k] = d
+        lo = min(lo, d)
+        for j in range(nx - 2, -1, -1):
+            d = b[k, j] + g[k, j] * d
+            T[j, t0 + k] = d
+            lo = min(lo, d)
+    return lo
+
+
+@_inline
+def _negative_sums(T, t0, nb, neg):
+    # per output column t0 + k: the sum of the negative values, added in the
+    # order of the back substitution (the last row of T first)
+    nx = T.shape[0]
+    for k in range(nb):
+        q = min(T[nx - 1, t0 + k], 0.0)
+        for j in range(nx - 2, -1, -1):
+            q += min(T[j, t0 + k], 0.0)
+        neg[t0 + k] = q
+
+
 @_jit()
 def _band(i0, i1, only_react, N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
-          tau, tau_e, alN, acN, wN, invN, alP, acP, wP, invP, negN, negP):
-    # rows i0..i1 of half_step (i0 a multiple of TILE); only_react: react these
+          tau, tau_e, alN, acN, wN, invN, alP, acP, wP, invP, negN, negP, want_neg):
+    # rows i0..i1 of half_step (i0 a multiple of BLOCK); only_react: react these
     # rows in place instead (N, P are then written)
     ny, nx = N.shape
     react = dt_r != 0.0
@@ -384,98 +492,55 @@ def _band(i0, i1, only_react, N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, re
                 N[i, j] = RN[0, j]
                 P[i, j] = RP[0, j]
         return
-    # the block's right-hand sides (then solutions) for TILE rows; the
-    # recurrence coefficients for the BLOCK rows being solved
-    bN = np.empty((TILE, nx))
-    bP = np.empty((TILE, nx))
+    # a block's right-hand sides (then forward-eliminated values) and recurrence
+    # coefficients, one row per lane
+    bN = np.empty((BLOCK, nx))
     aN = np.empty((BLOCK, nx))
     gN = np.empty((BLOCK, nx))
+    bP = np.empty((BLOCK, nx))
     aP = np.empty((BLOCK, nx))
     gP = np.empty((BLOCK, nx))
     nxt = max(i0 - 1, 0)  # the next row to react into the ring buffer
-    for t0 in range(i0, i1, TILE):
-        t1 = min(t0 + TILE, i1)
-        for s0 in range(t0, t1, BLOCK):
-            s1 = min(s0 + BLOCK, t1)
-            for i in range(s0, s1):
-                if react:
-                    while nxt <= min(i + 1, ny - 1):
-                        q = nxt % 3
-                        _react_row(N, P, nxt, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
-                                   RN[q], RP[q], zb)
-                        nxt += 1
-                iu = i - 1 if i > 0 else 0
-                idn = i + 1 if i < ny - 1 else ny - 1
-                if react:
-                    uN, cN, dN = RN[iu % 3], RN[i % 3], RN[idn % 3]
-                    uP, cP, dP = RP[iu % 3], RP[i % 3], RP[idn % 3]
-                else:  # no reaction: read the input rows directly
-                    uN, cN, dN = N[iu], N[i], N[idn]
-                    uP, cP, dP = P[iu], P[i], P[idn]
-                k = i - s0
-                _coef_row(i, uN, cN, dN, tau, tau_e, alN, acN, wN, invN,
-                          bN[i - t0], aN[k], gN[k])
-                _coef_row(i, uP, cP, dP, tau, tau_e, alP, acP, wP, invP,
-                          bP[i - t0], aP[k], gP[k])
-            o = s0 - t0
-            for k in range(s1 - s0, BLOCK):  # a short last block: idle lanes hold zeros
-                for j in range(nx):
-                    bN[o + k, j] = 0.0
-                    bP[o + k, j] = 0.0
-                    aN[k, j] = 0.0
-                    gN[k, j] = 0.0
-                    aP[k, j] = 0.0
-                    gP[k, j] = 0.0
-            # Thomas recurrences of 2 x BLOCK rows side by side: independent chains
-            # the core overlaps (same operations in the same order as one row alone)
-            for k in range(BLOCK):
-                bN[o + k, 0] += 0.0  # d_0 = beta_0 + alpha_0 * 0
-                bP[o + k, 0] += 0.0
-            for j in range(1, nx):
-                for k in range(BLOCK):
-                    bN[o + k, j] = bN[o + k, j] + aN[k, j] * bN[o + k, j - 1]
-                    bP[o + k, j] = bP[o + k, j] + aP[k, j] * bP[o + k, j - 1]
-            for j in range(nx - 2, -1, -1):
-                for k in range(BLOCK):
-                    bN[o + k, j] = bN[o + k, j] + gN[k, j] * bN[o + k, j + 1]
-                    bP[o + k, j] = bP[o + k, j] + gP[k, j] * bP[o + k, j + 1]
-        nt = t1 - t0
-        for k in range(nt):
-            # sums of the negative parts, in the order of the back substitution;
-            # only rows that have a negative value need the (serial) sum
-            cn = 0
-            cp = 0
-            for j in range(nx):
-                cn += bN[k, j] < 0.0
-                cp += bP[k, j] < 0.0
-            qn = 0.0
-            qp = 0.0
-            if cn:
-                qn = min(bN[k, nx - 1], 0.0)
-                for j in range(nx - 2, -1, -1):
-                    qn += min(bN[k, j], 0.0)
-            if cp:
-                qp = min(bP[k, nx - 1], 0.0)
-                for j in range(nx - 2, -1, -1):
-                    qp += min(bP[k, j], 0.0)
-            negN[t0 + k] = qn
-            negP[t0 + k] = qp
-        if nt == TILE:
-            for j in range(nx):
-                for k in range(TILE):
-                    TN[j, t0 + k] = bN[k, j]
-                    TP[j, t0 + k] = bP[k, j]
+    for s0 in range(i0, i1, BLOCK):
+        nb = min(BLOCK, i1 - s0)
+        for i in range(s0, s0 + nb):
+            if react:
+                while nxt <= min(i + 1, ny - 1):
+                    q = nxt % 3
+                    _react_row(N, P, nxt, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
+                               RN[q], RP[q], zb)
+                    nxt += 1
+            iu = i - 1 if i > 0 else 0
+            idn = i + 1 if i < ny - 1 else ny - 1
+            if react:
+                uN, cN, dN = RN[iu % 3], RN[i % 3], RN[idn % 3]
+                uP, cP, dP = RP[iu % 3], RP[i % 3], RP[idn % 3]
+            else:  # no reaction: read the input rows directly
+                uN, cN, dN = N[iu], N[i], N[idn]
+                uP, cP, dP = P[iu], P[i], P[idn]
+            k = i - s0
+            _coef_row(i, uN, cN, dN, tau, tau_e, alN, acN, wN, invN, bN[k], aN[k], gN[k])
+            _coef_row(i, uP, cP, dP, tau, tau_e, alP, acP, wP, invP, bP[k], aP[k], gP[k])
+        if nb == BLOCK:
+            loN = _solve8(bN, aN, gN, TN, s0)
+            loP = _solve8(bP, aP, gP, TP, s0)
         else:
-            for j in range(nx):
-                for k in range(nt):
-                    TN[j, t0 + k] = bN[k, j]
-                    TP[j, t0 + k] = bP[k, j]
+            loN = _solve_rows(bN, aN, gN, nb, TN, s0)
+            loP = _solve_rows(bP, aP, gP, nb, TP, s0)
+        for k in range(nb):
+            negN[s0 + k] = 0.0
+            negP[s0 + k] = 0.0
+        # the sums of negative parts are only formed where there is one (rare)
+        if want_neg and loN < 0.0:
+            _negative_sums(TN, s0, nb, negN)
+        if want_neg and loP < 0.0:
+            _negative_sums(TP, s0, nb, negP)
 
 
 def half_step(N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
               tau, tau_e,
               alN, acN, wN, invN,
-              alP, acP, wP, invP, negN, negP) -> None:
+              alP, acP, wP, invP, negN, negP, negatives: bool = True) -> None:
     """One ADI half step of both species, along rows, output transposed.
 
     ``T = ((I - tau L_along)^-1 (I + tau_e L_across) R_dt(u))^T`` where *along*
@@ -485,7 +550,8 @@ def half_step(N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
     holds the prefactored pivots of ``I - tau L_along`` (:func:`factor_x`).
     Writing the result transposed lets the next half step sweep the other
     direction along contiguous rows too. ``negN[i]``, ``negP[i]`` receive the
-    sums of negative values of output column ``i``. ``N, P`` are read only.
+    sums of negative values of output column ``i`` (zeros unless
+    ``negatives``). ``N, P`` are read only; no output may overlap an input.
 
     Parameters
     ----------
@@ -509,10 +575,12 @@ def half_step(N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
         Each species' faces along and across (1/yr), weights and pivots.
     negN, negP : numpy.ndarray of float64
         Output, one value per row of the input, animals/km².
+    negatives : bool
+        Form the sums of negative values (only the positivity fix needs them).
     """
     args = (N, P, TN, TP, float(dt_r), int(nsub), r, ik, m, float(a), float(h), float(c),
             float(e), refuge, float(tau), float(tau_e), alN, acN, wN, invN, alP, acP, wP,
-            invP, negN, negP)
+            invP, negN, negP, bool(negatives))
     _in_parallel(lambda i0, i1: _band(i0, i1, False, *args), N.shape[0])
 
 
@@ -545,7 +613,7 @@ def react(N, P, dt, nsub, r, inv_K, m, a, h, c, e, refuge) -> None:
     t8 = np.zeros((1, 1))
     n1 = np.zeros(1)
     args = (N, P, t8, t8, float(dt), int(nsub), r, inv_K, m, float(a), float(h), float(c),
-            float(e), refuge, 0.0, 0.0, t4, t4, t4, t8, t4, t4, t4, t8, n1, n1)
+            float(e), refuge, 0.0, 0.0, t4, t4, t4, t8, t4, t4, t4, t8, n1, n1, False)
     _in_parallel(lambda i0, i1: _band(i0, i1, True, *args), N.shape[0])
 
 
@@ -645,5 +713,5 @@ def warm_up() -> None:
 
 __all__ = [
     "react", "factor_x", "half_step", "explicit_step", "fix_negative", "warm_up",
-    "cache_folder", "CACHE_FOLDER", "BLOCK", "TILE",
+    "cache_folder", "CACHE_FOLDER", "BLOCK",
 ]

@@ -178,7 +178,7 @@ class Stepper:
             self.m, it.attack_rate, it.h, it.c, it.efficiency, self._refuge,
             0.5 * self.dt, tau_e,
             cxn, cyn, wn, ivn, cxp, cyp, wp, ivp,
-            self._neg_rows[0], self._neg_rows[1],
+            self._neg_rows[0], self._neg_rows[1], False,
         )
 
     def _pass2(self, N, P, tau_e: float, fix: bool) -> None:
@@ -190,7 +190,7 @@ class Stepper:
             it.attack_rate, it.h, it.c, it.efficiency, self._refuge,
             0.5 * self.dt, tau_e,
             aln, acn, wn, ivn, alp, acp, wp, ivp,
-            self._neg[0], self._neg[1],
+            self._neg[0], self._neg[1], fix,
         )
         if fix:
             for u, neg in zip((N, P), self._neg, strict=True):
