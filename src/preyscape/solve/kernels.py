@@ -444,26 +444,6 @@ def _solve8(b, a, g, T, t0):
 
 
 @_inline
-def _solve_rows(b, a, g, nb, T, t0):
-    # the same for the nb < 8 rows of a short last block, one row at a time
-    nx = b.shape[1]
-    lo = 0.0
-    for k in range(nb):
-        d = b[k, 0] + 0.0
-        b[k, 0] = d
-        for j in range(1, nx):
-            d = b[k, j] + a[k, j] * d
-            b[k, j] = d
-        T[nx - 1, t0 + k] = d
-        lo = min(lo, d)
-        for j in range(nx - 2, -1, -1):
-            d = b[k, j] + g[k, j] * d
-            T[j, t0 + k] = d
-            lo = min(lo, d)
-    return lo
-
-
-@_inline
 def _negative_sums(T, t0, nb, neg):
     # per output column t0 + k: the sum of the negative values, added in the
     # order of the back substitution (the last row of T first)
@@ -485,31 +465,32 @@ def _band(i0, i1, only_react, N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, re
     RN = np.zeros((3, nx))
     RP = np.zeros((3, nx))
     zb = np.empty(nx)
-    if only_react:
-        for i in range(i0, i1):
-            _react_row(N, P, i, dt_r, nsub, r, ik, m, a, h, c, e, refuge, RN[0], RP[0], zb)
-            for j in range(nx):  # plain loops: slice assignment compiles much more code
-                N[i, j] = RN[0, j]
-                P[i, j] = RP[0, j]
-        return
     # a block's right-hand sides (then forward-eliminated values) and recurrence
-    # coefficients, one row per lane
-    bN = np.empty((BLOCK, nx))
-    aN = np.empty((BLOCK, nx))
-    gN = np.empty((BLOCK, nx))
-    bP = np.empty((BLOCK, nx))
-    aP = np.empty((BLOCK, nx))
-    gP = np.empty((BLOCK, nx))
-    nxt = max(i0 - 1, 0)  # the next row to react into the ring buffer
+    # coefficients, one row per lane; idle lanes of a short last block hold zeros
+    bN = np.zeros((BLOCK, nx))
+    aN = np.zeros((BLOCK, nx))
+    gN = np.zeros((BLOCK, nx))
+    bP = np.zeros((BLOCK, nx))
+    aP = np.zeros((BLOCK, nx))
+    gP = np.zeros((BLOCK, nx))
+    nxt = i0 if only_react else max(i0 - 1, 0)  # the next row to react
     for s0 in range(i0, i1, BLOCK):
         nb = min(BLOCK, i1 - s0)
         for i in range(s0, s0 + nb):
             if react:
-                while nxt <= min(i + 1, ny - 1):
+                # one call site: the reaction is the largest piece of compiled code
+                last = i if only_react else min(i + 1, ny - 1)
+                while nxt <= last:
                     q = nxt % 3
                     _react_row(N, P, nxt, dt_r, nsub, r, ik, m, a, h, c, e, refuge,
                                RN[q], RP[q], zb)
+                    if only_react:
+                        for j in range(nx):
+                            N[nxt, j] = RN[q, j]
+                            P[nxt, j] = RP[q, j]
                     nxt += 1
+            if only_react:
+                continue
             iu = i - 1 if i > 0 else 0
             idn = i + 1 if i < ny - 1 else ny - 1
             if react:
@@ -521,12 +502,27 @@ def _band(i0, i1, only_react, N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, re
             k = i - s0
             _coef_row(i, uN, cN, dN, tau, tau_e, alN, acN, wN, invN, bN[k], aN[k], gN[k])
             _coef_row(i, uP, cP, dP, tau, tau_e, alP, acP, wP, invP, bP[k], aP[k], gP[k])
+        if only_react:
+            continue
         if nb == BLOCK:
             loN = _solve8(bN, aN, gN, TN, s0)
             loP = _solve8(bP, aP, gP, TP, s0)
         else:
-            loN = _solve_rows(bN, aN, gN, nb, TN, s0)
-            loP = _solve_rows(bP, aP, gP, nb, TP, s0)
+            # a short last block: solve all lanes into a scratch array, keep nb of them
+            for k in range(nb, BLOCK):
+                for j in range(nx):
+                    bN[k, j] = 0.0
+                    bP[k, j] = 0.0
+            scratch = np.empty((nx, BLOCK))
+            zero = s0 - s0  # not a literal 0: that would compile _solve8 a second time
+            loN = _solve8(bN, aN, gN, scratch, zero)
+            for j in range(nx):
+                for k in range(nb):
+                    TN[j, s0 + k] = scratch[j, k]
+            loP = _solve8(bP, aP, gP, scratch, zero)
+            for j in range(nx):
+                for k in range(nb):
+                    TP[j, s0 + k] = scratch[j, k]
         for k in range(nb):
             negN[s0 + k] = 0.0
             negP[s0 + k] = 0.0
