@@ -374,7 +374,8 @@ def _solve8(b, a, g, T, t0):
     # the core overlaps them instead of waiting on one multiply-add at a time. The
     # forward elimination overwrites b; the back substitution writes the solution
     # straight into T, transposed (T[j, t0 + k]: 8 contiguous values per column j).
-    # Returns the smallest value written.
+    # Returns the sum of the negative values written (in no particular order): < 0
+    # if there is a negative value, nan if there is a nan.
     nx = b.shape[1]
     d0 = b[0, 0] + 0.0  # d_0 = beta_0 + alpha_0 * 0
     d1 = b[1, 0] + 0.0
@@ -418,7 +419,10 @@ def _solve8(b, a, g, T, t0):
     T[j, t0 + 5] = d5
     T[j, t0 + 6] = d6
     T[j, t0 + 7] = d7
-    m0, m1, m2, m3 = min(d0, d4), min(d1, d5), min(d2, d6), min(d3, d7)
+    m0 = min(d0, 0.0) + min(d4, 0.0)
+    m1 = min(d1, 0.0) + min(d5, 0.0)
+    m2 = min(d2, 0.0) + min(d6, 0.0)
+    m3 = min(d3, 0.0) + min(d7, 0.0)
     for j in range(nx - 2, -1, -1):
         d0 = b[0, j] + g[0, j] * d0
         d1 = b[1, j] + g[1, j] * d1
@@ -436,11 +440,11 @@ def _solve8(b, a, g, T, t0):
         T[j, t0 + 5] = d5
         T[j, t0 + 6] = d6
         T[j, t0 + 7] = d7
-        m0 = min(m0, min(d0, d4))
-        m1 = min(m1, min(d1, d5))
-        m2 = min(m2, min(d2, d6))
-        m3 = min(m3, min(d3, d7))
-    return min(min(m0, m1), min(m2, m3))
+        m0 = m0 + min(d0, 0.0) + min(d4, 0.0)
+        m1 = m1 + min(d1, 0.0) + min(d5, 0.0)
+        m2 = m2 + min(d2, 0.0) + min(d6, 0.0)
+        m3 = m3 + min(d3, 0.0) + min(d7, 0.0)
+    return (m0 + m1) + (m2 + m3)
 
 
 @_inline
@@ -526,10 +530,11 @@ def _band(i0, i1, only_react, N, P, TN, TP, dt_r, nsub, r, ik, m, a, h, c, e, re
         for k in range(nb):
             negN[s0 + k] = 0.0
             negP[s0 + k] = 0.0
-        # the sums of negative parts are only formed where there is one (rare)
-        if want_neg and loN < 0.0:
+        # the sums of negative parts, in their own order, are only formed where
+        # there is a negative value (rare) or a nan (then they are nan too)
+        if want_neg and not loN >= 0.0:
             _negative_sums(TN, s0, nb, negN)
-        if want_neg and loP < 0.0:
+        if want_neg and not loP >= 0.0:
             _negative_sums(TP, s0, nb, negP)
 
 
