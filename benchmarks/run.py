@@ -410,8 +410,8 @@ attack_rate = 0.004
 handling_time = 0.2
 efficiency = 0.5
 [[start.releases]]
-x = 500000.0
-y = 6900000.0
+x = {x}
+y = {y}
 radius = 2000.0
 density = 10.0
 [run]
@@ -443,8 +443,9 @@ def bench_memory(quick):
             del s
             for saves in snapshot_counts:
                 key = f"{saves}_snapshots" if n == 2000 else f"{saves}_snapshots_{n}"
-                Path(f"{d}/s{saves}.toml").write_text(
-                    MEMORY_SCENARIO.format(save_every=1.0 / saves))
+                # the release at the centre of the grid (top-left corner 400 km, 7000 km)
+                Path(f"{d}/s{saves}.toml").write_text(MEMORY_SCENARIO.format(
+                    save_every=1.0 / saves, x=400000.0 + 50.0 * n, y=7000000.0 - 50.0 * n))
                 res = subprocess.run([sys.executable, "-c", RUN_AND_MEASURE, "run",
                                       f"{d}/s{saves}.toml", "--out", f"{d}/run{saves}",
                                       "--quiet"], capture_output=True, text=True, check=True)

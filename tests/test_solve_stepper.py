@@ -461,3 +461,21 @@ def test_results_do_not_depend_on_the_thread_count(threads, monkeypatch):
     other = run()
     assert default[2] > 0 and np.isfinite(default[0]).all()  # the clip acted
     assert all(np.array_equal(a, b) for a, b in zip(default, other, strict=True))
+
+
+def test_stepper_hands_the_kernels_one_array_type():
+    # design requirement (first-run time): the kernels are compiled for writable
+    # C-contiguous arrays; read-only inputs (views, broadcasts, a read-only mask) are
+    # turned into that type, and float32 fields are used without a copy
+    shape = (6, 7)
+    r = np.full(shape, 1.0, np.float32)
+    frozen = r.copy()
+    frozen.flags.writeable = False
+    mask = np.ones(shape, bool)
+    mask.flags.writeable = False
+    mv = build_movement(np.ones(shape), mask, H_M, H_M, "fickian")
+    st = Stepper(mask, mv, mv, r, frozen, np.broadcast_to(np.float32(0.3), shape),
+                 NO_REACTION, 0.1, refuge=np.broadcast_to(0.2, shape))
+    for a in (st.r, st.inv_K, st.m, st._refuge, st.mask):
+        assert a.flags.c_contiguous and a.flags.writeable and a.shape == shape
+    assert st.r is r

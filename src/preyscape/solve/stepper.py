@@ -110,12 +110,18 @@ class Stepper:
         if not (self.dt > 0 and math.isfinite(self.dt)):
             raise ValueError("dt must be a positive number of years")
         shape = self.mask.shape
-        self.mask = np.ascontiguousarray(self.mask, dtype=np.bool_)
+        self.mask = np.require(self.mask, dtype=np.bool_, requirements=["C", "A", "W"])
 
         def full(v):
             # per-cell parameters are stored as float32 (7 significant digits, far
-            # beyond any habitat parameter); all arithmetic is float64
-            return np.ascontiguousarray(np.broadcast_to(v, shape), dtype=np.float32)
+            # beyond any habitat parameter); all arithmetic is float64. Always a
+            # writable C array (a float32 field is used as it is, not copied): the
+            # kernels are compiled for exactly that type, and a read-only view (as
+            # np.broadcast_to gives) would compile them a second time
+            a = np.asarray(v)
+            if a.shape != shape:
+                a = np.broadcast_to(a, shape)
+            return np.require(a, dtype=np.float32, requirements=["C", "A", "W"])
 
         self.r, self.inv_K, self.m = full(self.r), full(self.inv_K), full(self.m)
         if self.refuge is None or np.ndim(self.refuge) == 0:
