@@ -25,10 +25,12 @@ One Peaceman–Rachford step of both species is two calls of
   runs when needed.
 
 Every tridiagonal solve thus runs along contiguous memory with prefactored
-pivots. The Thomas recurrences are the latency-bound part: each is one
-dependent chain of multiply-adds along a row. The sweeps therefore advance
-a block of :data:`BLOCK` rows together, so each core works on ``2 x BLOCK``
-independent chains (both species) in the same loop iteration instead of two.
+pivots. The Thomas recurrences are latency-bound: each is one dependent chain
+of multiply-adds along a row. The sweeps therefore solve blocks of
+:data:`BLOCK` rows, whose recurrences advance together in one loop iteration
+with each chain in a register (:func:`_solve8`): ``2 x BLOCK`` independent
+chains per core (both species) instead of two. The back substitution writes
+the solution straight into the transposed output, a cache line per column.
 
 Threads: the rows are split into one contiguous range per thread, run by
 :func:`_in_parallel` on the compiled kernels (which release the GIL). Every
@@ -50,7 +52,7 @@ import os
 import tempfile
 import threading
 from collections.abc import Callable, Iterator, Mapping
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import ThreadPoolExecutor, wait
 from pathlib import Path
 
 import numba
@@ -188,8 +190,9 @@ def _in_parallel(run: Callable[[int, int], object], n: int) -> None:
     try:
         run(cuts[0], cuts[1])
     finally:
-        for f in futures:
-            f.result()
+        wait(futures)  # every range is finished before anything is raised or returned
+    for f in futures:
+        f.result()
 
 
 # ---------------------------------------------------------------------------
