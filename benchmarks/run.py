@@ -513,14 +513,19 @@ def bench_compile(quick):
         env = dict(os.environ, NUMBA_CACHE_DIR=d)
 
         def run(code):
-            return float(subprocess.run([sys.executable, "-c", code], env=env,
+            # wall seconds as the script measures them, and the child's CPU seconds
+            # (on a busy machine the wall time also counts waiting for a core)
+            before = resource.getrusage(resource.RUSAGE_CHILDREN)
+            wall = float(subprocess.run([sys.executable, "-c", code], env=env,
                                         capture_output=True, text=True, check=True).stdout)
+            after = resource.getrusage(resource.RUSAGE_CHILDREN)
+            cpu = (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)
+            return wall, cpu
 
-        first = run(COLD_COMPILE)
-        cached = run(COLD_COMPILE)
-        rare = run(RARE_KERNELS)
-    return {"cold_s": first, "cached_s": cached, "explicit_and_clip_cold_s": rare,
-            "target_s": 8.0}
+        (first, first_cpu), (cached, _) = run(COLD_COMPILE), run(COLD_COMPILE)
+        rare, _ = run(RARE_KERNELS)
+    return {"cold_s": first, "cold_process_cpu_s": first_cpu, "cached_s": cached,
+            "explicit_and_clip_cold_s": rare, "target_s": 8.0}
 
 
 BENCHES = {"step": bench_step, "previous": bench_previous, "compile": bench_compile,
@@ -554,7 +559,8 @@ def _table(res):
     if "compile" in res:
         s = res["compile"]
         row("kernel compile, first run / cached (fresh processes, empty cache)",
-            f"{s['cold_s']:.1f} s / {s['cached_s']:.2f} s (explicit scheme and clip, "
+            f"{s['cold_s']:.1f} s (whole process {s['cold_process_cpu_s']:.1f} s CPU) / "
+            f"{s['cached_s']:.2f} s (explicit scheme and clip, "
             f"compiled only when used: {s['explicit_and_clip_cold_s']:.1f} s)",
             f"≤ {s['target_s']:.0f} s / cached", s["cold_s"] <= s["target_s"]
             and s["cached_s"] < s["cold_s"])
