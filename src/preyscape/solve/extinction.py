@@ -39,17 +39,20 @@ Examples
 from __future__ import annotations
 
 import numpy as np
-from numba import njit, prange
+
+from preyscape.solve.kernels import _jit
 
 __all__ = ["apply_thresholds", "floor_below"]
 
-_OPTS = dict(cache=True, nogil=True, fastmath=False)
+# the kernels' options and cache folder (a read-only installation caches per user); one
+# serial pass: it runs once per save interval, and a parallel loop would cost a longer
+# first compile than it saves
 
 
-@njit(parallel=True, **_OPTS)
+@_jit()
 def _floor_rows(u, threshold, removed):
     ny, nx = u.shape
-    for i in prange(ny):
+    for i in range(ny):
         s = 0.0
         for j in range(nx):
             v = u[i, j]
@@ -59,7 +62,7 @@ def _floor_rows(u, threshold, removed):
         removed[i] = s
 
 
-@njit(**_OPTS)
+@_jit()
 def _ordered_sum(a):
     s = 0.0
     for k in range(a.shape[0]):
@@ -85,7 +88,7 @@ def floor_below(u: np.ndarray, threshold: float, work: np.ndarray) -> float:
     float
         The density removed, animals/km² summed over cells (multiply by the
         cell area in km² for animals). Sums are taken per row and added in
-        order, so the result does not depend on the number of threads.
+        order.
     """
     _floor_rows(u, float(threshold), work)
     return float(_ordered_sum(work))
