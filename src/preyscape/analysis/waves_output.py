@@ -530,7 +530,7 @@ def arrival_map(grid, arrival: np.ndarray, title: str, path: Path,
     vmax = float(data.max()) if data.count() else 1.0
     fig, ax, _ = map_figure(grid, arrival, title, ARRIVAL_CMAP, vmin=0.0,
                             vmax=max(vmax, 1e-12),
-                            units="arrival time (years); grey: never or no data")
+                            units="arrival time (years)", undefined="never reached")
     _draw_transects(ax, transects, _extent_km(grid))
     left, right, bottom, top = _extent_km(grid)
     ax.set_xlim(left, right)
