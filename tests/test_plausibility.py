@@ -13,8 +13,8 @@ import pytest
 from conftest import CAPACITY, DELETE, RELEASE_DENSITY
 
 from preyscape.assemble import prepare
-from preyscape.preview import derived
 from preyscape.plausibility import RANGES, plausibility_warnings, start_totals
+from preyscape.preview import derived
 from preyscape.scenario import load_scenario
 
 
