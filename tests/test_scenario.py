@@ -380,6 +380,7 @@ def test_prey_alone_may_keep_its_interaction_form(write_scenario):
     ({"start.predator_density": 2.0}, "start.predator_density"),
     ({"start.predator": "raster", "start.predator_raster": "habitat.tif"}, "start.predator"),
     ({"analysis.predator_threshold": 1.0}, "analysis.predator_threshold"),
+    ({"analysis.goal": "fewer-predators"}, "analysis.goal"),
 ])
 def test_prey_alone_refuses_anything_about_predators(write_scenario, overrides, key):
     text = load_error(write_scenario({**PREY_ALONE, **overrides}))

@@ -195,9 +195,12 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
 
 
 def _resumable(folder: Path) -> bool:
-    """Whether a temporary run folder can be continued (checkpoint, no run record yet)."""
-    return ((folder / "checkpoint.npz").is_file() and (folder / PARTIAL_RECORD).is_file()
-            and not (folder / "run.json").exists())
+    """Whether a temporary run folder can be continued (a checkpoint, not yet complete).
+
+    A run stopped while its maps are drawn already has ``run.json`` (the maps
+    are drawn from it); it is continued from its last checkpoint like any other.
+    """
+    return (folder / "checkpoint.npz").is_file() and (folder / PARTIAL_RECORD).is_file()
 
 
 def interrupted_run(out: str | Path) -> Path | None:

@@ -643,6 +643,10 @@ class Scenario(_Strict):
         if self.analysis.predator_threshold is not None:
             raise ValueError("analysis.predator_threshold: the scenario has no [predator] "
                              "section; remove the key")
+        if self.analysis.goal in ("fewer-predators", "more-predators"):
+            raise ValueError(f"analysis.goal: '{self.analysis.goal}' ranks alternatives by "
+                             "their predators, but the scenario has no [predator] section; "
+                             "give 'fewer-prey' or 'more-prey', or remove the key")
         return self
 
     @model_validator(mode="after")

@@ -18,7 +18,10 @@ into one folder::
 
 Every run is named by its variant. The maps of one quantity share one colour
 scale across the alternatives, and each map draws the measures of the
-alternative it shows.
+alternative it shows. Only the species every run models get maps, columns and
+rows (:attr:`~preyscape.analysis.compare.Comparison.species`): runs of prey
+alone write no predator file and no predator column, and the summary says once
+that the scenario has no predator.
 
 Examples
 --------
@@ -98,11 +101,14 @@ class ComparisonOutput(Written):
         The reference run's name.
     alternatives : tuple of str
         The alternatives' names.
+    species : tuple of str
+        The species compared (``("prey",)`` for runs of prey alone).
     """
 
     record: dict = field(default_factory=dict)
     base: str = ""
     alternatives: tuple[str, ...] = ()
+    species: tuple[str, ...] = SPECIES
 
     @property
     def ranking(self) -> list[dict]:
@@ -193,15 +199,16 @@ def write_comparison(base, alternatives, out: str | Path, *,
         files += write_maps(tmp, result, runs)
         labels = [result.base, *result.alternatives]
         totals_plot(tmp / "totals.png", [r.times for r in runs],
-                    [{sp: r.totals(sp) for sp in SPECIES} for r in runs], labels,
-                    runs[0].species_names, result.window)
+                    [{sp: r.totals(sp) for sp in result.species} for r in runs], labels,
+                    runs[0].species_names, result.window, species=result.species)
         files.append(FileRecord("totals.png", "figure", "Landscape totals of every run",
                                 key="totals"))
         files.append(FileRecord("comparison.json", "record", "Window, runs, settings, "
                                 "warnings and ranking"))
         record = _record(result, runs, zones, files)
         write_json(tmp / "comparison.json", record)
-    return ComparisonOutput(Path(out), tuple(files), record, result.base, result.alternatives)
+    return ComparisonOutput(Path(out), tuple(files), record, result.base, result.alternatives,
+                            result.species)
 
 
 def _clean(v):
@@ -226,13 +233,15 @@ def _record(result, runs, zones, files) -> dict:
         "runs": {lab: str(r.path.resolve()) for lab, r in
                  zip([result.base, *result.alternatives], runs, strict=True)},
         "title": runs[0].title,
-        "species": runs[0].species_names,
+        "species": {sp: runs[0].species_names[sp] for sp in result.species},
+        "species_present": list(result.species),
         "window": {"start_years": w.start, "end_years": w.end, "snapshots": int(w.times.size),
                    "first_time": float(w.times[0]), "same_times": bool(w.same_times)},
         "settings": {"change_threshold": s.change_threshold,
                      "presence_animals_per_km2": s.presence, "goal": s.goal,
                      "years": None if s.years is None else list(s.years),
-                     "arrival_threshold": {sp: s.arrival_threshold(sp) for sp in SPECIES},
+                     "arrival_threshold": {sp: s.arrival_threshold(sp)
+                                           for sp in result.species},
                      "zones": None if zones is None else str(zones)},
         "cell_area_km2": runs[0].grid.cell_area_km2,
         "area_km2": runs[0].grid.n_cells * runs[0].grid.cell_area_km2,
@@ -288,7 +297,7 @@ def write_maps(tmp: Path, result, runs) -> list[FileRecord]:
     names = runs[0].species_names
     files: list[FileRecord] = []
     lims = {}
-    for sp in SPECIES:
+    for sp in result.species:
         for key in ("difference", "arrival_delay"):
             lims[sp, key] = _limit([maps[f"{sp}_{key}"].values])
     for k, alt in enumerate(result.alternatives):
@@ -297,7 +306,7 @@ def write_maps(tmp: Path, result, runs) -> list[FileRecord]:
         outlines = runs[k + 1].overlays()
         mine = result.fences[result.fences["alternative"] == alt]
         ends = [p for pts in mine["open_end_points"] for p in pts]
-        for sp in SPECIES:
+        for sp in result.species:
             who = f"{sp} ({names[sp]})" if names[sp] != sp else sp
             files += _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat,
                                    (outlines, ends), lims, result)
@@ -451,15 +460,19 @@ def delay_map(grid, delay: np.ndarray, status: np.ndarray, title: str, path: Pat
 
 
 def totals_plot(path: Path, times: Sequence[np.ndarray], totals: Sequence[dict],
-                labels: Sequence[str], names: dict, window=None) -> Path:
-    """Landscape totals (animals) of both species in every run against time (years)."""
+                labels: Sequence[str], names: dict, window=None, *,
+                species: Sequence[str] = SPECIES) -> Path:
+    """Landscape totals (animals) of each species in every run against time (years).
+
+    One panel per species of ``species`` (prey alone: one panel).
+    """
     from preyscape.plots import _new, _save
 
-    fig = _new((7.0, 5.4))
+    fig = _new((7.0, 5.4 if len(species) > 1 else 3.2))
     axes = []
     styles = ["-", "--", ":", "-.", (0, (5, 1)), (0, (3, 1, 1, 1, 1, 1))]
-    for k, sp in enumerate(SPECIES):
-        ax = fig.add_subplot(2, 1, k + 1, sharex=axes[0] if axes else None)
+    for k, sp in enumerate(species):
+        ax = fig.add_subplot(len(species), 1, k + 1, sharex=axes[0] if axes else None)
         axes.append(ax)
         for j, (t, tot, lab) in enumerate(zip(times, totals, labels, strict=True)):
             ax.plot(t, tot[sp], lw=1.8 if j == 0 else 1.4, ls=styles[j % len(styles)],

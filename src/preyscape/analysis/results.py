@@ -386,6 +386,13 @@ class RunResults:
         stored_as = f"{self.path / 'run.json'}: analysis"
         s = AnalysisSettings.build(self.info.get("analysis") or {}, overrides, spelled,
                                    stored_as=stored_as)
+        if (overrides or {}).get("goal") is not None:  # a goal asked for now must fit the run
+            from preyscape.analysis.settings import check_goal
+
+            try:
+                check_goal(s.goal, self.species)
+            except InputError as err:
+                raise InputError(err.message, (spelled or {}).get("goal", "goal")) from None
         band = s.hotspot_distance
         if band is not None:
             given = (overrides or {}).get("hotspot_distance") is not None

@@ -210,7 +210,9 @@ def _landscape_facts(pr: dict) -> list[tuple[str, str]]:
             ("where each species can grow", " ".join(growth))]
 
 
-def _measure_rows(measures: list[dict]) -> list[list]:
+def _measure_rows(measures: list[dict], species: Sequence[str] = ("prey", "predator"),
+                  ) -> list[list]:
+    """One table row per measure; settings of species the run does not model are left out."""
     rows = []
     for m in measures:
         size = f"{m['area_km2']:.3g} km²" if "area_km2" in m else ""
@@ -219,11 +221,12 @@ def _measure_rows(measures: list[dict]) -> list[list]:
         end = "end" if m.get("end_year") is None else f"{m['end_year']:g}"
         if m["kind"] == "fence":
             p = m.get("permeability", {})
-            detail = (f"permeability prey {p.get('prey')}, predator {p.get('predator')}; "
-                      f"{len(m.get('gaps', []))} gaps")
+            detail = ("permeability " + ", ".join(f"{sp} {p.get(sp)}" for sp in species)
+                      + f"; {len(m.get('gaps', []))} gaps")
         elif m["kind"] == "refuge":
             detail = (f"{m.get('protected_fraction')} of prey protected"
-                      + ("; closed to predators" if m.get("closed_to_predators") else ""))
+                      + ("; closed to predators" if m.get("closed_to_predators")
+                         and "predator" in species else ""))
         else:
             detail = ", ".join(f"{k} = {v}" for k, v in (m.get("sets") or {}).items())
         rows.append([m["name"], m["kind"], f"{m['start_year']:g}–{end}", size, detail])
@@ -250,10 +253,10 @@ def _settings_part(run) -> Part:
     blocks: list = [Facts(facts)]
     if run.measures:
         blocks.append(Table(("measure", "kind", "years", "size", "settings"),
-                            tuple(tuple(r) for r in _measure_rows(run.measures)),
+                            tuple(tuple(r) for r in _measure_rows(run.measures, run.species)),
                             caption="Measures in this run"))
         for t in run.info.get("fence_topology") or []:  # leaky fences, checked before the run
-            if t.get("warning"):
+            if t.get("warning") and t.get("species", "prey") in run.species:
                 blocks.append(Paragraph(t["warning"]))
     else:
         blocks.append(Paragraph("This run has no corridors, fences or refuges."))
@@ -409,11 +412,22 @@ def _parts(run, others: Sequence, work: Path, animate: bool,
         parts += o.report_parts()
     for other in others:
         parts += _colonisation_parts(other)
-    parts += [model_part(run), _settings_part(run),
-              Part("Sources", (Paragraph(
-                  "preyscape solves reaction–diffusion equations for the densities of both "
-                  "species on the habitat raster (Strang splitting of the local interaction "
-                  "and movement; Peaceman–Rachford ADI for movement). See docs/method.md for "
-                  "the equations and the published checks in the test suite."),
-                  Bullets(tuple(SOURCES))), "sources", place="method")]
+    parts += [model_part(run), _settings_part(run), _sources_part(run)]
     return parts
+
+
+PREDATOR_SOURCES = ("Lotka–Volterra", "Holling", "Predator")
+"""How the sources that concern predators begin (left out for a run of prey alone)."""
+
+
+def _sources_part(run) -> Part:
+    """How the model is solved and the published sources (place ``method``)."""
+    both = "predator" in run.species
+    sources = [s for s in SOURCES if both or not s.startswith(PREDATOR_SOURCES)]
+    return Part("Sources", (Paragraph(
+        "preyscape solves reaction–diffusion equations for the densities of "
+        + ("both species" if both else "the prey") + " on the habitat raster (Strang "
+        "splitting of the local " + ("interaction" if both else "growth") + " and movement; "
+        "Peaceman–Rachford ADI for movement). See docs/method.md for the equations and the "
+        "published checks in the test suite."), Bullets(tuple(sources))), "sources",
+        place="method")
