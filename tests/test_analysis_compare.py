@@ -258,9 +258,21 @@ def test_write_comparison_end_to_end(runs):
         assert (out / name).is_file(), name
     for sp in ("prey", "predator"):
         for name in ("level_change.tif", "level_change.png", "difference.tif",
-                     "difference.png", "ratio.tif", "persistence_difference.tif",
-                     "arrival_delay.tif", "arrival_status.tif"):
+                     "difference.png", "ratio.tif", "ratio.png", "persistence_difference.tif",
+                     "persistence_difference.png", "arrival_delay.tif", "arrival_status.tif"):
             assert (out / "b" / f"{sp}_{name}").is_file(), (sp, name)
+    # the class rasters name their classes for a GIS (read back through GDAL itself)
+    from gdal_pam import legend
+
+    from preyscape.analysis.change import ARRIVAL_CODES, LEVEL_CODES
+
+    _, rows = legend(out / "b" / "predator_level_change.tif")
+    assert {int(r["value"]): r["class"] for r in rows} == LEVEL_CODES
+    names, _ = legend(out / "b" / "prey_arrival_status.tif")
+    assert names == [ARRIVAL_CODES[k] for k in range(5)]
+    with rasterio.open(out / "b" / "prey_level_change.tif") as src:
+        assert src.descriptions[0].startswith("level change of prey")
+        assert src.tags()["alternative"] == "b" and src.units[0] == "class code"
     assert not list(out.parent.glob(".cmp.partial-*"))
     # the rasters hold the maps, on the run grid, with the no-data code
     result = compare(runs["a"], [runs["b"]],

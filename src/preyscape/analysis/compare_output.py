@@ -298,8 +298,10 @@ def write_maps(tmp: Path, result, runs) -> list[FileRecord]:
     files: list[FileRecord] = []
     lims = {}
     for sp in result.species:
-        for key in ("difference", "arrival_delay"):
+        for key in ("difference", "arrival_delay", "ratio"):
             lims[sp, key] = _limit([maps[f"{sp}_{key}"].values])
+        lims[sp, "ratio"] = max(lims[sp, "ratio"], 1.5)  # |ratio| > 1 is a clear change
+        lims[sp, "persistence_difference"] = 1.0  # a difference of shares
     for k, alt in enumerate(result.alternatives):
         folder = slug(alt)
         (tmp / folder).mkdir()
@@ -316,7 +318,7 @@ def write_maps(tmp: Path, result, runs) -> list[FileRecord]:
 # long: one block per file, in the order the folder lists them
 def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
                   result) -> list[FileRecord]:
-    from preyscape.analysis.change import NO_DATA
+    from preyscape.analysis.change import ARRIVAL_CODES, LEVEL_CODES, NO_DATA
 
     outlines, ends = drawn
 
@@ -330,7 +332,9 @@ def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
     tags = {"base": result.base, "alternative": alt, "window": when}
     cls = get("level_change")
     write_raster(tmp / f"{rel}_level_change.tif", grid, cls.astype(np.int8), nodata=NO_DATA,
-                 dtype="int8")
+                 dtype="int8", description=f"level change of {who}, {head}",
+                 units="class code", tags=tags, categories=LEVEL_CODES,
+                 colours={**LEVEL_COLOURS, 0: NO_CHANGE})
     level_map(grid, cls, f"{who}: where the level changes\n{head}",
               tmp / f"{rel}_level_change.png", outlines=outlines, underlay=habitat,
               open_ends=ends)
@@ -345,6 +349,15 @@ def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
                      tags=tags)
         files.append(FileRecord(f"{rel}_{key}.tif", "raster", f"{who}: {what}", sp,
                                 key=f"{alt}:{key}"))
+    for key, units, what in (  # a picture for every GeoTIFF (the difference is drawn below)
+            ("ratio", "difference / margin (beyond ±1: a clear change)",
+             "difference against the timing margin"),
+            ("persistence_difference", "share of snapshots present, alternative − base",
+             "difference in how often present")):
+        difference_map(grid, get(key), f"{who}: {what}\n{head}", tmp / f"{rel}_{key}.png",
+                       units, lim=lims[sp, key], outlines=outlines, open_ends=ends)
+        files.append(FileRecord(f"{rel}_{key}.png", "map", f"{who.capitalize()}: {what}, "
+                                f"{alt}", sp, key=f"{alt}:{key}"))
     lim = lims[sp, "difference"]
     difference_map(grid, get("difference"), f"{who}: window mean, alternative − base\n{head}",
                    tmp / f"{rel}_difference.png", "animals per km²", lim=lim, outlines=outlines,
@@ -355,7 +368,9 @@ def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
     write_raster(tmp / f"{rel}_arrival_delay.tif", grid, get("arrival_delay"),
                  description="arrival delay, alternative − base", units="years", tags=tags)
     write_raster(tmp / f"{rel}_arrival_status.tif", grid, status.astype(np.int8),
-                 nodata=NO_DATA, dtype="int8")
+                 nodata=NO_DATA, dtype="int8", description=f"where {who} arrive, {head}",
+                 units="class code", tags=tags, categories=ARRIVAL_CODES,
+                 colours={0: "#c2a5cf", 4: "#ffffff", **ONLY_COLOURS})
     files += [FileRecord(f"{rel}_arrival_delay.tif", "raster", f"{who}: arrival delay", sp,
                          key=f"{alt}:arrival_delay"),
               FileRecord(f"{rel}_arrival_status.tif", "raster", f"{who}: where it arrives",
