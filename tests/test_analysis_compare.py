@@ -57,7 +57,7 @@ def frames(seed: int, n: int = len(TIMES), shape=SHAPE) -> tuple[np.ndarray, np.
 
 
 def write_run(folder: Path, prey, pred, times=TIMES, grid: Grid | None = None,
-              title="run", habitat=None, variant=None) -> Path:
+              title="run", habitat=None, variant=None, present=None) -> Path:
     grid = grid or make_grid()
     folder.mkdir(parents=True)
     w = ResultWriter(folder / "results.nc", grid, {"prey": "bank vole", "predator": "stoat"},
@@ -65,9 +65,11 @@ def write_run(folder: Path, prey, pred, times=TIMES, grid: Grid | None = None,
     for t, n, p in zip(times, prey, pred, strict=True):
         w.write(t, n, p)
     w.close()
-    (folder / "run.json").write_text(json.dumps(
-        {"title": title, "species": {"prey": "bank vole", "predator": "stoat"},
-         "variant": variant or folder.name, "classes": {"1": "meadow", "2": "scrub"}}))
+    info = {"title": title, "species": {"prey": "bank vole", "predator": "stoat"},
+            "variant": variant or folder.name, "classes": {"1": "meadow", "2": "scrub"}}
+    if present is not None:  # what runfolder records for a scenario of prey alone
+        info["species_present"] = list(present)
+    (folder / "run.json").write_text(json.dumps(info))
     return folder
 
 
@@ -256,9 +258,21 @@ def test_write_comparison_end_to_end(runs):
         assert (out / name).is_file(), name
     for sp in ("prey", "predator"):
         for name in ("level_change.tif", "level_change.png", "difference.tif",
-                     "difference.png", "ratio.tif", "persistence_difference.tif",
-                     "arrival_delay.tif", "arrival_status.tif"):
+                     "difference.png", "ratio.tif", "ratio.png", "persistence_difference.tif",
+                     "persistence_difference.png", "arrival_delay.tif", "arrival_status.tif"):
             assert (out / "b" / f"{sp}_{name}").is_file(), (sp, name)
+    # the class rasters name their classes for a GIS (read back through GDAL itself)
+    from gdal_pam import legend
+
+    from preyscape.analysis.change import ARRIVAL_CODES, LEVEL_CODES
+
+    _, rows = legend(out / "b" / "predator_level_change.tif")
+    assert {int(r["value"]): r["class"] for r in rows} == LEVEL_CODES
+    names, _ = legend(out / "b" / "prey_arrival_status.tif")
+    assert names == [ARRIVAL_CODES[k] for k in range(5)]
+    with rasterio.open(out / "b" / "prey_level_change.tif") as src:
+        assert src.descriptions[0].startswith("level change of prey")
+        assert src.tags()["alternative"] == "b" and src.units[0] == "class code"
     assert not list(out.parent.glob(".cmp.partial-*"))
     # the rasters hold the maps, on the run grid, with the no-data code
     result = compare(runs["a"], [runs["b"]],
@@ -342,6 +356,61 @@ def test_compare_with_polygon_zones(runs, tmp_path):
     got = sum(float(r["mean_animals_base"]) for r in rows)
     # design requirement: zones covering the landscape add up to the totals
     assert got == pytest.approx(runs["ds_a"]["prey_total"].values[1:].mean(), rel=1e-5)
+
+
+# ---------------------------------------------------------------------------
+# prey alone
+# ---------------------------------------------------------------------------
+# the ranking columns of a comparison of two species, as they were before runs of prey
+# alone could be compared (observed on these runs; design requirement: unchanged)
+BOTH_SPECIES_COLUMNS = ["rank", "alternative", "measures"] + [
+    f"{sp}_{c}" for sp in ("prey", "predator") for c in (
+        "total_change_pct", "window_change_pct", "gain_km2", "loss_km2", "gone_km2",
+        "clarity", "persistence_change", "median_delay_yr", "never_km2")] + [
+    "fence_length_m", "open_ends", "leaky"]
+
+
+def test_runs_of_prey_alone_are_compared_on_the_prey_only(runs, tmp_path):
+    # design requirement (prey alone): runs that record species_present = ["prey"] are
+    # compared on the prey, and nothing about predators is computed or written
+    from preyscape.analysis.compare_output import write_comparison
+    from preyscape.analysis.results import NO_PREDATOR
+
+    zero = np.zeros((len(TIMES), *SHAPE))
+    a = write_run(tmp_path / "a", runs["frames_a"][0], zero, present=["prey"])
+    b = write_run(tmp_path / "b", runs["frames_b"][0], zero, present=["prey"])
+    settings = AnalysisSettings(presence=2.0, goal="more-prey")
+    alone = compare(a, [b], settings=settings)
+    assert alone.species == ("prey",)
+    assert sorted(alone.maps.data_vars) == sorted(
+        f"prey_{k}" for k in ("mean", "mean_base", "difference", "margin", "ratio",
+                              "level_change", "persistence_difference", "arrival_delay",
+                              "arrival_status"))
+    assert not [c for c in alone.ranking.columns if "predator" in c]
+    assert set(alone.zones["species"]) == {"prey"}
+    # two species: as before, and the prey's statistics are the same as alone
+    both = compare(runs["a"], [runs["b"]], settings=settings)
+    assert both.species == ("prey", "predator")
+    assert list(both.ranking.columns) == BOTH_SPECIES_COLUMNS
+    np.testing.assert_array_equal(alone.maps["prey_level_change"].values,
+                                  both.maps["prey_level_change"].values)
+    prey_cols = [c for c in BOTH_SPECIES_COLUMNS if not c.startswith("predator")]
+    assert list(alone.ranking.columns) == prey_cols
+    assert alone.ranking[prey_cols[3:-3]].equals(both.ranking[prey_cols[3:-3]])
+    # a run of each: compared on the species both model
+    assert compare(runs["a"], [b]).species == ("prey",)
+    # a goal that ranks by predators: one clear message naming the valid goals
+    with pytest.raises(InputError, match="'fewer-predators'.*give one of fewer-prey, "
+                                         "more-prey, or no goal"):
+        compare(a, [b], settings=AnalysisSettings(goal="fewer-predators"))
+    # the written folder: no predator file, column or word; the summary says so once
+    out = write_comparison(a, [b], tmp_path / "cmp", settings=settings)
+    assert [p for p in (tmp_path / "cmp").rglob("*") if "prey_" in p.name]
+    assert not [p for p in (tmp_path / "cmp").rglob("*") if "predator" in p.name]
+    for f in ("ranking.csv", "zones.csv", "sides.csv", "fences.csv", "comparison.json"):
+        assert "predator" not in (tmp_path / "cmp" / f).read_text(), f
+    assert "\n".join(out.summary_lines()).count(NO_PREDATOR) == 1
+    assert "predator" not in " ".join(out.headlines()) + repr(out.report_parts())
 
 
 # ---------------------------------------------------------------------------

@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 from conftest import (
     CAPACITY,
+    DELETE,
     DX,
     NODATA_CELLS,
     RELEASE_COL,
@@ -294,3 +295,82 @@ def test_densities_that_overflow_end_in_a_message_and_leave_nothing(write_scenar
     assert "stopped being finite at t = 0.5 yr" in str(err.value)
     assert "lotka-volterra" in str(err.value)
     assert not out.exists() and list(out.parent.iterdir()) == []
+
+
+# ---------------------------------------------------------------------------
+# start from rasters, prey alone, zero growth (design requirements)
+# ---------------------------------------------------------------------------
+def _write_density(path, values, cell=DX):
+    """A float32 density raster (animals/km²) over the test grid with cells of ``cell`` m."""
+    from conftest import EPSG
+    from rasterio.crs import CRS
+
+    from preyscape.landscape.grid import Grid
+    from preyscape.landscape.io import write_geotiff
+
+    g = Grid(values.shape, X0, Y0, cell, cell, crs_wkt=CRS.from_epsg(EPSG).to_wkt())
+    write_geotiff(path, g, values.astype(np.float32), nodata=np.nan, dtype="float32")
+    return path
+
+
+def test_predator_start_from_a_raster_band_plus_release(write_scenario, tmp_path):
+    band = np.zeros(SHAPE)
+    band[:, 20:23] = 4.0  # a north-south band of predators, 4 per km²
+    _write_density(tmp_path / "band.tif", band)
+    s = prepare(load_scenario(write_scenario({"start.predator": "raster",
+                                              "start.predator_raster": "band.tif"})))
+    mask = habitat_array() != 0
+    X, Y = cell_centres()
+    disc = (np.hypot(X - RELEASE_X, Y - RELEASE_Y) <= RELEASE_RADIUS) & mask
+    expected = np.where(mask, band, 0.0) + np.where(disc, RELEASE_DENSITY, 0.0)
+    np.testing.assert_allclose(s.P0, expected, rtol=0, atol=1e-12)
+    assert s.P0[12, 20] == 0.0  # a no-data cell inside the band
+
+
+def test_predator_raster_on_coarser_cells_is_averaged_by_area(write_scenario, tmp_path):
+    # Reference computation: each 200 m source cell covers four 100 m cells exactly, so the
+    # area-weighted average gives each of them the source value.
+    coarse = np.arange(12 * 15, dtype=float).reshape(12, 15) / 10.0
+    _write_density(tmp_path / "coarse.tif", coarse, cell=2 * DX)
+    s = prepare(load_scenario(write_scenario({"start.predator": "raster",
+                                              "start.predator_raster": "coarse.tif",
+                                              "start.releases": DELETE})))
+    expected = np.where(habitat_array() != 0, np.kron(coarse, np.ones((2, 2))), 0.0)
+    np.testing.assert_allclose(s.P0, expected, rtol=1e-6)
+
+
+def test_negative_predator_raster_names_the_key_and_cell(write_scenario, tmp_path):
+    bad = np.zeros(SHAPE)
+    bad[5, 6] = -1.0
+    _write_density(tmp_path / "bad.tif", bad)
+    with pytest.raises(InputError) as info:
+        prepare(load_scenario(write_scenario({"start.predator": "raster",
+                                              "start.predator_raster": "bad.tif"})))
+    text = str(info.value)
+    assert "start.predator_raster" in text and "row 5, col 6" in text and "predator" in text
+
+
+def test_prey_alone_starts_without_predators_and_derives_no_predator_numbers(write_scenario):
+    s = prepare(load_scenario(write_scenario({"predator": DELETE, "interaction": DELETE,
+                                              "start.releases.0.species": "prey"})))
+    assert not s.P0.any()
+    assert s.interaction.attack_rate == 0.0 and s.interaction.logistic
+    assert not s.fields.m.any() and not s.fields.predator_move.any()
+    d = derived(s)
+    assert d["species"] == ["prey"]
+    for key in ("predator_front_speed", "predator_growth_at_capacity", "hopf_capacity",
+                "lv_period_years", "critical_patch_predator", "period_years", "stable"):
+        assert d[key] is None, key
+    assert "predator" not in d["movement_per_step"] and "m" not in d["best_habitat"]
+    # Fisher 1937; Kolmogorov, Petrovsky & Piskunov 1937: 2 sqrt(r D)
+    assert d["prey_front_speed"] == pytest.approx(2 * math.sqrt(3.7 * 0.5))
+
+
+def test_zero_prey_growth_has_no_front_and_a_finite_step(write_scenario):
+    s = prepare(load_scenario(write_scenario({"prey.growth": 0.0})))
+    d = derived(s)
+    assert d["prey_front_speed"] == 0.0
+    assert d["lv_period_years"] is None
+    assert math.isinf(d["critical_patch_prey"]["square_side"])
+    assert 0 < s.dt <= 0.25
+    assert not s.fields.r.any()

@@ -98,7 +98,7 @@ def test_check_prints_growth_per_class_and_the_landscape_prediction(write_scenar
     path = write_scenario({"predator.mortality": 5.0}, name="starving.toml")
     assert main(["check", str(path)]) == 0
     flat = " ".join(capsys.readouterr().out.split())
-    assert "predator front none: predators cannot grow even on prey at capacity" in flat
+    assert "predator front none: predators cannot invade or persist" in flat
     assert "predator landscape no front: predators cannot grow in any habitat class" in flat
     # Lotka-Volterra prey have no capacity: the predators' speed is undefined, in words
     # (theory.predator_speed used to raise TypeError on K = None)
@@ -357,7 +357,9 @@ def test_check_prints_measures_and_variants(variant_runs, capsys):
     # of 24 cells on either side, less the no-data cells)
     assert ("fence topology      fence 'predator fence' [fenced], stops predators: 2.4 km, "
             "24 faces; separates the landscape into 3.58 and 3.57 km²") in text
-    assert "WARNING" not in text
+    # no fence warning (the test scenario's short run.years draws a plausibility warning)
+    assert not [ln for ln in text.splitlines()
+                if "WARNING" in ln and "run.years" not in ln and "WARNINGS" not in ln]
 
 
 def test_check_warns_when_a_fence_can_be_walked_round(write_scenario, capsys):
@@ -555,3 +557,218 @@ def test_effects_with_nothing_to_measure_says_so(variant_runs, tmp_path, capsys)
     rec = json.loads((out / "effects.json").read_text())
     assert rec["note"].startswith("Nothing to measure")
     assert sorted(p.name for p in out.iterdir()) == ["effects.json"]
+
+
+# ---------------------------------------------------------------------------
+# check: start totals, warnings, prey alone, species that cannot invade (issue 12)
+# ---------------------------------------------------------------------------
+def test_check_prints_start_totals_and_releases(scenario_path, capsys):
+    assert main(["check", str(scenario_path)]) == 0
+    text = capsys.readouterr().out
+    # 21 cells of 0.01 km² at 10 per km² (conftest's release, counted in test_assemble)
+    assert "start totals        prey 5720 animals, predator 2.1 animals" in text
+    assert "released            start.releases[0]: 2.1 animals (predator) in 21 cells" in text
+
+
+@pytest.mark.parametrize("overrides,needle", [
+    # the issue's slips: metres typed for kilometres
+    ({"predator.diffusivity": 15_000_000.0},
+     "WARNING predator.diffusivity = 1.5e+07 km²/yr: far above the usual range"),
+    ({"start.releases.0.radius": 0.5},
+     "WARNING start.releases[0].radius = 0.5 m: smaller than a cell (100 m)"),
+])
+def test_check_warns_about_unit_slips_naming_the_key(write_scenario, capsys, overrides,
+                                                     needle):
+    assert main(["check", str(write_scenario(overrides))]) == 0  # a warning, not an error
+    text = capsys.readouterr().out
+    assert needle in text
+    assert "WARNINGS  " in text and "the scenario is valid and runs" in text
+
+
+def test_check_json_holds_start_and_warnings(write_scenario, capsys):
+    path = write_scenario({"start.releases.0.radius": 0.5})
+    assert main(["check", str(path), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["start"]["releases"][0]["cells"] == 1
+    keys = [w["key"] for w in d["warnings"]]
+    assert "start.releases[0].radius" in keys and "start.releases[0].density" in keys
+    w = d["warnings"][keys.index("start.releases[0].radius")]
+    assert w["value"] == 0.5 and w["unit"] == "m"
+
+
+def test_check_of_prey_alone_prints_no_predator_numbers(write_scenario, capsys):
+    path = write_scenario({"predator": DELETE, "interaction": DELETE,
+                           "start.releases.0.species": "prey"})
+    assert main(["check", str(path)]) == 0
+    text = capsys.readouterr().out
+    assert text.count("no predator in this scenario") == 1
+    for absent in ("predator front", "equilibrium", "Hopf", "local period", "m = ",
+                   "predator (prey at K)", "nan", "n/a"):
+        assert absent not in text, absent
+    assert "prey front speed    2.72 km/yr" in text
+    # capacity plus 2.1 prey released
+    assert "start totals        prey 5722 animals (in 715 cells with data)" in text
+
+
+def test_check_says_in_words_when_a_species_cannot_invade(write_scenario, capsys):
+    # predators gain e a K / (1 + a h K) = 1.667/yr at prey capacity: with m = 2 they decline
+    assert main(["check", str(write_scenario({"predator.mortality": 2.0}))]) == 0
+    text = capsys.readouterr().out
+    assert "predator front      none: predators cannot invade or persist" in text
+    assert "0 km/yr" not in text
+    assert main(["check", str(write_scenario({"prey.growth": 0.0}, name="r0.toml"))]) == 0
+    text = capsys.readouterr().out
+    assert "prey front speed    none: prey do not grow (prey.growth = 0)" in text
+    assert "critical patch      prey: none" in text and "0 km/yr" not in text
+
+
+def test_run_summary_prints_totals_and_no_predator(write_scenario, tmp_path, capsys):
+    path = write_scenario({"predator": DELETE, "interaction": DELETE,
+                           "start.releases.0.species": "prey"})
+    assert main(["run", str(path), "--out", str(tmp_path / "r")]) == 0
+    text = capsys.readouterr().out
+    assert "prey: 5722 animals at the start" in text and "at the end (t = 0.5 yr)" in text
+    assert "no predator in this scenario" in text and "predator:" not in text
+
+
+@pytest.fixture(scope="module")
+def prey_alone_runs(tmp_path_factory):
+    """A scenario of prey alone (refuge, target, transect, a variant), run once."""
+    from conftest import BASE, RELEASE_X, RELEASE_Y, apply_overrides, to_toml
+    from test_runfolder import box, geojson
+
+    folder = tmp_path_factory.mktemp("cli_prey_alone")
+    make_landscape(folder)
+    geojson(folder / "refuge.geojson", box(*REFUGE_BOX))
+    over = {
+        "predator": DELETE, "interaction": DELETE,
+        "start.prey": "uniform", "start.prey_density": 0.0,
+        "start.releases.0.species": "prey", "start.releases.0.density": 1000.0,
+        "prey.extinction_threshold": 0.5,
+        "measures": [{"name": "fen refuge", "kind": "refuge", "geometry": "refuge.geojson",
+                      "protected_fraction": 0.7}],
+        "variants": [{"name": "faster", "set": {"prey.diffusivity": 1.0}}],
+        "analysis": {"transects": [{"name": "east line", "points": [
+            [RELEASE_X, RELEASE_Y + 30.0], [X0 + SHAPE[1] * DX - 50.0, RELEASE_Y + 30.0]]}],
+            "targets": [{"name": "fen", "geometry": "refuge.geojson"}]},
+    }
+    path = folder / "prey.toml"
+    path.write_text(to_toml(apply_overrides(BASE, over)))
+    out = folder / "runs"
+    assert main(["run", str(path), "--out", str(out), "--quiet"]) == 0
+    return out
+
+
+@pytest.mark.parametrize("command", ("hotspots", "waves", "effects", "compare"))
+def test_analyses_of_prey_alone_say_so_once_and_write_no_predator_files(
+        prey_alone_runs, command, tmp_path, capsys):
+    base, other = prey_alone_runs / "baseline", prey_alone_runs / "faster"
+    out = tmp_path / command
+    argv = ([command, str(base), str(other)] if command == "compare" else [command, str(base)])
+    assert main(argv + ["--out", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert text.count("no predator in this scenario") == 1
+    files = [p.name for p in out.iterdir()]
+    assert files and not [f for f in files if "predator" in f]
+    for f in out.glob("*.csv"):
+        assert "predator" not in f.read_text()
+    for f in out.glob("*.json"):
+        assert "predator" not in f.read_text()
+
+
+def test_report_of_prey_alone_says_so_once(prey_alone_runs, tmp_path):
+    out = tmp_path / "report.html"
+    assert main(["report", str(prey_alone_runs / "baseline"), str(prey_alone_runs / "faster"),
+                 "--out", str(out), "--no-animation"]) == 0
+    html = out.read_text(encoding="utf-8")
+    assert html.count("no predator in this scenario") == 1
+    for absent in ("predator arrival", "density of predator", "predators colonised",
+                   "Predators from start", "predators invading", "None /yr"):
+        assert absent not in html, absent
+    assert "prey colonised (year)" in html  # the target table keeps its prey column
+    # the extinction threshold is shown with what it removed (run.json records both)
+    assert "extinction threshold 0.5 per km² (0.005 per cell)" in html
+    assert "animals removed over the run" in html
+
+
+# ---------------------------------------------------------------------------
+# the exercises of docs/students.md
+# ---------------------------------------------------------------------------
+STUDENTS = Path(__file__).resolve().parents[1] / "docs" / "students.md"
+
+
+def student_commands() -> list[list[str]]:
+    """Every ``preyscape ...`` line of the shell blocks of docs/students.md, split."""
+    import shlex
+
+    out, inside = [], False
+    for line in STUDENTS.read_text(encoding="utf-8").splitlines():
+        if line.startswith("```"):
+            inside = line.strip() == "```sh"
+        elif inside and line.startswith("preyscape "):
+            out.append(shlex.split(line)[1:])
+    return out
+
+
+def test_every_command_of_the_student_page_parses():
+    from preyscape.cli import _parser
+
+    cmds = student_commands()
+    assert len(cmds) >= 20
+    assert {c[0] for c in cmds} >= {"landscape", "starter", "check", "run", "waves", "report"}
+    for argv in cmds:
+        args = _parser(argv).parse_args(argv)  # argparse exits on an unknown option
+        assert callable(args.handler)
+
+
+def _set_years(path: Path, years: float, save_every: float) -> None:
+    text = path.read_text()
+    text = text.replace("years = 6.0", f"years = {years}")
+    text = text.replace("save_every = 0.125", f"save_every = {save_every}")
+    path.write_text(text)
+
+
+def test_student_exercises_run_fast_version(tmp_path, capsys, monkeypatch):
+    # The three exercises of docs/students.md on small maps and short runs: the same
+    # commands and options, smaller --rows/--cols and years, one landscape in the third.
+    monkeypatch.chdir(tmp_path)
+    from preyscape import runfolder
+
+    # the first two exercises read numbers, not maps (maps are tested elsewhere): skip them
+    monkeypatch.setattr(runfolder, "draw_run_maps", lambda *a, **k: [])
+    ok = [main(a) for a in (
+        ["landscape", "make", "random", "square8.tif", "--rows", "8", "--cols", "8",
+         "--classes", "1"],
+        ["starter", "square8.tif", "--prey-only", "--edge", "hostile"])]
+    _set_years(tmp_path / "square8.toml", 1.0, 0.25)
+    capsys.readouterr()
+    ok.append(main(["check", "square8.toml"]))
+    text = capsys.readouterr().out
+    # Skellam 1951: pi sqrt(2 D / r) = pi sqrt(2 x 0.5 / 4) = 1.571 km; a 0.4 km square is
+    # far below it, so check warns that prey cannot persist
+    assert "square side 1.571 km" in text and "WARNING landscape.edge = 'hostile'" in text
+    ok.append(main(["run", "square8.toml"]))
+    assert "at the end (t = 1 yr)" in capsys.readouterr().out
+    info = json.loads((tmp_path / "runs" / "square8" / "run.json").read_text())
+    tot = info["totals_animals"]["prey"]
+    assert tot["end"] < 0.01 * tot["start"]
+    ok += [main(a) for a in (
+        ["landscape", "make", "random", "strip.tif", "--rows", "3", "--cols", "120",
+         "--classes", "1"],
+        ["starter", "strip.tif", "--prey-only"])]
+    _set_years(tmp_path / "strip.toml", 2.0, 0.125)
+    ok += [main(["run", "strip.toml"]), main(["waves", "runs/strip"])]
+    assert "best-habitat bound 2.828 km/yr" in capsys.readouterr().out  # Fisher 1937
+    monkeypatch.undo()  # the third exercise ends with the report, which shows the maps
+    monkeypatch.chdir(tmp_path)
+    ok += [main(["landscape", "make", "fractal", "clumped.tif", "--hurst", "0.9", "--rows",
+                 "30", "--cols", "30", "--habitat", "0.4", "--seed", "7"]),
+           main(["starter", "clumped.tif"])]
+    path = tmp_path / "clumped.toml"
+    text = path.read_text()
+    i = text.index("predator_mortality = 1.0", text.index('name = "matrix"'))
+    path.write_text(text[:i] + "predator_mortality = 4.0" + text[i + 24:])
+    _set_years(path, 0.5, 0.125)
+    ok += [main(["run", "clumped.toml"]), main(["report", "runs/clumped", "--no-animation"])]
+    assert ok == [0] * len(ok)
+    assert (tmp_path / "runs" / "clumped" / "report.html").is_file()

@@ -25,15 +25,16 @@ RANK = {
     "solve": 3,
     "store": 4, "limits": 4,
     "assemble": 5, "plots": 5, "starter": 5,
-    "preview": 6,
-    "analysis": 6,
+    "preview": 6, "plausibility": 6,
+    "analysis": 6, "run_maps": 6.5,
     "runfolder": 7, "ensemble": 7,
     "report": 8,
     "demo": 9,
     "cli": 10, "__main__": 11,
 }
 
-SIZE_CHECKED = ("analysis", "assemble", "preview", "runfolder", "report", "ensemble")
+SIZE_CHECKED = ("analysis", "assemble", "preview", "runfolder", "run_maps", "report",
+                "ensemble")
 MAX_MODULE_LINES = 600
 MAX_FUNCTION_LINES = 80
 

@@ -13,7 +13,18 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import BASE, DX, RELEASE_COL, RELEASE_ROW, SHAPE, X0, Y0, apply_overrides, to_toml
+from conftest import (
+    BASE,
+    DELETE,
+    DX,
+    RELEASE_COL,
+    RELEASE_ROW,
+    SHAPE,
+    X0,
+    Y0,
+    apply_overrides,
+    to_toml,
+)
 
 from preyscape.assemble import epoch_state, prepare
 from preyscape.errors import InputError
@@ -304,7 +315,6 @@ def test_snapshot_maps_pick_a_log_scale_from_the_presence_threshold(write_scenar
 
     from preyscape import plots, runfolder
     from preyscape.landscape.grid import Grid
-    from preyscape.store import grid_of, time_means
 
     front = np.zeros(SHAPE)
     front[:, :10], front[:, 10:20] = 40.0, 0.04
@@ -319,7 +329,8 @@ def test_snapshot_maps_pick_a_log_scale_from_the_presence_threshold(write_scenar
     def share(path, value):
         rgb = np.asarray(Image.open(path).convert("RGB"), float)
         want = np.array(ramp(value)[:3]) * 255
-        return float((np.abs(rgb - want).max(axis=-1) <= 3).mean())
+        # PNGs are saved with 256 indexed colours: quantising moves a colour by a few levels
+        return float((np.abs(rgb - want).max(axis=-1) <= 8).mean())
 
     low = math.log(4.0) / math.log(4000.0)
     log = plots.snapshot_panels(grid, np.array([0.0]), [front], "predator", "stoat",
@@ -335,12 +346,104 @@ def test_snapshot_maps_pick_a_log_scale_from_the_presence_threshold(write_scenar
                         lambda *a, **kw: seen.append(kw) or real(*a, **kw))
     path = write_scenario({"analysis.presence": 0.002}, name="presence.toml")
     folder = simulate(path, tmp_path / "run", maps=False, progress=False)
-    sc = load_scenario(path)
-    import xarray as xr
-
-    with xr.open_dataset(folder / "results.nc", decode_times=False) as ds:
-        g = grid_of(ds)
-    means = time_means(folder / "results.nc", g.mask)
-    runfolder.draw_run_maps(folder, sc, g, prepare(sc).habitat, means, means, [])
+    runfolder.draw_run_maps(folder)
     assert [kw["floor"] for kw in seen] == [0.002, 0.002]
     assert all(kw["scale"] == "auto" for kw in seen)
+
+
+# ---------------------------------------------------------------------------
+# prey alone, extinction thresholds, start and end totals
+# ---------------------------------------------------------------------------
+STRIP_TOML = """
+[landscape]
+habitat = "strip.tif"
+values = "classes"
+[[landscape.classes]]
+code = 1
+[prey]
+growth = 1.0
+capacity = 100.0
+diffusivity = 1.0
+[start]
+prey = "uniform"
+prey_density = 0.0
+[[start.releases]]
+x = 500150.0
+y = 4999850.0
+radius = 150.0
+density = 100.0
+species = "prey"
+[run]
+years = 20.0
+save_every = 0.5
+"""
+
+
+def test_prey_alone_front_moves_at_the_fisher_kpp_speed(tmp_path):
+    # Fisher 1937 (Ann Eugen 7:355); Kolmogorov, Petrovsky & Piskunov 1937: a front of prey
+    # alone moves at 2 sqrt(rD) = 2 km/yr for r = 1/yr, D = 1 km²/yr; from a compact start
+    # it approaches that speed from below, lagging by (3/2) sqrt(D/r) ln t (Bramson 1983,
+    # Mem AMS 44(285); theory.mean_front_speed). Fitted over 10-20 years on a strip of
+    # 3 x 500 cells of 100 m, the run of a scenario without [predator] gave 1.890 km/yr:
+    # 0.945 of 2 sqrt(rD) and 0.996 of Bramson's finite-time mean (1.897 km/yr).
+    from conftest import utm_grid
+
+    from preyscape.landscape.io import write_geotiff
+    from preyscape.model import theory
+
+    grid = utm_grid((3, 500))
+    write_geotiff(tmp_path / "strip.tif", grid, np.ones((3, 500), np.uint8), nodata=0,
+                  dtype="uint8")
+    (tmp_path / "fk.toml").write_text(STRIP_TOML)
+    run = simulate(tmp_path / "fk.toml", tmp_path / "run", maps=False, progress=False)
+    info = json.loads((run / "run.json").read_text())
+    assert info["species_present"] == ["prey"] and info["species"]["predator"] is None
+    assert info["predictions"]["prey_front_speed"] == pytest.approx(2.0)
+    import xarray as xr
+
+    with xr.open_dataset(run / "results.nc", decode_times=False) as ds:
+        t = ds["time"].values
+        u = ds["prey"].values[:, 1, :]
+        assert not np.nanmax(ds["predator"].values) > 0  # no predator anywhere, ever
+    x = grid.x - grid.x0  # m from the west edge
+    sel = t >= 10.0
+    pos = []
+    for row in u[sel]:
+        j = int(np.nonzero(row >= 50.0)[0].max())  # the front: where the prey reach K/2
+        pos.append((x[j] + (row[j] - 50.0) / (row[j] - row[j + 1]) * DX) / 1000.0)
+    speed = float(np.polyfit(t[sel], pos, 1)[0])
+    bramson = theory.mean_front_speed(2.0, 1.0, 0, 0, times=t[sel]).mean
+    assert 0.92 < speed / 2.0 < 1.0
+    assert speed / bramson == pytest.approx(1.0, abs=0.015)
+    assert info["totals_animals"]["prey"]["start"] == pytest.approx(9 * 100.0 * 0.01)
+
+
+def test_extinction_threshold_recorded_and_nothing_left_below_it(write_scenario, tmp_path):
+    # Design requirement: with predator.extinction_threshold_per_cell = 0.12 animals (0.01 km²
+    # cells: 12 per km²) every saved predator density is 0 or at least 12 per km², and run.json
+    # records the threshold in both units and the animals removed. (The 105 predators
+    # released spread over the landscape at 8-22 per km² by the first save point.)
+    path = write_scenario({"predator.extinction_threshold_per_cell": 0.12,
+                           "start.releases.0.density": 500.0})
+    run = simulate(path, tmp_path / "run", maps=False, progress=False)
+    info = json.loads((run / "run.json").read_text())
+    assert info["extinction"] == {"prey": None, "predator": {
+        "per_km2": pytest.approx(12.0), "per_cell": pytest.approx(0.12),
+        "given_as": "per cell"}}
+    assert info["extinction_removed_animals"] > 0
+    import xarray as xr
+
+    with xr.open_dataset(run / "results.nc", decode_times=False) as ds:
+        P = ds["predator"].values[1:]
+    P = P[np.isfinite(P)]
+    assert np.all((P == 0.0) | (P >= 12.0)) and np.count_nonzero(P) > 0
+    assert np.count_nonzero(P == 0.0) > 0
+
+
+def test_prey_alone_run_draws_no_predator_maps(write_scenario, tmp_path):
+    path = write_scenario({"predator": DELETE, "interaction": DELETE,
+                           "start.releases.0.species": "prey"})
+    run = simulate(path, tmp_path / "run", progress=False)
+    maps = sorted(p.name for p in (run / "maps").iterdir())
+    assert "prey_mean.png" in maps and "totals.png" in maps
+    assert not [m for m in maps if m.startswith("predator")]

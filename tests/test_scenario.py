@@ -352,3 +352,123 @@ def test_class_colour_is_a_css_colour(write_scenario):
     for bad in ("#12", "#ggg", "C0", "tab:blue"):  # not CSS (matplotlib-only forms too)
         path = write_scenario({"landscape.classes.1.colour": bad}, name="bad2.toml")
         assert "is not a colour" in load_error(path), bad
+
+
+# ---------------------------------------------------------------------------
+# prey alone, predator rasters, zero growth, extinction thresholds (design requirements)
+# ---------------------------------------------------------------------------
+PREY_ALONE = {"predator": DELETE, "interaction": DELETE,
+              "start.releases.0.species": "prey"}
+
+
+def test_prey_alone_needs_no_predator_or_interaction(write_scenario):
+    sc = load_scenario(write_scenario(PREY_ALONE))
+    assert sc.predator is None and sc.interaction is None
+    assert not sc.has_predator and sc.species == ("prey",)
+    assert sc.form == "logistic-prey"  # prey grow logistically without [interaction]
+
+
+def test_prey_alone_may_keep_its_interaction_form(write_scenario):
+    sc = load_scenario(write_scenario({"predator": DELETE, "start.releases.0.species": "prey",
+                                       "interaction.form": "lotka-volterra",
+                                       "interaction.handling_time": DELETE}))
+    assert sc.form == "lotka-volterra" and sc.species == ("prey",)
+
+
+@pytest.mark.parametrize("overrides,key", [
+    ({"start.releases.0.species": DELETE}, "start.releases[0]"),
+    ({"start.predator_density": 2.0}, "start.predator_density"),
+    ({"start.predator": "raster", "start.predator_raster": "habitat.tif"}, "start.predator"),
+    ({"analysis.predator_threshold": 1.0}, "analysis.predator_threshold"),
+    ({"analysis.goal": "fewer-predators"}, "analysis.goal"),
+])
+def test_prey_alone_refuses_anything_about_predators(write_scenario, overrides, key):
+    text = load_error(write_scenario({**PREY_ALONE, **overrides}))
+    assert key in text and "no [predator]" in text
+
+
+def test_predator_without_interaction_refused(write_scenario):
+    text = load_error(write_scenario({"interaction": DELETE}))
+    assert "interaction" in text and "[predator]" in text
+
+
+def test_prey_alone_without_capacity_names_logistic_growth(write_scenario):
+    text = load_error(write_scenario({**PREY_ALONE, "prey.capacity": DELETE,
+                                      "start.prey": "uniform", "start.prey_density": 1.0}))
+    assert "prey.capacity" in text and "without [interaction]" in text
+
+
+def test_predator_start_from_a_raster_keys(write_scenario):
+    sc = load_scenario(write_scenario({"start.predator": "raster",
+                                       "start.predator_raster": "habitat.tif"}))
+    assert sc.start.predator_raster == "habitat.tif"
+    assert ("start.predator_raster", "habitat.tif") in sc.input_files()
+    assert "habitat.tif" in sc.files()
+    text = load_error(write_scenario({"start.predator": "raster"}, name="a.toml"))
+    assert "start" in text and "predator_raster" in text
+    text = load_error(write_scenario({"start.predator_raster": "habitat.tif"}, name="b.toml"))
+    assert "predator_raster needs predator = 'raster'" in text
+    text = load_error(write_scenario({"start.predator": "raster", "start.predator_density": 1.0,
+                                      "start.predator_raster": "habitat.tif"}, name="c.toml"))
+    assert "predator_density applies to predator = 'uniform'" in text
+    text = load_error(write_scenario({"start.predator": "raster",
+                                      "start.predator_raster": "missing.tif"}, name="d.toml"))
+    assert "start.predator_raster" in text and "not found" in text
+
+
+def test_zero_prey_growth_allowed_negative_refused(write_scenario):
+    assert load_scenario(write_scenario({"prey.growth": 0.0})).prey.growth == 0.0
+    assert "prey.growth" in load_error(write_scenario({"prey.growth": -0.1}, name="n.toml"))
+    # predators that never die have no equilibrium: mortality stays positive
+    assert "predator.mortality" in load_error(
+        write_scenario({"predator.mortality": 0.0}, name="m.toml"))
+
+
+def test_corridor_may_set_growth_on_a_suitability_landscape(write_scenario, tmp_path):
+    from conftest import utm_grid
+
+    from preyscape.landscape.io import write_geotiff
+
+    write_geotiff(tmp_path / "suit.tif", utm_grid(), np.full((24, 30), 0.6, np.float32),
+                  nodata=np.nan, dtype="float32")
+    (tmp_path / "line.geojson").write_text(
+        '{"type": "FeatureCollection", "crs": {"type": "name", "properties": {"name": '
+        '"urn:ogc:def:crs:EPSG::32633"}}, "features": [{"type": "Feature", "properties": {}, '
+        '"geometry": {"type": "LineString", "coordinates": [[500500, 4999500], '
+        '[502500, 4999500]]}}]}')
+    corridor = {"name": "dry strip", "kind": "corridor", "geometry": "line.geojson",
+                "buffer": 60.0, "prey_growth": 0.0, "predator_mortality": 2.0}
+    over = {"landscape.habitat": "suit.tif", "landscape.values": "suitability",
+            "landscape.classes": DELETE, "measures": [corridor]}
+    sc = load_scenario(write_scenario(over))
+    setup = prepare(sc)
+    on = setup.measures[0].cells
+    assert on.sum() > 10
+    # zero growth there: neither growth nor decline (capacity > 0), predators die faster
+    off = ~on & setup.grid.mask
+    assert np.all(setup.fields.r[on] == 0.0) and np.all(setup.fields.r[off] == np.float32(3.7))
+    np.testing.assert_allclose(setup.fields.m[on], 2.0)
+    text = load_error(write_scenario({**over, "measures": [{**corridor, "prey_capacity": 0.5}]},
+                                     name="cap.toml"))
+    assert "measures[0].prey_capacity" in text and "suitability" in text
+
+
+@pytest.mark.parametrize("key,value,per_km2", [
+    ("extinction_threshold", 0.5, 0.5),
+    ("extinction_threshold_per_cell", 0.02, 0.02 / 0.01),  # 100 m cells: 0.01 km²
+])
+def test_extinction_threshold_per_km2_or_per_cell(write_scenario, key, value, per_km2):
+    from preyscape.assemble import extinction_of
+
+    sc = load_scenario(write_scenario({f"predator.{key}": value}))
+    assert sc.predator.extinction_per_km2(0.01) == pytest.approx(per_km2)
+    assert extinction_of(sc, 0.01) == pytest.approx((0.0, per_km2))
+    assert extinction_of(load_scenario(write_scenario(name="none.toml")), 0.01) is None
+
+
+def test_extinction_threshold_both_forms_or_negative_refused(write_scenario):
+    text = load_error(write_scenario({"prey.extinction_threshold": 1.0,
+                                      "prey.extinction_threshold_per_cell": 1.0}))
+    assert "prey" in text and "not both" in text
+    text = load_error(write_scenario({"prey.extinction_threshold": -1.0}, name="n.toml"))
+    assert "prey.extinction_threshold" in text

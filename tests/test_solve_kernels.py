@@ -48,7 +48,7 @@ def test_half_step_matches_scipy_banded_solves(kind, tau_e):
     negT, neg2 = np.zeros(shape[0]), np.zeros(shape[0])
     o = np.ones(shape)
     kernels.half_step(u, u, T, T2, 0.0, 1, o, o, o, 0.0, 0.0, 0.0, 0.0, Z1, tau, tau_e,
-                      mv.cx, mv.cy, w, inv, mv.cx, mv.cy, w, inv, negT, neg2, 3)
+                      mv.cx, mv.cy, w, inv, mv.cx, mv.cy, w, inv, negT, neg2)
     ox, oy = mv.x, mv.y
     rhs = u + tau_e * (apply(mv, u) - (-(ox.dg) * u + _shift_x(ox, u)))
     for i in range(shape[0]):

@@ -430,3 +430,52 @@ def test_full_refuge_gives_logistic_growth():
     r, K, m = float(st.r[0, 0]), 1.0 / float(st.inv_K[0, 0]), float(st.m[0, 0])
     np.testing.assert_allclose(N, K / (1 + (K / 2.0 - 1) * np.exp(-r * 5.0)), rtol=1e-8)
     np.testing.assert_allclose(P, 10.0 * np.exp(-m * 5.0), rtol=1e-8)
+
+
+@pytest.mark.parametrize("threads", [1, 3])
+def test_results_do_not_depend_on_the_thread_count(threads, monkeypatch):
+    # design requirement (bitwise reproducible runs): rows are split into one range per
+    # thread, and every row is computed the same way whatever the split. Sides that are
+    # not multiples of the 8-row blocks, holes, a refuge map and a step large enough for
+    # the positivity clip; split over 1, 3 and the default number of ranges.
+    from preyscape.solve import kernels
+
+    rng = np.random.default_rng(5)
+    shape = (45, 38)
+    mask = rng.uniform(size=shape) > 0.1
+    D = rng.uniform(1.0, 10.0, shape)
+    refuge = rng.uniform(0.0, 0.5, shape)
+    inter = Interaction("holling-ii", attack_rate=0.01, handling_time=0.2, efficiency=0.5)
+
+    def run():
+        st = make_stepper(shape, D, 5.0, inter, dt=0.5, r=1.0, K=500.0, m=0.3, mask=mask,
+                          kind="ecological", refuge=refuge, damping_steps=0)
+        N = np.where(mask, 400.0, 0.0)
+        P = np.where(mask, 1.0, 0.0)
+        P[20, 20] = 1e3 if mask[20, 20] else 0.0
+        st.advance(N, P, 0, 6)
+        return N, P, st.stats.clipped
+
+    default = run()
+    monkeypatch.setattr(kernels.numba, "get_num_threads", lambda: threads)
+    other = run()
+    assert default[2] > 0 and np.isfinite(default[0]).all()  # the clip acted
+    assert all(np.array_equal(a, b) for a, b in zip(default, other, strict=True))
+
+
+def test_stepper_hands_the_kernels_one_array_type():
+    # design requirement (first-run time): the kernels are compiled for writable
+    # C-contiguous arrays; read-only inputs (views, broadcasts, a read-only mask) are
+    # turned into that type, and float32 fields are used without a copy
+    shape = (6, 7)
+    r = np.full(shape, 1.0, np.float32)
+    frozen = r.copy()
+    frozen.flags.writeable = False
+    mask = np.ones(shape, bool)
+    mask.flags.writeable = False
+    mv = build_movement(np.ones(shape), mask, H_M, H_M, "fickian")
+    st = Stepper(mask, mv, mv, r, frozen, np.broadcast_to(np.float32(0.3), shape),
+                 NO_REACTION, 0.1, refuge=np.broadcast_to(0.2, shape))
+    for a in (st.r, st.inv_K, st.m, st._refuge, st.mask):
+        assert a.flags.c_contiguous and a.flags.writeable and a.shape == shape
+    assert st.r is r

@@ -181,3 +181,36 @@ def test_starter_refuses_existing_file_unknown_pair_and_degree_rasters(tmp_path)
     assert not (tmp_path / "x.toml").exists()
     write_starter(src, overwrite=True)
     assert (tmp_path / "h.toml").read_text().startswith("# Starter scenario")
+
+
+# --- prey alone, lethal edges, release size -----------------------------------------------
+@pytest.mark.parametrize("kind", ("classes", "suitability"))
+def test_prey_only_starter_has_no_predator_and_releases_prey(maps, tmp_path, kind):
+    # Design requirement: --prey-only writes a valid scenario of prey alone, with prey
+    # released at capacity near the centre on empty land, and --edge sets the edge rule.
+    out = tmp_path / "p.toml"
+    write_starter(maps["fractal", kind], out, prey_only=True, edge="hostile")
+    data = tomllib.loads(out.read_text())
+    assert "predator" not in data and "interaction" not in data
+    assert all("predator_mortality" not in c for c in data["landscape"].get("classes", []))
+    assert data["landscape"]["edge"] == "hostile"
+    rel = data["start"]["releases"][0]
+    assert rel["species"] == "prey" and rel["density"] == PAIRS["vole-weasel"].capacity.value
+    assert data["start"]["prey"] == "uniform" and data["start"]["prey_density"] == 0.0
+    sc = load_scenario(out)
+    assert sc.species == ("prey",)
+
+
+def test_release_holds_about_five_animals_where_the_map_allows(tmp_path):
+    # Design requirement: the release disc holds about five animals (here lynx at 0.5 per
+    # km² need a radius of 1.8 km), capped at a quarter of the map's shorter side.
+    from preyscape.assemble import prepare
+    from preyscape.plausibility import start_totals
+
+    make_landscape(tmp_path / "big.tif", "random", seed=1, fractions=[0.6, 0.4], rows=200,
+                   cols=200, cell_size=50.0)
+    write_starter(tmp_path / "big.tif", tmp_path / "big.toml", pair="hare-lynx")
+    rel = tomllib.loads((tmp_path / "big.toml").read_text())["start"]["releases"][0]
+    assert rel["radius"] == pytest.approx(1800.0)  # 1000 sqrt(5 / (0.5 pi)) = 1784 m
+    animals = start_totals(prepare(load_scenario(tmp_path / "big.toml")))["releases"][0]
+    assert animals["animals"] == pytest.approx(0.5 * math.pi * 1.8 ** 2, rel=0.02)  # 5.1

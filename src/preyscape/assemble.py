@@ -40,12 +40,12 @@ from preyscape.model.fields import (
 )
 from preyscape.model.movement import Movement, build_movement
 from preyscape.model.reactions import Interaction
-from preyscape.scenario import LARGEST, MeasureSpec, Scenario
+from preyscape.scenario import LARGEST, MeasureSpec, PredatorSpec, Scenario
 from preyscape.solve.stepper import Stepper, StepStats, auto_step
 
-__all__ = ["Epoch", "Setup", "check_variant_measures", "epoch_state", "initial_state",
-           "interaction_of", "time_step",
-           "measure_epochs", "place_measures", "place_targets", "prepare"]
+__all__ = ["Epoch", "Setup", "check_variant_measures", "epoch_state", "extinction_of",
+           "initial_state", "interaction_of", "measure_epochs", "place_measures",
+           "place_targets", "prepare", "release_cells", "time_step"]
 
 Epoch = tuple[float, float, tuple[str, ...]]
 """``(t0, t1, names of the measures acting in [t0, t1))``, years."""
@@ -81,6 +81,9 @@ class Setup:
         The measures of this variant on the grid.
     epochs : tuple of Epoch
         Spans between measure switches, consecutive from 0 to the run length.
+    extinction : tuple of float or None
+        Prey and predator extinction thresholds, animals/km² (0: none for that
+        species; None: neither species has one).
     """
 
     scenario: Scenario
@@ -97,6 +100,7 @@ class Setup:
     dt: float
     measures: tuple[PlacedMeasure, ...] = ()
     epochs: tuple[Epoch, ...] = ()
+    extinction: tuple[float, float] | None = None
 
     @property
     def layers(self) -> tuple[PlacedMeasure, ...]:
@@ -125,7 +129,8 @@ class Setup:
         else:
             f, mv_n, mv_p, refuge = epoch_state(self, self.epochs[k][2])
         return Stepper(self.grid.mask, mv_n, mv_p, f.r, f.inv_K, f.m, self.interaction,
-                       self.dt, refuge=refuge, scheme=self.scenario.run.scheme, stats=stats)
+                       self.dt, refuge=refuge, scheme=self.scenario.run.scheme, stats=stats,
+                       extinction=self.extinction)
 
     def stepper(self, stats: StepStats | None = None) -> Stepper:
         """The :class:`Stepper` of the start of the run (epoch 0)."""
@@ -137,9 +142,35 @@ def _source(sc: Scenario, key: str) -> str:
 
 
 def interaction_of(sc: Scenario) -> Interaction:
-    """The :class:`Interaction` a scenario describes."""
+    """The :class:`Interaction` a scenario describes.
+
+    Prey alone: the form's prey growth with no predation (attack rate 0).
+    """
     i = sc.interaction
+    if not sc.has_predator:
+        return Interaction(sc.form, 0.0, 0.0, 0.0, 0.0)
     return Interaction(i.form, i.attack_rate, i.handling_time, i.efficiency, i.interference)
+
+
+# prey alone: a predator that is nowhere, does not move, and neither eats nor dies
+NO_PREDATOR = PredatorSpec.model_construct(name="", movement="fickian", diffusivity=0.0,
+                                           motility=None, mortality=0.0,
+                                           extinction_threshold=None,
+                                           extinction_threshold_per_cell=None)
+
+
+def _predator(sc: Scenario) -> PredatorSpec:
+    return sc.predator if sc.predator is not None else NO_PREDATOR
+
+
+def extinction_of(sc: Scenario, cell_area_km2: float) -> tuple[float, float] | None:
+    """Extinction thresholds of prey and predator, animals/km² (0: none); None if neither.
+
+    A threshold per cell is converted with the cell area (km²).
+    """
+    thr = tuple(spec.extinction_per_km2(cell_area_km2) or 0.0
+                for spec in (sc.prey, _predator(sc)))
+    return thr if any(thr) else None
 
 
 def _multipliers(sc: Scenario, grid: Grid, habitat: np.ndarray) -> tuple[dict, np.ndarray]:
@@ -207,16 +238,44 @@ def prepare(sc: Scenario, *, allow_large: bool = False) -> Setup:
     N0, P0 = initial_state(sc, grid, fields)
     dt = time_step(sc, setup, fields, inter, P0)
     setup = replace(setup, fields=fields, prey_movement=mv_n, predator_movement=mv_p,
-                    refuge=refuge, N0=N0, P0=P0, dt=dt)
+                    refuge=refuge, N0=N0, P0=P0, dt=dt,
+                    extinction=extinction_of(sc, grid.cell_area_km2))
     if not allow_large:
         _check_steps(setup)
     return setup
 
 
-def initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray, np.ndarray]:
-    """Initial prey and predator densities, animals/km² (float64, C order, 0 off data)."""
+def _density_raster(sc: Scenario, grid: Grid, key: str) -> np.ndarray:
+    """A start density raster (``start.<key>``) on the grid, animals/km² (0 off data)."""
     from preyscape.landscape.io import read_layer_onto
 
+    rel = getattr(sc.start, key)
+    layer = read_layer_onto(sc.resolve(rel), grid, "average",
+                            source=_source(sc, f"start.{key} ({rel})"))
+    layer = np.where(grid.mask, np.nan_to_num(layer, nan=0.0), 0.0)
+    if np.any(layer < 0):
+        r, c = np.argwhere(layer < 0)[0]
+        what = key.split("_")[0]
+        raise InputError(
+            f"negative {what} density {layer[r, c]:g} at row {r}, col {c}; densities "
+            "must be ≥ 0 animals/km²", _source(sc, f"start.{key}"),
+        )
+    return layer
+
+
+def release_cells(grid: Grid, x: float, y: float, radius: float) -> np.ndarray:
+    """Cells a release at ``(x, y)`` (map metres) of ``radius`` (metres) adds animals to.
+
+    Every data cell whose centre lies within ``radius`` of the point, and
+    always the cell that holds the point (bool, rows × cols).
+    """
+    disc = (grid.distance_to(x, y) <= radius) & grid.mask
+    disc[grid.rowcol(x, y)] = True
+    return disc
+
+
+def initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray, np.ndarray]:
+    """Initial prey and predator densities, animals/km² (float64, C order, 0 off data)."""
     st = sc.start
     mask = grid.mask
     if st.prey == "capacity":
@@ -224,19 +283,11 @@ def initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray,
     elif st.prey == "uniform":
         N0 = np.where(mask, float(st.prey_density), 0.0)
     else:
-        layer = read_layer_onto(
-            sc.resolve(st.prey_raster), grid, "average",
-            source=_source(sc, f"start.prey_raster ({st.prey_raster})"),
-        )
-        layer = np.where(mask, np.nan_to_num(layer, nan=0.0), 0.0)
-        if np.any(layer < 0):
-            r, c = np.argwhere(layer < 0)[0]
-            raise InputError(
-                f"negative prey density {layer[r, c]:g} at row {r}, col {c}; densities "
-                "must be ≥ 0 animals/km²", _source(sc, "start.prey_raster"),
-            )
-        N0 = layer
-    P0 = np.where(mask, st.predator_density, 0.0)
+        N0 = _density_raster(sc, grid, "prey_raster")
+    if st.predator == "raster":
+        P0 = _density_raster(sc, grid, "predator_raster")
+    else:
+        P0 = np.where(mask, st.predator_density, 0.0)
     for k, rel in enumerate(st.releases):
         if not grid.contains(rel.x, rel.y):
             left, bottom, right, top = grid.bounds
@@ -246,10 +297,8 @@ def initial_state(sc: Scenario, grid: Grid, fields: Fields) -> tuple[np.ndarray,
                 f"y {bottom:g}–{top:g} m in its CRS",
                 _source(sc, f"start.releases[{k}]"),
             )
-        disc = (grid.distance_to(rel.x, rel.y) <= rel.radius) & mask
-        disc[grid.rowcol(rel.x, rel.y)] = True  # at least the cell holding the point
         target = N0 if rel.species == "prey" else P0
-        target[disc] += rel.density
+        target[release_cells(grid, rel.x, rel.y, rel.radius)] += rel.density
     if st.noise > 0:
         rng = np.random.default_rng(sc.run.seed)
         N0 *= 1.0 + st.noise * rng.uniform(-1, 1, N0.shape)
@@ -404,7 +453,7 @@ def epoch_state(setup: Setup, names: tuple[str, ...]) -> tuple[
     with np.errstate(over="ignore", invalid="ignore"):  # overflow is refused just below
         fields = build_fields(
             on.multipliers, grid.mask, sc.prey.growth, sc.prey.capacity,
-            sc.predator.mortality, sc.prey.move_coefficient, sc.predator.move_coefficient,
+            _predator(sc).mortality, sc.prey.move_coefficient, _predator(sc).move_coefficient,
             setup.interaction.logistic,
         )
     ls = sc.landscape
@@ -415,7 +464,7 @@ def epoch_state(setup: Setup, names: tuple[str, ...]) -> tuple[
                            ls.nodata, perm_x=on.permeability[sp][0],
                            perm_y=on.permeability[sp][1])
             for sp, coef, spec in (("prey", fields.prey_move, sc.prey),
-                                   ("predator", fields.predator_move, sc.predator))
+                                   ("predator", fields.predator_move, _predator(sc)))
         ]
     limits.check_movement(mvs, lambda key: _source(sc, key))
     return fields, mvs[0], mvs[1], on.refuge
@@ -425,8 +474,8 @@ def _best(sc: Scenario, fields: Fields) -> dict[str, float]:
     """Best-habitat parameter values (maximum capacity over the landscape)."""
     mask = fields.K > 0
     K = float(fields.K.max()) if mask.any() else (sc.prey.capacity or math.nan)
-    return {"r": sc.prey.growth, "K": K, "m": sc.predator.mortality,
-            "D_N": sc.prey.move_coefficient, "D_P": sc.predator.move_coefficient}
+    return {"r": sc.prey.growth, "K": K, "m": _predator(sc).mortality,
+            "D_N": sc.prey.move_coefficient, "D_P": _predator(sc).move_coefficient}
 
 
 def _rates(sc: Scenario, fields: Fields, inter: Interaction,

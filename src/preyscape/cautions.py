@@ -19,7 +19,7 @@ CAUTIONS: list[str] = [
     "A model is not a field survey. These maps show what the model predicts from the "
     "habitat raster and the parameters given; they are not counts of animals. Check "
     "important conclusions against observations on the ground.",
-    "Fences and corridors affect more than the two species modelled here: other wildlife "
+    "Fences and corridors affect more than the species modelled here: other wildlife "
     "that is not in the model, people's access to the land, grazing, farming and other "
     "livelihoods. Weigh those effects before proposing any measure.",
     "Follow local regulations and defer to the responsible wildlife authority and to "

@@ -26,6 +26,7 @@ from preyscape import limits
 from preyscape.assemble import (
     Setup,
     _best,
+    _predator,
     _source,
     place_measures,
 )
@@ -48,7 +49,7 @@ def predictions(setup: Setup) -> dict:
     sc = setup.scenario
     out["growth"] = sc.prey.growth
     out["prey_movement"] = sc.prey.move_coefficient
-    out["predator_movement"] = sc.predator.move_coefficient
+    out["predator_movement"] = sc.predator.move_coefficient if sc.has_predator else None
     out["landscape"] = d["landscape"]
     return out
 
@@ -64,15 +65,16 @@ def landscape_predictions(setup: Setup) -> dict:
     from preyscape.model import landscape_theory as lt
 
     sc, g, inter = setup.scenario, setup.grid, setup.interaction
+    pr = _predator(sc)
     ls = sc.landscape
     table = ({c.code: c.model_dump() for c in ls.classes} if ls.values == "classes" else None)
     classes = lt.map_classes(setup.habitat, g.mask, g.dx, g.dy, table,
                              {c.code: c.name or str(c.code) for c in ls.classes})
     K = sc.prey.capacity if inter.logistic else None
     pred = lt.landscape_prediction(
-        inter, sc.prey.growth, K, sc.predator.mortality, sc.prey.move_coefficient,
-        sc.predator.move_coefficient, classes.multipliers, classes.cells,
-        prey_kind=sc.prey.movement, predator_kind=sc.predator.movement,
+        inter, sc.prey.growth, K, pr.mortality, sc.prey.move_coefficient,
+        pr.move_coefficient, classes.multipliers, classes.cells,
+        prey_kind=sc.prey.movement, predator_kind=pr.movement,
         patch_length_km=classes.patch_km, names=classes.names)
     rec = lt.prediction_record(pred, classes)
     smooth = lt.prey_spread_ratio(pred.growth.prey.growth, sc.prey.move_coefficient
@@ -83,9 +85,9 @@ def landscape_predictions(setup: Setup) -> dict:
     rec["constants"] = {
         "form": inter.form, "attack_rate": inter.attack_rate, "handling_time": inter.h,
         "efficiency": inter.efficiency, "interference": inter.c, "growth": sc.prey.growth,
-        "capacity": K, "mortality": sc.predator.mortality,
-        "prey_move": sc.prey.move_coefficient, "predator_move": sc.predator.move_coefficient,
-        "prey_kind": sc.prey.movement, "predator_kind": sc.predator.movement}
+        "capacity": K, "mortality": pr.mortality,
+        "prey_move": sc.prey.move_coefficient, "predator_move": pr.move_coefficient,
+        "prey_kind": sc.prey.movement, "predator_kind": pr.movement}
     rec["measures_included"] = False
     return rec
 
@@ -107,7 +109,7 @@ def derived(setup: Setup) -> dict:
     cells = g.ny * g.nx
     growth_P = (theory.predator_growth_at_capacity(inter, b["K"], b["m"])
                 if math.isfinite(b["K"]) else None)
-    return {
+    out = {
         "grid": {
             "rows": g.ny, "cols": g.nx, "cells_with_data": g.n_cells,
             "cell_size_m": (g.dx, g.dy), "extent_km": (g.width_m / 1e3, g.height_m / 1e3),
@@ -122,7 +124,8 @@ def derived(setup: Setup) -> dict:
         "stable": stab["stable"],
         "period_years": stab["period"],
         "hopf_capacity": theory.hopf_capacity(inter, b["m"]) if inter.h > 0 else None,
-        "lv_period_years": theory.lv_period(b["r"], b["m"]),
+        "lv_period_years": (theory.lv_period(b["r"], b["m"])
+                            if b["r"] > 0 and b["m"] > 0 else None),
         "prey_front_speed": theory.fisher_speed(b["r"], b["D_N"]),
         "predator_front_speed": theory.predator_speed(inter, b["K"], b["m"], b["D_P"]),
         "predator_growth_at_capacity": growth_P,
@@ -144,6 +147,14 @@ def derived(setup: Setup) -> dict:
             for v in sc.variants
         ],
     }
+    if not sc.has_predator:  # prey alone: no predator numbers to print or record
+        out.update(equilibrium=(math.nan, math.nan), stable=None, period_years=None,
+                   hopf_capacity=None, lv_period_years=None, predator_front_speed=None,
+                   predator_growth_at_capacity=None, critical_patch_predator=None,
+                   movement_per_step={"prey": out["movement_per_step"]["prey"]},
+                   best_habitat={k: b[k] for k in ("r", "K", "D_N")})
+    out["species"] = list(sc.species)
+    return out
 
 
 def fence_topology(sc: Scenario, grid: Grid, measures) -> list[dict]:
@@ -155,7 +166,7 @@ def fence_topology(sc: Scenario, grid: Grid, measures) -> list[dict]:
     from preyscape.landscape.topology import measure_topologies
 
     who = {"prey": "prey", "predator": "predators"}
-    for sp, spec in (("prey", sc.prey), ("predator", sc.predator)):
+    for sp, spec in (("prey", sc.prey), ("predator", _predator(sc))):
         who[sp] += f" ({spec.name})" if spec.name else ""
     return measure_topologies(grid, measures, who)
 

@@ -42,9 +42,9 @@ from preyscape import __version__, store
 from preyscape.assemble import Setup, check_variant_measures, place_targets, prepare
 from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
-from preyscape.landscape.placed import Outline
 from preyscape.names import slug
 from preyscape.preview import fence_topology, predictions
+from preyscape.run_maps import draw_run_maps, draw_shared
 from preyscape.scenario import Scenario, load_scenario
 from preyscape.solve.run import NonFiniteDensities, schedule
 from preyscape.solve.stepper import Stepper, StepStats
@@ -111,6 +111,7 @@ class _FolderSink:
     def checkpoint(self, step, N, P):
         store.save_checkpoint(self.folder / "checkpoint.npz", step, N, P,
                               {"dt": self.dt, "clipped": self.stats.clipped,
+                               "floored": self.stats.floored,
                                "years": step * self.dt, "elapsed_s": self.clock()})
 
 
@@ -169,7 +170,10 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
         "snapshots": n_snapshots,
         "grid": {"rows": grid.ny, "cols": grid.nx, "cell_size_m": [grid.dx, grid.dy],
                  "cells_with_data": grid.n_cells},
-        "species": {"prey": sc.prey.name, "predator": sc.predator.name},
+        "species": {"prey": sc.prey.name,
+                    "predator": sc.predator.name if sc.has_predator else None},
+        "species_present": list(sc.species),
+        "extinction": _extinction_record(sc, grid),
         "measures": measures,
         "fence_topology": topology or [],
         "targets": targets,
@@ -183,6 +187,7 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
                     if sc.landscape.values == "classes" else None),
         "class_colours": _class_colours(sc),
         "positivity_clip_total": stats.clipped,
+        "extinction_removed_animals": stats.floored * grid.cell_area_km2,
         "wall_time_s": round(wall, 3),
         "compile_or_cache_load_s": round(compiled, 3),
         "finished": store.now_iso(),
@@ -190,9 +195,12 @@ def _record(sc: Scenario, grid: Grid, dt: float, epochs, stats: StepStats, n_sna
 
 
 def _resumable(folder: Path) -> bool:
-    """Whether a temporary run folder can be continued (checkpoint, no run record yet)."""
-    return ((folder / "checkpoint.npz").is_file() and (folder / PARTIAL_RECORD).is_file()
-            and not (folder / "run.json").exists())
+    """Whether a temporary run folder can be continued (a checkpoint, not yet complete).
+
+    A run stopped while its maps are drawn already has ``run.json`` (the maps
+    are drawn from it); it is continued from its last checkpoint like any other.
+    """
+    return (folder / "checkpoint.npz").is_file() and (folder / PARTIAL_RECORD).is_file()
 
 
 def interrupted_run(out: str | Path) -> Path | None:
@@ -248,6 +256,19 @@ def _partial_to_continue(sc: Scenario, out: Path, *, overwrite: bool,
 def _inputs(sc: Scenario) -> list[Path]:
     """The scenario file and the files it names (never deleted by --overwrite)."""
     return [sc.path] + [sc.resolve(rel) for _, rel in sc.input_files()]
+
+
+def _extinction_record(sc: Scenario, grid: Grid) -> dict:
+    """Each species' extinction threshold as given and in animals/km² (None: none)."""
+    out = {}
+    for sp in sc.species:
+        spec = getattr(sc, sp)
+        per_km2 = spec.extinction_per_km2(grid.cell_area_km2)
+        out[sp] = None if per_km2 is None else {
+            "per_km2": per_km2, "per_cell": per_km2 * grid.cell_area_km2,
+            "given_as": "per cell" if spec.extinction_threshold_per_cell is not None
+            else "per km²"}
+    return out
 
 
 def simulate(scenario: Scenario | str | Path, out: str | Path, *, overwrite: bool = False,
@@ -378,7 +399,8 @@ def _start_state(tmp: Path, setup: Setup) -> tuple:
                           f"({err}), so it was discarded; run the scenario again to start "
                           "from the beginning", str(tmp.parent / tmp.name.split(".partial-")[0][1:])
                           ) from None
-    stats = StepStats(steps=step, clipped=float(extra.get("clipped", 0.0)))
+    stats = StepStats(steps=step, clipped=float(extra.get("clipped", 0.0)),
+                      floored=float(extra.get("floored", 0.0)))
     return writer, N, P, stats, step, float(extra.get("elapsed_s", 0.0))
 
 
@@ -396,6 +418,8 @@ def _run_into(tmp: Path, setup: Setup, *, progress, maps: bool) -> None:
     measures = store.write_measures(tmp / "measures", grid, setup.measures)
     targets = _write_targets(tmp, sc, grid)
     dt, epochs = setup.dt, setup.epochs
+    start = {sp: float(np.sum(u)) * grid.cell_area_km2  # animals at t = 0, even on resume
+             for sp, u in (("prey", setup.N0), ("predator", setup.P0))}
     setup = setup.without_build_arrays()  # memory: one copy of each field during the run
     sink = _FolderSink(writer, tmp, dt, stats, lambda: before + time.perf_counter() - t0)
     _integrate(tmp, setup, N, P, sink, progress, step)
@@ -407,9 +431,11 @@ def _run_into(tmp: Path, setup: Setup, *, progress, maps: bool) -> None:
     store.write_summaries(tmp / "summary", grid, means, finals, names=names,
                           tags={"source_run": sc.variant, "scenario": sc.title or "",
                                 "software": f"preyscape {__version__}"})
+    ends = {sp: float(np.nansum(finals[sp])) * grid.cell_area_km2 for sp in sc.species}
     del means, finals, habitat
     record = _record(sc, grid, dt, epochs, stats, writer.n, measures, targets, preds,
                      sink.clock(), compiled, topology)
+    record["totals_animals"] = {sp: {"start": start[sp], "end": ends[sp]} for sp in sc.species}
     record["resumed_from_step"] = step or None
     store.write_json(tmp / "run.json", record)
     if maps:  # read back from the folder, like any run's maps (the map standard)
@@ -426,98 +452,6 @@ def _class_colours(sc: Scenario) -> dict[str, str] | None:
     cols = habitat_colours({c.code: c.name for c in sc.landscape.classes},
                            {c.code: c.colour for c in sc.landscape.classes})
     return {str(k): v for k, v in cols.items()}
-
-
-def draw_run_maps(folder: str | Path, *, vmax: dict[str, float] | None = None,
-                  shared_with: tuple[str, ...] = ()) -> list[Path]:
-    """Draw the standard maps of a finished run into ``folder/maps``.
-
-    Habitat with the measures, time-mean and final density of each species,
-    landscape totals, and snapshot panels; densities in animals/km². Every
-    map follows the map standard of :mod:`preyscape.plots` (measures, scale
-    bar, north arrow, CRS caption, the run's name in the title). The
-    snapshot panels of a species use a log scale from the presence threshold
-    when its densities present span more than two orders of magnitude
-    (:func:`preyscape.plots.choose_scale`).
-
-    Parameters
-    ----------
-    folder : path
-        A run folder with ``run.json`` and ``results.nc``.
-    vmax : dict, optional
-        Top of the colour scale of each species' density maps, animals/km²
-        (default: the largest value of this run). Pass the same values to the
-        runs meant to be compared.
-    shared_with : tuple of str
-        The runs whose maps share ``vmax``, named in the captions.
-    """
-    from preyscape import plots
-    from preyscape.analysis.results import open_run
-
-    run = open_run(folder)
-    try:
-        return _draw(run, Path(folder) / "maps", vmax or {}, shared_with, plots)
-    finally:
-        run.close()
-
-
-def _draw(run, maps: Path, vmax: dict, shared_with: tuple, plots) -> list[Path]:
-    names, grid = run.species_names, run.grid
-    last = len(run.times) - 1
-    tops = vmax or {sp: _top(run, sp) for sp in ("prey", "predator")}
-    note = ("One colour scale per species for its time-mean, final and snapshot maps"
-            + (f", shared by the runs {', '.join(shared_with)}." if shared_with else
-               " of this run."))
-    out = []
-    layers = run.map_layers()
-    targets = [Outline(name, "target", (), cells, None) for name, cells in run.targets()]
-    with plots.map_context(**layers):
-        out.append(plots.habitat_map(grid, run.habitat, run.classes,
-                                     "Habitat, measures and target patches",
-                                     maps / "habitat.png", colours=run.class_colours,
-                                     outlines=[*layers["outlines"], *targets]))
-    with plots.map_context(**layers, note=note):
-        for sp in ("prey", "predator"):
-            label = f"{sp} ({names[sp]})" if names[sp] != sp else sp
-            out.append(plots.density_map(grid, run.time_mean(sp), f"Time-mean {label} density",
-                                         maps / f"{sp}_mean.png", cmap=plots.SPECIES_CMAP[sp],
-                                         vmax=tops[sp]))
-            out.append(plots.density_map(
-                grid, run.frame(sp, last), f"Final {label} density, t = {run.times[-1]:g} yr",
-                maps / f"{sp}_final.png", cmap=plots.SPECIES_CMAP[sp], vmax=tops[sp]))
-        out.append(plots.totals_plot(run.times, run.totals("prey"), run.totals("predator"),
-                                     names, maps / "totals.png"))
-        pick = np.unique(np.linspace(0, last, 5).round().astype(int))
-        floor = run.settings().presence  # a log scale shows an invading front (issue 15)
-        for sp in ("prey", "predator"):
-            out.append(plots.snapshot_panels(grid, run.times[pick],
-                                             [run.frame(sp, int(k)) for k in pick], sp,
-                                             names[sp], maps / f"{sp}_snapshots.png",
-                                             vmax=tops[sp], note=note, scale="auto",
-                                             floor=floor))
-    return out
-
-
-def _top(run, species: str) -> float:
-    """The largest density of a run's time mean, last snapshot and snapshot panels."""
-    last = len(run.times) - 1
-    pick = np.unique(np.linspace(0, last, 5).round().astype(int))
-    tops = [float(np.nanmax(run.time_mean(species), initial=0.0))]
-    tops += [float(np.nanmax(run.frame(species, int(k)), initial=0.0)) for k in pick]
-    return max(tops) or 1.0
-
-
-def _draw_shared(folders: dict[str, Path]) -> None:
-    """Redraw the maps of runs meant to be compared on one colour scale per species."""
-    from preyscape.analysis.results import open_run
-
-    tops = {"prey": 0.0, "predator": 0.0}
-    for f in folders.values():
-        with open_run(f) as run:
-            for sp in tops:
-                tops[sp] = max(tops[sp], _top(run, sp))
-    for f in folders.values():
-        draw_run_maps(f, vmax=tops, shared_with=tuple(folders))
 
 
 def _finished_digest(folder: Path) -> str | None:
@@ -640,5 +574,5 @@ def simulate_variants(scenario: Scenario | str | Path, out: str | Path,
                 exc.resumable or bool(done),
             ) from None
     if maps and len(plan) > 1:
-        _draw_shared(done)
+        draw_shared(done)
     return done

@@ -129,6 +129,26 @@ class _Species(_Strict):
     movement: MovementKind = "fickian"
     diffusivity: NonNegative | None = None
     motility: NonNegative | None = None
+    # densities below the threshold are set to zero after every step (docs/scenario.md)
+    extinction_threshold: Positive | None = None  # animals per km²
+    extinction_threshold_per_cell: Positive | None = None  # animals per cell
+
+    @model_validator(mode="after")
+    def _extinction(self) -> _Species:
+        if self.extinction_threshold is not None and (
+                self.extinction_threshold_per_cell is not None):
+            raise ValueError("give one of 'extinction_threshold' (animals per km²) and "
+                             "'extinction_threshold_per_cell' (animals per cell), not both")
+        return self
+
+    def extinction_per_km2(self, cell_area_km2: float) -> float | None:
+        """The extinction threshold in animals/km² (None: no threshold).
+
+        A threshold of x animals per cell is x / ``cell_area_km2`` animals per km².
+        """
+        if self.extinction_threshold_per_cell is not None:
+            return self.extinction_threshold_per_cell / cell_area_km2
+        return self.extinction_threshold
 
     @model_validator(mode="after")
     def _movement(self) -> _Species:
@@ -152,9 +172,13 @@ class _Species(_Strict):
 
 
 class PreySpec(_Species):
-    """``[prey]``: growth rate (1/yr), capacity (animals/km²) and movement."""
+    """``[prey]``: growth rate (1/yr), capacity (animals/km²) and movement.
 
-    growth: Positive
+    ``growth = 0`` is allowed: prey neither grow nor decline by themselves
+    (they move and are eaten).
+    """
+
+    growth: NonNegative
     capacity: Positive | None = None
 
 
@@ -204,7 +228,9 @@ class StartSpec(_Strict):
     prey: Literal["capacity", "uniform", "raster"] = "capacity"
     prey_density: NonNegative | None = None
     prey_raster: str | None = None
+    predator: Literal["uniform", "raster"] = "uniform"
     predator_density: NonNegative = 0.0
+    predator_raster: str | None = None
     releases: tuple[Release, ...] = ()
     noise: Annotated[float, Field(ge=0, lt=1, strict=True)] = 0.0
 
@@ -214,6 +240,20 @@ class StartSpec(_Strict):
             raise ValueError("prey = 'uniform' needs prey_density (animals/km²)")
         if self.prey == "raster" and not self.prey_raster:
             raise ValueError("prey = 'raster' needs prey_raster (path to a density raster)")
+        return self
+
+    @model_validator(mode="after")
+    def _predator(self) -> StartSpec:
+        if self.predator == "raster" and not self.predator_raster:
+            raise ValueError("predator = 'raster' needs predator_raster (path to a density "
+                             "raster, animals/km²)")
+        if self.predator == "raster" and self.predator_density:
+            raise ValueError("predator_density applies to predator = 'uniform'; with "
+                             "predator = 'raster' the raster gives every cell's density "
+                             "(releases still add to it)")
+        if self.predator_raster and self.predator != "raster":
+            raise ValueError("predator_raster needs predator = 'raster' (the default, "
+                             "'uniform', starts predators at predator_density)")
         return self
 
 
@@ -540,8 +580,9 @@ class Scenario(_Strict):
     notes: str = ""
     landscape: LandscapeSpec
     prey: PreySpec
-    predator: PredatorSpec
-    interaction: InteractionSpec
+    # None: prey alone (no [predator] section; [interaction] is then optional)
+    predator: PredatorSpec | None = None
+    interaction: InteractionSpec | None = None
     start: StartSpec = StartSpec()
     run: RunSpec
     measures: tuple[MeasureSpec, ...] = ()
@@ -552,12 +593,60 @@ class Scenario(_Strict):
     path: Path = Field(default=Path("scenario.toml"), exclude=True)
     raw: dict = Field(default_factory=dict, exclude=True, repr=False)
 
+    @property
+    def has_predator(self) -> bool:
+        """Whether the scenario has a predator (a ``[predator]`` section)."""
+        return self.predator is not None
+
+    @property
+    def species(self) -> tuple[str, ...]:
+        """The species modelled: ``("prey", "predator")`` or ``("prey",)``."""
+        return ("prey", "predator") if self.has_predator else ("prey",)
+
+    @property
+    def form(self) -> str:
+        """The interaction form; prey alone without ``[interaction]`` grow logistically."""
+        return self.interaction.form if self.interaction is not None else "logistic-prey"
+
     @model_validator(mode="after")
     def _capacity(self) -> Scenario:
-        logistic = self.interaction.form != "lotka-volterra"
+        logistic = self.form != "lotka-volterra"
         if self.prey.capacity is None and (logistic or self.start.prey == "capacity"):
-            why = f"form '{self.interaction.form}'" if logistic else "start.prey = 'capacity'"
+            why = (f"form '{self.form}'" if self.interaction is not None else
+                   "logistic prey growth (a scenario without [interaction])") if logistic \
+                else "start.prey = 'capacity'"
             raise ValueError(f"prey.capacity (animals/km² at best habitat) is needed by {why}")
+        return self
+
+    @model_validator(mode="after")
+    def _one_species(self) -> Scenario:
+        if self.predator is not None:
+            if self.interaction is None:
+                raise ValueError("interaction: missing required section: a scenario with a "
+                                 "[predator] needs [interaction] (form, attack_rate, "
+                                 "efficiency); leave out [predator] too to model prey alone")
+            return self
+        # prey alone: nothing may add or describe predators
+        st = self.start
+        if st.predator_density:
+            raise ValueError("start.predator_density: the scenario has no [predator] section, "
+                             "so there are no predators to start; remove the key or add "
+                             "[predator]")
+        if st.predator == "raster":
+            raise ValueError("start.predator: the scenario has no [predator] section, so "
+                             "there are no predators to start from a raster; add [predator]")
+        for k, rel in enumerate(st.releases):
+            if rel.species == "predator":
+                raise ValueError(f"start.releases[{k}]: releases predators (species defaults "
+                                 "to 'predator'), but the scenario has no [predator] section; "
+                                 "set species = 'prey' or add [predator]")
+        if self.analysis.predator_threshold is not None:
+            raise ValueError("analysis.predator_threshold: the scenario has no [predator] "
+                             "section; remove the key")
+        if self.analysis.goal in ("fewer-predators", "more-predators"):
+            raise ValueError(f"analysis.goal: '{self.analysis.goal}' ranks alternatives by "
+                             "their predators, but the scenario has no [predator] section; "
+                             "give 'fewer-prey' or 'more-prey', or remove the key")
         return self
 
     @model_validator(mode="after")
@@ -589,9 +678,10 @@ class Scenario(_Strict):
                 raise ValueError(f"measures[{k}].suitability applies to a suitability landscape; "
                                  "with a class raster set multipliers such as prey_capacity")
             if m.kind == "corridor" and self.landscape.values == "suitability" and (
-                    set(m.sets()) - {"suitability", "prey_movement", "predator_movement"}):
-                raise ValueError(f"measures[{k}]: on a suitability landscape a corridor sets "
-                                 "suitability, prey_movement or predator_movement")
+                    "prey_capacity" in m.sets()):
+                raise ValueError(f"measures[{k}].prey_capacity: on a suitability landscape "
+                                 "the suitability is the capacity multiplier; set "
+                                 "'suitability' instead")
         for k, v in enumerate(self.variants):
             for key in ("add", "remove"):
                 for name in getattr(v, key):
@@ -749,6 +839,8 @@ class Scenario(_Strict):
         out = [self.landscape.habitat]
         if self.start.prey == "raster" and self.start.prey_raster:
             out.append(self.start.prey_raster)
+        if self.start.predator == "raster" and self.start.predator_raster:
+            out.append(self.start.predator_raster)
         for m in self.active_measures():
             out.append(m.geometry or m.raster)
         return out
@@ -758,6 +850,8 @@ class Scenario(_Strict):
         out = [("landscape.habitat", self.landscape.habitat)]
         if self.start.prey == "raster" and self.start.prey_raster:
             out.append(("start.prey_raster", self.start.prey_raster))
+        if self.start.predator == "raster" and self.start.predator_raster:
+            out.append(("start.predator_raster", self.start.predator_raster))
         for k, m in enumerate(self.measures):
             key = "geometry" if m.geometry else "raster"
             out.append((f"measures[{k}].{key}", m.geometry or m.raster))

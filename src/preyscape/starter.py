@@ -19,6 +19,7 @@ handling times years per prey.
 from __future__ import annotations
 
 import json
+import math
 import os
 import textwrap
 from dataclasses import dataclass
@@ -216,8 +217,13 @@ def class_table(raster) -> list[dict]:
              "prey_capacity": raster.quality.get(c, 1.0)} for c, n in counts.items()]
 
 
-def _release_cell(raster, table: list[dict] | None) -> tuple[float, float, float]:
-    """Release centre (x, y, metres) and radius (metres) near the map centre on good habitat."""
+def _release_cell(raster, table: list[dict] | None,
+                  density: float = math.inf) -> tuple[float, float, float]:
+    """Release centre (x, y, metres) and radius (metres) near the map centre on good habitat.
+
+    The radius is at least 3 cells and 3 % of the map's shorter side, and large enough for
+    about 5 animals at ``density`` (animals/km²), but at most a quarter of the shorter side.
+    """
     grid = raster.grid
     if raster.kind == "classes":
         best = max(table, key=lambda r: (r["prey_capacity"], r["cells"]))["code"]
@@ -229,8 +235,9 @@ def _release_cell(raster, table: list[dict] | None) -> tuple[float, float, float
     cy = (grid.bounds[1] + grid.bounds[3]) / 2.0
     d = np.where(good, grid.distance_to(cx, cy), np.inf)
     r, c = np.unravel_index(np.argmin(d), d.shape)
-    radius = max(3.0 * max(grid.dx, grid.dy),
-                 0.03 * min(grid.width_m, grid.height_m))
+    short = min(grid.width_m, grid.height_m)
+    five = 1000.0 * math.sqrt(5.0 / (math.pi * density))  # m: 5 animals in the disc
+    radius = max(3.0 * max(grid.dx, grid.dy), 0.03 * short, min(five, 0.25 * short))
     radius = float(f"{radius:.2g}")
     return float(grid.x[c]), float(grid.y[r]), radius
 
@@ -260,13 +267,14 @@ def _g(x: float) -> str:
     return f"{x:.3g}"
 
 
-def starter_text(raster, habitat_rel: str, pair: Pair, source_name: str) -> str:
+def starter_text(raster, habitat_rel: str, pair: Pair, source_name: str, *,
+                 prey_only: bool = False, edge: str = "closed") -> str:
     """The starter scenario as TOML text (see :func:`write_starter`)."""
     grid = raster.grid
     table = class_table(raster) if raster.kind == "classes" else None
-    x, y, radius = _release_cell(raster, table)
+    x, y, radius = _release_cell(raster, table,
+                                 pair.capacity.value if prey_only else pair.release_density)
     n_snap = round(pair.years / pair.save_every)
-    left, bottom, right, top = grid.bounds
     lines = [
         f"# Starter scenario for {source_name}: {pair.title}.",
         "#",
@@ -287,12 +295,15 @@ def starter_text(raster, habitat_rel: str, pair: Pair, source_name: str) -> str:
         *[line for src in pair.sources
           for line in textwrap.wrap(src, 88, initial_indent="# - ", subsequent_indent="#   ")],
         "",
-        f"title = {_str(f'{Path(source_name).stem}: {pair.prey} and {pair.predator}')}",
+        f"title = {_str(f'{Path(source_name).stem}: {pair.prey} and {pair.predator}')}"
+        if not prey_only else f"title = {_str(f'{Path(source_name).stem}: {pair.prey} alone')}",
         "",
         "[landscape]",
         f"habitat = {_str(habitat_rel)}",
         f"values = {_str(raster.kind)}",
-        'edge = "closed"             # nothing crosses the map edge ("hostile": lethal edge)',
+        'edge = "closed"             # nothing crosses the map edge ("hostile": lethal edge)'
+        if edge == "closed" else
+        'edge = "hostile"            # lethal surroundings: density zero beyond the map edge',
         'nodata = "closed"           # nor the faces to no-data cells',
         "",
     ]
@@ -315,8 +326,7 @@ def starter_text(raster, habitat_rel: str, pair: Pair, source_name: str) -> str:
                 f"prey_capacity = {_num(row['prey_capacity'])}",
                 "prey_growth = 1.0",
                 "prey_movement = 1.0",
-                "predator_mortality = 1.0",
-                "predator_movement = 1.0",
+                *(() if prey_only else ("predator_mortality = 1.0", "predator_movement = 1.0")),
             ]
     else:
         s = raster.values[grid.mask]
@@ -335,31 +345,8 @@ def starter_text(raster, habitat_rel: str, pair: Pair, source_name: str) -> str:
         _row("capacity", pair.capacity, "animals per km² in the best habitat"),
         'movement = "fickian"',
         _row("diffusivity", pair.prey_diffusivity, "km² per year"),
-        "",
-        "[predator]",
-        f"name = {_str(pair.predator)}",
-        _row("mortality", pair.mortality, "per year"),
-        'movement = "fickian"',
-        _row("diffusivity", pair.predator_diffusivity, "km² per year"),
-        "",
-        "[interaction]",
-        'form = "holling-ii"         # logistic prey, saturating functional response',
-        _row("attack_rate", pair.attack_rate, "km² per predator per year"),
-        _row("handling_time", pair.handling_time, "years per prey"),
-        _row("efficiency", pair.efficiency, "predators per prey eaten"),
-        "",
-        "[start]",
-        'prey = "capacity"           # prey start at capacity in every cell',
-        "noise = 0.05                # +-5 % variation, drawn with run.seed",
-        "",
-        "[[start.releases]]          # predators arrive near the centre of the map",
-        f"x = {_num(x)}{' ' * max(1, 24 - len(_num(x)))}# m, in the raster's CRS; the map "
-        f"spans x {left:.0f} to {right:.0f} m",
-        f"y = {_num(y)}{' ' * max(1, 24 - len(_num(y)))}# m; y {bottom:.0f} to {top:.0f} m",
-        f"radius = {_num(radius)}{' ' * max(1, 19 - len(_num(radius)))}# m",
-        f"density = {_num(pair.release_density)}"
-        f"{' ' * max(1, 18 - len(_num(pair.release_density)))}# predators ({pair.predator}) "
-        "per km² in the disc",
+        *(_prey_alone(pair, x, y, radius, grid) if prey_only else _with_predator(
+            pair, x, y, radius, grid)),
         "",
         "[run]",
         f"years = {_num(pair.years)}",
@@ -381,6 +368,64 @@ def starter_text(raster, habitat_rel: str, pair: Pair, source_name: str) -> str:
     return "\n".join(lines)
 
 
+def _release_lines(x: float, y: float, radius: float, grid) -> list[str]:
+    left, bottom, right, top = grid.bounds
+    return [
+        f"x = {_num(x)}{' ' * max(1, 24 - len(_num(x)))}# m, in the raster's CRS; the map "
+        f"spans x {left:.0f} to {right:.0f} m",
+        f"y = {_num(y)}{' ' * max(1, 24 - len(_num(y)))}# m; y {bottom:.0f} to {top:.0f} m",
+        f"radius = {_num(radius)}{' ' * max(1, 19 - len(_num(radius)))}# m",
+    ]
+
+
+def _prey_alone(pair: Pair, x: float, y: float, radius: float, grid) -> list[str]:
+    """``[start]`` of a scenario of prey alone: empty land, prey released near the centre."""
+    return [
+        "",
+        "# No [predator] section: prey alone (no [interaction] needed: prey grow",
+        "# logistically, r N (1 - N/K)).",
+        "",
+        "[start]",
+        'prey = "uniform"            # empty land ...',
+        "prey_density = 0.0",
+        "",
+        "[[start.releases]]          # ... and prey released near the centre of the map",
+        'species = "prey"',
+        *_release_lines(x, y, radius, grid),
+        f"density = {_num(pair.capacity.value)}"
+        f"{' ' * max(1, 18 - len(_num(pair.capacity.value)))}# prey ({pair.prey}) per km² in the "
+        "disc: the capacity",
+    ]
+
+
+def _with_predator(pair: Pair, x: float, y: float, radius: float, grid) -> list[str]:
+    """``[predator]``, ``[interaction]`` and ``[start]`` of a predator–prey starter."""
+    return [
+        "",
+        "[predator]",
+        f"name = {_str(pair.predator)}",
+        _row("mortality", pair.mortality, "per year"),
+        'movement = "fickian"',
+        _row("diffusivity", pair.predator_diffusivity, "km² per year"),
+        "",
+        "[interaction]",
+        'form = "holling-ii"         # logistic prey, saturating functional response',
+        _row("attack_rate", pair.attack_rate, "km² per predator per year"),
+        _row("handling_time", pair.handling_time, "years per prey"),
+        _row("efficiency", pair.efficiency, "predators per prey eaten"),
+        "",
+        "[start]",
+        'prey = "capacity"           # prey start at capacity in every cell',
+        "noise = 0.05                # +-5 % variation, drawn with run.seed",
+        "",
+        "[[start.releases]]          # predators arrive near the centre of the map",
+        *_release_lines(x, y, radius, grid),
+        f"density = {_num(pair.release_density)}"
+        f"{' ' * max(1, 18 - len(_num(pair.release_density)))}# predators ({pair.predator}) "
+        "per km² in the disc",
+    ]
+
+
 def _habitat_path(raster: Path, scenario: Path) -> str:
     """The raster's path as the scenario names it: relative to the scenario's folder when
     that is short (at most two levels up), else absolute."""
@@ -398,6 +443,8 @@ def write_starter(
     *,
     pair: str = "vole-weasel",
     values: str | None = None,
+    prey_only: bool = False,
+    edge: str = "closed",
     overwrite: bool = False,
 ) -> dict:
     """Write a starter scenario for a habitat raster.
@@ -413,6 +460,11 @@ def write_starter(
         A key of :data:`PAIRS`.
     values : {"classes", "suitability"}, optional
         What the raster holds. Default: guessed.
+    prey_only : bool
+        Prey alone: no ``[predator]`` or ``[interaction]``; prey start on empty
+        land from a release (at capacity) near the centre.
+    edge : {"closed", "hostile"}
+        ``landscape.edge``: what lies beyond the map edge.
     overwrite : bool
         Replace an existing scenario file.
 
@@ -442,7 +494,7 @@ def write_starter(
     raster = files.read_raster(raster_path, values)  # type: ignore[arg-type]
     try:
         text = starter_text(raster, _habitat_path(raster_path, out), PAIRS[pair],
-                            raster_path.name)
+                            raster_path.name, prey_only=prey_only, edge=edge)
     except InputError as exc:
         raise InputError(exc.message, exc.source or str(raster_path)) from None
     parse_scenario(tomllib.loads(text), out.resolve(), check_files=False)

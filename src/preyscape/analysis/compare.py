@@ -31,6 +31,12 @@ baseline and the variant ``fenced``):
 ['fenced']
 >>> result.maps["predator_level_change"].dims
 ('alternative', 'y', 'x')
+>>> result.species
+('prey', 'predator')
+
+Runs of prey alone (``run.json`` ``species_present: ["prey"]``) are compared
+on the prey only: the comparison's :attr:`Comparison.species` is the species
+every run models, and nothing about predators is computed or written.
 """
 
 from __future__ import annotations
@@ -43,12 +49,12 @@ from typing import Any
 import numpy as np
 
 from preyscape.analysis.results import RunResults, open_run
-from preyscape.analysis.settings import DEFAULTS, AnalysisSettings
+from preyscape.analysis.settings import DEFAULTS, AnalysisSettings, check_goal
 from preyscape.errors import InputError
 from preyscape.store import SPECIES, data_mask, frames, grid_of
 
 __all__ = ["CHANGE_THRESHOLD", "PRESENCE", "Comparison", "Zoning", "check_same_grid",
-           "compare", "load_zones", "run_labels", "zone_table"]
+           "compare", "load_zones", "run_labels", "shared_species", "zone_table"]
 
 PRESENCE = DEFAULTS["presence"]
 """Default presence threshold, animals/km² (:data:`~preyscape.analysis.settings.DEFAULTS`)."""
@@ -268,7 +274,7 @@ class Comparison:
         The years and common snapshot times compared
         (:class:`preyscape.analysis.change.Window`).
     maps : xarray.Dataset
-        Per species ``sp``: ``{sp}_mean_base`` (y, x) and, over (alternative,
+        Per species ``sp`` of :attr:`species`: ``{sp}_mean_base`` (y, x) and, over (alternative,
         y, x), ``{sp}_mean`` (window means, animals/km²), ``{sp}_difference``
         (alternative − base), ``{sp}_margin`` (what a difference must exceed),
         ``{sp}_ratio`` (difference / margin), ``{sp}_level_change`` (int8,
@@ -291,6 +297,10 @@ class Comparison:
         be walked round, a window shorter than a cycle.
     settings : AnalysisSettings
         The settings used.
+    species : tuple of str
+        The species every run models, in :data:`preyscape.store.SPECIES`
+        order (:func:`shared_species`): ``("prey",)`` when a run models prey
+        alone. Maps, tables and columns exist for these species only.
     """
 
     base: str
@@ -303,6 +313,12 @@ class Comparison:
     fences: Any
     warnings: tuple[str, ...] = ()
     settings: AnalysisSettings = field(default_factory=AnalysisSettings)
+    species: tuple[str, ...] = SPECIES
+
+
+def shared_species(runs: Sequence[RunResults]) -> tuple[str, ...]:
+    """The species every run models (:attr:`RunResults.species`), in ``SPECIES`` order."""
+    return tuple(sp for sp in SPECIES if all(sp in r.species for r in runs))
 
 
 def run_labels(runs: Sequence[RunResults]) -> list[str]:
@@ -351,7 +367,9 @@ def compare(base, alternatives, *, settings: AnalysisSettings | None = None,
     ------
     InputError
         If a run lies on another grid (naming both runs), the runs share no
-        snapshot in the window, or the zone file is unusable.
+        snapshot in the window, the zone file is unusable, or the goal ranks
+        by predators and a run models prey alone
+        (:func:`preyscape.analysis.settings.check_goal`).
     FileProblem
         If a folder is not a finished run.
     """
@@ -369,21 +387,27 @@ def compare(base, alternatives, *, settings: AnalysisSettings | None = None,
         check_same_grid(runs[0].ds, r.ds, (f"'{labels[0]}' ({runs[0].path})",
                                            f"'{lab}' ({r.path})"))
     settings = settings or runs[0].settings()
+    species = shared_species(runs)
+    check_goal(settings.goal, species)
     try:
         window = window_of([r.times for r in runs], settings.years)
     except ValueError as err:
         raise InputError(str(err), "years") from None
     zonings = _zonings(runs, labels, zones, zone_field)
     per_run = [_statistics(r, window.indices[k], window.upto_indices[k], window.upto,
-                           settings, zonings, runs[0].targets()) for k, r in enumerate(runs)]
-    maps = ranking.change_maps(runs[0].grid, per_run, labels, settings, window)
-    fences = ranking.fence_table(runs[1:], labels[1:])
-    tables = ranking.zone_tables(zonings, per_run, labels, runs[0].grid, settings.presence)
+                           settings, zonings, runs[0].targets(), species)
+               for k, r in enumerate(runs)]
+    maps = ranking.change_maps(runs[0].grid, per_run, labels, settings, window,
+                               species=species)
+    fences = ranking.fence_table(runs[1:], labels[1:], species=species)
+    tables = ranking.zone_tables(zonings, per_run, labels, runs[0].grid, settings.presence,
+                                 species=species)
     warn = (ranking.time_warnings(runs, labels, window, settings.years)
             + ranking.fence_warnings(fences))
-    table = ranking.ranking_table(runs, labels, per_run, maps, window, fences, settings)
+    table = ranking.ranking_table(runs, labels, per_run, maps, window, fences, settings,
+                                  species=species)
     return Comparison(labels[0], tuple(labels[1:]), window, maps, table, tables["zones"],
-                      tables["sides"], fences, tuple(warn), settings)
+                      tables["sides"], fences, tuple(warn), settings, species)
 
 
 def _zonings(runs: Sequence[RunResults], labels: list[str], zones: Path | None,
@@ -423,15 +447,16 @@ class RunSpecies:
 
 
 def _statistics(run: RunResults, indices, upto_indices, upto_times, settings: AnalysisSettings,
-                zonings: list[Zoning], targets) -> dict[str, RunSpecies]:
-    """Window statistics, arrival-time map and target colonisation of each species."""
+                zonings: list[Zoning], targets, species: Sequence[str] = SPECIES,
+                ) -> dict[str, RunSpecies]:
+    """Window statistics, arrival-time map and target colonisation of each species compared."""
     from preyscape.analysis.change import first_crossing, window_statistics
     from preyscape.analysis.settings import COLONISED_SHARE
     from preyscape.analysis.waves import arrival_time
 
     mask = run.mask
     out = {}
-    for sp in SPECIES:
+    for sp in species:
         stats = window_statistics(lambda sp=sp: (u for _, u in run.frames(sp, indices)),
                                   presence=settings.presence, mask=mask,
                                   zones=[z.labels for z in zonings])

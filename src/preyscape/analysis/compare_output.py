@@ -18,7 +18,10 @@ into one folder::
 
 Every run is named by its variant. The maps of one quantity share one colour
 scale across the alternatives, and each map draws the measures of the
-alternative it shows.
+alternative it shows. Only the species every run models get maps, columns and
+rows (:attr:`~preyscape.analysis.compare.Comparison.species`): runs of prey
+alone write no predator file and no predator column, and the summary says once
+that the scenario has no predator.
 
 Examples
 --------
@@ -98,11 +101,14 @@ class ComparisonOutput(Written):
         The reference run's name.
     alternatives : tuple of str
         The alternatives' names.
+    species : tuple of str
+        The species compared (``("prey",)`` for runs of prey alone).
     """
 
     record: dict = field(default_factory=dict)
     base: str = ""
     alternatives: tuple[str, ...] = ()
+    species: tuple[str, ...] = SPECIES
 
     @property
     def ranking(self) -> list[dict]:
@@ -193,15 +199,16 @@ def write_comparison(base, alternatives, out: str | Path, *,
         files += write_maps(tmp, result, runs)
         labels = [result.base, *result.alternatives]
         totals_plot(tmp / "totals.png", [r.times for r in runs],
-                    [{sp: r.totals(sp) for sp in SPECIES} for r in runs], labels,
-                    runs[0].species_names, result.window)
+                    [{sp: r.totals(sp) for sp in result.species} for r in runs], labels,
+                    runs[0].species_names, result.window, species=result.species)
         files.append(FileRecord("totals.png", "figure", "Landscape totals of every run",
                                 key="totals"))
         files.append(FileRecord("comparison.json", "record", "Window, runs, settings, "
                                 "warnings and ranking"))
         record = _record(result, runs, zones, files)
         write_json(tmp / "comparison.json", record)
-    return ComparisonOutput(Path(out), tuple(files), record, result.base, result.alternatives)
+    return ComparisonOutput(Path(out), tuple(files), record, result.base, result.alternatives,
+                            result.species)
 
 
 def _clean(v):
@@ -226,13 +233,15 @@ def _record(result, runs, zones, files) -> dict:
         "runs": {lab: str(r.path.resolve()) for lab, r in
                  zip([result.base, *result.alternatives], runs, strict=True)},
         "title": runs[0].title,
-        "species": runs[0].species_names,
+        "species": {sp: runs[0].species_names[sp] for sp in result.species},
+        "species_present": list(result.species),
         "window": {"start_years": w.start, "end_years": w.end, "snapshots": int(w.times.size),
                    "first_time": float(w.times[0]), "same_times": bool(w.same_times)},
         "settings": {"change_threshold": s.change_threshold,
                      "presence_animals_per_km2": s.presence, "goal": s.goal,
                      "years": None if s.years is None else list(s.years),
-                     "arrival_threshold": {sp: s.arrival_threshold(sp) for sp in SPECIES},
+                     "arrival_threshold": {sp: s.arrival_threshold(sp)
+                                           for sp in result.species},
                      "zones": None if zones is None else str(zones)},
         "cell_area_km2": runs[0].grid.cell_area_km2,
         "area_km2": runs[0].grid.n_cells * runs[0].grid.cell_area_km2,
@@ -288,16 +297,18 @@ def write_maps(tmp: Path, result, runs) -> list[FileRecord]:
     names = runs[0].species_names
     files: list[FileRecord] = []
     lims = {}
-    for sp in SPECIES:
-        for key in ("difference", "arrival_delay"):
+    for sp in result.species:
+        for key in ("difference", "arrival_delay", "ratio"):
             lims[sp, key] = _limit([maps[f"{sp}_{key}"].values])
+        lims[sp, "ratio"] = max(lims[sp, "ratio"], 1.5)  # |ratio| > 1 is a clear change
+        lims[sp, "persistence_difference"] = 1.0  # a difference of shares
     for k, alt in enumerate(result.alternatives):
         folder = slug(alt)
         (tmp / folder).mkdir()
         outlines = runs[k + 1].overlays()
         mine = result.fences[result.fences["alternative"] == alt]
         ends = [p for pts in mine["open_end_points"] for p in pts]
-        for sp in SPECIES:
+        for sp in result.species:
             who = f"{sp} ({names[sp]})" if names[sp] != sp else sp
             files += _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat,
                                    (outlines, ends), lims, result)
@@ -307,7 +318,7 @@ def write_maps(tmp: Path, result, runs) -> list[FileRecord]:
 # long: one block per file, in the order the folder lists them
 def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
                   result) -> list[FileRecord]:
-    from preyscape.analysis.change import NO_DATA
+    from preyscape.analysis.change import ARRIVAL_CODES, LEVEL_CODES, NO_DATA
 
     outlines, ends = drawn
 
@@ -321,7 +332,9 @@ def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
     tags = {"base": result.base, "alternative": alt, "window": when}
     cls = get("level_change")
     write_raster(tmp / f"{rel}_level_change.tif", grid, cls.astype(np.int8), nodata=NO_DATA,
-                 dtype="int8")
+                 dtype="int8", description=f"level change of {who}, {head}",
+                 units="class code", tags=tags, categories=LEVEL_CODES,
+                 colours={**LEVEL_COLOURS, 0: NO_CHANGE})
     level_map(grid, cls, f"{who}: where the level changes\n{head}",
               tmp / f"{rel}_level_change.png", outlines=outlines, underlay=habitat,
               open_ends=ends)
@@ -336,6 +349,15 @@ def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
                      tags=tags)
         files.append(FileRecord(f"{rel}_{key}.tif", "raster", f"{who}: {what}", sp,
                                 key=f"{alt}:{key}"))
+    for key, units, what in (  # a picture for every GeoTIFF (the difference is drawn below)
+            ("ratio", "difference / margin (beyond ±1: a clear change)",
+             "difference against the timing margin"),
+            ("persistence_difference", "share of snapshots present, alternative − base",
+             "difference in how often present")):
+        difference_map(grid, get(key), f"{who}: {what}\n{head}", tmp / f"{rel}_{key}.png",
+                       units, lim=lims[sp, key], outlines=outlines, open_ends=ends)
+        files.append(FileRecord(f"{rel}_{key}.png", "map", f"{who.capitalize()}: {what}, "
+                                f"{alt}", sp, key=f"{alt}:{key}"))
     lim = lims[sp, "difference"]
     difference_map(grid, get("difference"), f"{who}: window mean, alternative − base\n{head}",
                    tmp / f"{rel}_difference.png", "animals per km²", lim=lim, outlines=outlines,
@@ -346,7 +368,9 @@ def _species_maps(tmp, folder, maps, alt, sp, who, grid, habitat, drawn, lims,
     write_raster(tmp / f"{rel}_arrival_delay.tif", grid, get("arrival_delay"),
                  description="arrival delay, alternative − base", units="years", tags=tags)
     write_raster(tmp / f"{rel}_arrival_status.tif", grid, status.astype(np.int8),
-                 nodata=NO_DATA, dtype="int8")
+                 nodata=NO_DATA, dtype="int8", description=f"where {who} arrive, {head}",
+                 units="class code", tags=tags, categories=ARRIVAL_CODES,
+                 colours={0: "#c2a5cf", 4: "#ffffff", **ONLY_COLOURS})
     files += [FileRecord(f"{rel}_arrival_delay.tif", "raster", f"{who}: arrival delay", sp,
                          key=f"{alt}:arrival_delay"),
               FileRecord(f"{rel}_arrival_status.tif", "raster", f"{who}: where it arrives",
@@ -451,15 +475,19 @@ def delay_map(grid, delay: np.ndarray, status: np.ndarray, title: str, path: Pat
 
 
 def totals_plot(path: Path, times: Sequence[np.ndarray], totals: Sequence[dict],
-                labels: Sequence[str], names: dict, window=None) -> Path:
-    """Landscape totals (animals) of both species in every run against time (years)."""
+                labels: Sequence[str], names: dict, window=None, *,
+                species: Sequence[str] = SPECIES) -> Path:
+    """Landscape totals (animals) of each species in every run against time (years).
+
+    One panel per species of ``species`` (prey alone: one panel).
+    """
     from preyscape.plots import _new, _save
 
-    fig = _new((7.0, 5.4))
+    fig = _new((7.0, 5.4 if len(species) > 1 else 3.2))
     axes = []
     styles = ["-", "--", ":", "-.", (0, (5, 1)), (0, (3, 1, 1, 1, 1, 1))]
-    for k, sp in enumerate(SPECIES):
-        ax = fig.add_subplot(2, 1, k + 1, sharex=axes[0] if axes else None)
+    for k, sp in enumerate(species):
+        ax = fig.add_subplot(len(species), 1, k + 1, sharex=axes[0] if axes else None)
         axes.append(ax)
         for j, (t, tot, lab) in enumerate(zip(times, totals, labels, strict=True)):
             ax.plot(t, tot[sp], lw=1.8 if j == 0 else 1.4, ls=styles[j % len(styles)],

@@ -2,7 +2,10 @@
 
 Built from a :class:`~preyscape.analysis.compare_output.ComparisonOutput`
 (its ``comparison.json`` record and the files it names), so the command line,
-the report and a reader of the folder see the same numbers.
+the report and a reader of the folder see the same numbers. Only the species
+compared (the record's ``species_present``) are named: for runs of prey alone
+the summary says once that there is no predator, and the report parts say
+nothing about predators (the report says it once, in its settings).
 
 Examples
 --------
@@ -15,6 +18,8 @@ from __future__ import annotations
 import math
 
 from preyscape.analysis.output import Bullets, Figure, Paragraph, Part, Table, pick
+from preyscape.analysis.results import NO_PREDATOR
+from preyscape.store import SPECIES
 
 __all__ = ["METHOD", "headlines", "report_parts", "summary_lines"]
 
@@ -72,6 +77,23 @@ def _many(out, sp: str) -> str:
     return n if n == "prey" or n.endswith("s") else n + "s"
 
 
+def _species(out, order: tuple[str, ...] = SPECIES) -> tuple[str, ...]:
+    """The species compared (``comparison.json`` ``species_present``), in ``order``."""
+    present = out.record.get("species_present") or SPECIES
+    return tuple(sp for sp in order if sp in present)
+
+
+def _predators_first(out) -> tuple[str, ...]:
+    """The species compared, predators first (the order of sentences and the table)."""
+    return _species(out, ("predator", "prey"))
+
+
+def _timing(out, cycles: str = "the cycles") -> str:
+    """What the timing margin stands for: population ``cycles`` need a predator."""
+    return (f"a shift in the timing of {cycles}" if "predator" in _species(out)
+            else "a shift in timing alone")
+
+
 def _num(x) -> float:
     return math.nan if x is None or x == "inf" else (math.inf if x == "inf" else float(x))
 
@@ -84,18 +106,26 @@ def summary_lines(out) -> list[str]:
              f"{'s' if len(out.alternatives) != 1 else ''} with {out.base}, years "
              f"{w['start_years']:g}–{w['end_years']:g} ({w['snapshots']} common snapshots): "
              f"{out.folder}"]
-    lines.append(f"  {'':<27}{'landscape total':^20}{'area more / fewer (km²)':^28}")
-    lines.append(f"  {'rank':<5}{'alternative':<22}{'prey':>9}{'predator':>11}"
-                 f"{'prey':>14}{'predator':>14}{'fence (km)':>12}{'open ends':>11}")
+    sps = _species(out)
+    # column widths (total, area) per species; one species gets room for the headings
+    cols = [(sp, 9 if sp == "prey" else 11, 14) for sp in sps] if len(sps) > 1 else [
+        (sp, 17, 25) for sp in sps]
+    lines.append(f"  {'':<27}{'landscape total':^{sum(c[1] for c in cols)}}"
+                 f"{'area more / fewer (km²)':^{sum(c[2] for c in cols)}}")
+    lines.append(f"  {'rank':<5}{'alternative':<22}"
+                 + "".join(f"{sp:>{t}}" for sp, t, _ in cols)
+                 + "".join(f"{sp:>{a}}" for sp, _, a in cols)
+                 + f"{'fence (km)':>12}{'open ends':>11}")
     for r in out.ranking:
         rank = "" if r["rank"] is None else str(r["rank"])
         lines.append(
             f"  {rank:<5}{r['alternative'][:21]:<22}"
-            f"{_signed(r['prey_window_change_pct'], '%'):>9}"
-            f"{_signed(r['predator_window_change_pct'], '%'):>11}"
-            f"{_pair(r['prey_gain_km2'], r['prey_loss_km2']):>14}"
-            f"{_pair(r['predator_gain_km2'], r['predator_loss_km2']):>14}"
-            f"{r['fence_length_m'] / 1000:>12.3g}{r['open_ends']:>11}")
+            + "".join(f"{_signed(r[f'{sp}_window_change_pct'], '%'):>{t}}" for sp, t, _ in cols)
+            + "".join(f"{_pair(r[f'{sp}_gain_km2'], r[f'{sp}_loss_km2']):>{a}}"
+                      for sp, _, a in cols)
+            + f"{r['fence_length_m'] / 1000:>12.3g}{r['open_ends']:>11}")
+    if "predator" not in sps:
+        lines.append(f"  {NO_PREDATOR}")
     lines += [f"  warning: {w_}" for w_ in rec["warnings"]]
     return lines
 
@@ -103,7 +133,8 @@ def summary_lines(out) -> list[str]:
 def _alternative_sentence(out, r: dict) -> str:
     """One plain sentence about what an alternative changes, where and how much."""
     bits = []
-    for sp in ("predator", "prey"):
+    order = _predators_first(out)
+    for sp in order:
         name = _many(out, sp)
         gain, loss, gone = r[f"{sp}_gain_km2"], r[f"{sp}_loss_km2"], r[f"{sp}_gone_km2"]
         if gain < 0.01 and loss < 0.01:
@@ -117,16 +148,16 @@ def _alternative_sentence(out, r: dict) -> str:
         if gain >= 0.01:
             part.append(f"more {name} on {_area(gain)}")
         bits.append(" and ".join(part))
-    sure = [_num(r[k]) for k in ("predator_clarity", "prey_clarity") if r.get(k) is not None]
+    sure = [_num(r[f"{sp}_clarity"]) for sp in order if r.get(f"{sp}_clarity") is not None]
     if sure:
         top = max(sure)
         bits.append("these changes are " + ("far beyond" if top > 3 else "beyond")
-                    + " what a shift in the timing of the cycles could produce"
+                    + f" what {_timing(out)} could produce"
                     + (f" (typically {top:.2g} times that margin)" if math.isfinite(top) else ""))
+    whole = ", ".join(f"{_many(out, sp)} {_signed(r[f'{sp}_window_change_pct'], '%')}"
+                      for sp in order)
     return (f"'{r['alternative']}' against '{out.base}': " + "; ".join(bits)
-            + f"; in the whole landscape {_many(out, 'predator')} "
-            f"{_signed(r['predator_window_change_pct'], '%')}, {_many(out, 'prey')} "
-            f"{_signed(r['prey_window_change_pct'], '%')}.")
+            + f"; in the whole landscape {whole}.")
 
 
 def headlines(out) -> list[str]:
@@ -149,9 +180,9 @@ def headlines(out) -> list[str]:
     for f in rec["fences"]:
         if f["warning"]:
             lines.append(f"In '{f['alternative']}': {f['warning']}")
-    lines.append(f"Changes are counted only where they exceed what a shift in the timing of "
-                 f"the population cycles could produce ({when}); a model is not a field "
-                 "survey.")
+    lines.append(f"Changes are counted only where they exceed what "
+                 f"{_timing(out, 'the population cycles')} could "
+                 f"produce ({when}); a model is not a field survey.")
     return lines
 
 
@@ -164,21 +195,20 @@ def _fence_text(r: dict) -> str:
 
 
 def _ranking_table(out) -> Table:
-    names = {sp: _many(out, sp) for sp in ("prey", "predator")}
-    targets = [k for k in (out.ranking[0] if out.ranking else {})
-               if k.startswith("predator_delay_at_")]
-    header = ["rank", "alternative", f"landscape total: {names['predator']} / {names['prey']}",
-              f"{names['predator']}: more / fewer (km²)", f"{names['prey']}: more / fewer (km²)"]
-    header += [f"{names['predator']} reach {k[len('predator_delay_at_'):-3].replace('_', ' ')}"
-               for k in targets]
+    order = _predators_first(out)
+    names = {sp: _many(out, sp) for sp in order}
+    lead = f"{order[0]}_delay_at_"  # the predators' targets (the prey's for prey alone)
+    targets = [k for k in (out.ranking[0] if out.ranking else {}) if k.startswith(lead)]
+    header = ["rank", "alternative",
+              "landscape total: " + " / ".join(names[sp] for sp in order)]
+    header += [f"{names[sp]}: more / fewer (km²)" for sp in order]
+    header += [f"{names[order[0]]} reach {k[len(lead):-3].replace('_', ' ')}" for k in targets]
     header.append("fence")
     rows = []
     for r in out.ranking:
         row = ["" if r["rank"] is None else r["rank"], r["alternative"],
-               f"{_signed(r['predator_window_change_pct'], '%')} / "
-               f"{_signed(r['prey_window_change_pct'], '%')}",
-               _pair(r["predator_gain_km2"], r["predator_loss_km2"]),
-               _pair(r["prey_gain_km2"], r["prey_loss_km2"])]
+               " / ".join(_signed(r[f"{sp}_window_change_pct"], "%") for sp in order)]
+        row += [_pair(r[f"{sp}_gain_km2"], r[f"{sp}_loss_km2"]) for sp in order]
         row += [_delay_text(r.get(k)) for k in targets]
         row.append(_fence_text(r))
         rows.append(tuple(row))
@@ -213,7 +243,7 @@ def _alternative_part(out, r: dict, when: str) -> Part:
     alt = r["alternative"]
     blocks: list = [Paragraph(_alternative_sentence(out, r))]
     for key in ("level_change", "arrival_delay", "difference"):
-        for sp in ("predator", "prey"):
+        for sp in _predators_first(out):
             for f in pick(out.files, role="map", species=sp, key=f"{alt}:{key}"):
                 blocks.append(Figure(out.path(f), f"{f.title} ({when})", f.title))
     for f in pick(out.files, key="totals"):

@@ -23,7 +23,7 @@ import numpy as np
 from preyscape.analysis.compare import PRESENCE, _check_presence
 from preyscape.analysis.refuges import _cells
 from preyscape.errors import InputError
-from preyscape.store import SPECIES, data_mask, frames, grid_of
+from preyscape.store import data_mask, frames, grid_of
 
 
 def colonisation_time(
@@ -320,7 +320,7 @@ def colonisation(ds, targets: Sequence[tuple[str, np.ndarray]], thresholds: dict
     out = []
     for name, cells in targets:
         years = {}
-        for sp in SPECIES:
+        for sp in thresholds:  # the species given (prey alone: prey only)
             t = colonisation_time(ds, sp, cells, threshold=thresholds[sp], share=share)
             years[sp] = None if math.isnan(t) else t
         out.append(TargetColonisation(name, int((cells & mask).sum()), years))

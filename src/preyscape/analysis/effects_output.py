@@ -50,6 +50,7 @@ from preyscape.analysis.output import (
     output_folder,
     write_csv,
 )
+from preyscape.analysis.results import NO_PREDATOR
 from preyscape.analysis.settings import COLONISED_SHARE, AnalysisSettings
 from preyscape.names import slug
 from preyscape.store import SPECIES
@@ -137,6 +138,7 @@ class EffectsOutput(Written):
     transects: tuple = ()
     names: dict = field(default_factory=dict)
     corridors: tuple = ()
+    species: tuple = SPECIES
 
     @property
     def empty(self) -> bool:
@@ -157,8 +159,10 @@ class EffectsOutput(Written):
             lines.append(f"  refuge {r.name}: spill-over decay length "
                          f"{_fmt(r.decay_length_km, 'km')}")
         for t in self.targets:
-            lines.append(f"  target {t.name}: predators colonised in year "
-                         f"{_fmt(t.years.get('predator'))}")
+            sp = "predator" if "predator" in t.years else "prey"
+            lines.append(f"  target {t.name}: {sp} colonised in year {_fmt(t.years.get(sp))}")
+        if self.species == ("prey",):
+            lines.append(f"  {NO_PREDATOR}")
         return lines
 
     def report_parts(self) -> list[Part]:
@@ -212,7 +216,7 @@ def _refuge_blocks(out: EffectsOutput) -> list:
                 "removes the refuge to isolate its effect.")
     rows = []
     for r in out.refuges:
-        for sp in SPECIES:
+        for sp in out.species:
             io = r.regions[sp]["inside_outside"]
             wo = r.regions[sp]["inside_outside_without"] or {}
             for region in ("inside", "outside"):
@@ -236,19 +240,20 @@ def _refuge_blocks(out: EffectsOutput) -> list:
 
 def _corridor_blocks(out: EffectsOutput) -> list:
     blocks: list = []
+    what = {"prey": "prey", "predator": "predators"}
     if out.targets:
-        rows = tuple((t.name, t.cells, t.years.get("prey"), t.years.get("predator"))
+        rows = tuple((t.name, t.cells, *(t.years.get(sp) for sp in out.species))
                      for t in out.targets)
-        blocks.append(Table(("target patch", "cells", "prey colonised (year)",
-                             "predators colonised (year)"), rows,
+        blocks.append(Table(("target patch", "cells",
+                             *(f"{what[sp]} colonised (year)" for sp in out.species)), rows,
                             caption="A patch counts as colonised when half its cells reach the "
                             "arrival threshold; empty: not within the run."))
     for tr in out.transects:
+        net = ", ".join(f"{what[sp]} {_fmt(tr.net_animals[sp], 'animals')}"
+                        for sp in out.species)
         blocks.append(Facts(((
             f"net crossing of '{tr.name}' over the run",
-            f"prey {_fmt(tr.net_animals['prey'], 'animals')}, predators "
-            f"{_fmt(tr.net_animals['predator'], 'animals')} (positive: from its left to its "
-            "right)"),)))
+            f"{net} (positive: from its left to its right)"),)))
         blocks.append(Figure(out.folder / tr.figure, f"Animals crossing the transect "
                              f"'{tr.name}'", f"net flow of animals across '{tr.name}' against "
                              "time"))
@@ -348,10 +353,11 @@ def write_effects(run, out: str | Path, *, settings: AnalysisSettings | None = N
             crossings = _write_crossings(tmp, run, settings, files)
             record = {"run": str(run.path), "presence_per_km2": settings.presence,
                       "thresholds_per_km2": {sp: settings.arrival_threshold(sp)
-                                             for sp in SPECIES},
+                                             for sp in run.species},
                       "refuges": [r.as_record() for r in refuges],
                       "targets": [{"name": t.name, "cells": t.cells,
-                                   **{f"{sp}_colonised_year": t.years[sp] for sp in SPECIES}}
+                                   **{f"{sp}_colonised_year": t.years[sp]
+                                      for sp in run.species}}
                                   for t in targets],
                       "transects": [{"name": c.name, **{f"{sp}_net_animals": v for sp, v in
                                                         c.net_animals.items()},
@@ -366,7 +372,8 @@ def write_effects(run, out: str | Path, *, settings: AnalysisSettings | None = N
             other.close()
     return EffectsOutput(Path(out), tuple(files), None if other is None else other.path,
                          tuple(refuges), tuple(targets), tuple(crossings), run.species_names,
-                         tuple(m["name"] for m in run.measures if m["kind"] == "corridor"))
+                         tuple(m["name"] for m in run.measures if m["kind"] == "corridor"),
+                         run.species)
 
 
 def _write_refuges(tmp: Path, run, other, settings: AnalysisSettings,
@@ -379,7 +386,7 @@ def _write_refuges(tmp: Path, run, other, settings: AnalysisSettings,
             continue
         cells = run.cells_of(m)
         regions, decay, diff, figure, fit = {}, None, False, None, {}
-        for sp in SPECIES:
+        for sp in run.species:
             eff = refuge_effect(run.ds, cells, ds_without=None if other is None else other.ds,
                                 species=sp, presence=settings.presence)
             regions[sp] = {"inside_outside": eff.inside_outside,
@@ -428,10 +435,10 @@ def _write_targets(tmp: Path, run, settings: AnalysisSettings, targets_file: Pat
 
         labels, names = zones_from_polygons(targets_file, run.grid, source=str(targets_file))
         targets += [(n, labels == k) for k, n in enumerate(names)]
-    thr = {sp: settings.arrival_threshold(sp) for sp in SPECIES}
+    thr = {sp: settings.arrival_threshold(sp) for sp in run.species}
     found = colonisation(run.ds, targets, thr, COLONISED_SHARE)
     rows = [[t.name, sp, t.cells, thr[sp], COLONISED_SHARE,
-             "" if t.years[sp] is None else t.years[sp]] for t in found for sp in SPECIES]
+             "" if t.years[sp] is None else t.years[sp]] for t in found for sp in thr]
     if rows:
         write_csv(tmp / "targets.csv", ["target", "species", "cells", "threshold_per_km2",
                                         "share", "colonised_year"], rows)
@@ -447,7 +454,7 @@ def _write_crossings(tmp: Path, run, settings: AnalysisSettings,
     ops = run.operators() if settings.transects else []
     for tr in settings.transects:
         series, net = {}, {}
-        for sp in SPECIES:
+        for sp in run.species:
             times, flow = transect_flux(run.ds, ops, tr.points, sp)
             total = cumulative(flow, times)
             series[sp] = (times, flow, total)

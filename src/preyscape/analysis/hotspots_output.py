@@ -42,8 +42,8 @@ from preyscape.analysis.output import (
     write_csv,
     write_raster,
 )
+from preyscape.analysis.results import NO_PREDATOR
 from preyscape.analysis.settings import AnalysisSettings
-from preyscape.store import SPECIES
 
 COMMAND = Command(
     name="hotspots",
@@ -147,6 +147,8 @@ class HotspotsOutput(Written):
                          f"{100 * d.hot_share_of_animals:.1f} % of the animals")
             if not d.hot_cells:
                 lines.append(f"            {_none_reason(d)}")
+        if "predator" not in self.species:
+            lines.append(f"  {NO_PREDATOR}")
         return lines
 
     def headlines(self) -> list[str]:
@@ -303,7 +305,7 @@ def write_hotspots(run, out: str | Path, *, settings: AnalysisSettings | None = 
     files: list[FileRecord] = []
     species: dict[str, SpeciesHotspots] = {}
     with output_folder(out, overwrite) as tmp:
-        for sp in SPECIES:
+        for sp in run.species:
             res = hotspots_of_run(run.ds, sp, band_m=band, alpha=alpha, persistent=True)
             species[sp] = _summarise(run, res, names[sp])
             files += _write_species(tmp, run, res, species[sp], _label(sp, names[sp]))

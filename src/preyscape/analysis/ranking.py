@@ -29,7 +29,7 @@ from preyscape.analysis.change import (
     level_change,
     window_of,
 )
-from preyscape.analysis.settings import GOALS, AnalysisSettings
+from preyscape.analysis.settings import GOALS, AnalysisSettings, check_goal
 from preyscape.store import SPECIES
 
 __all__ = ["change_maps", "cycle_length", "fence_table", "fence_warnings", "rank",
@@ -38,17 +38,19 @@ __all__ = ["change_maps", "cycle_length", "fence_table", "fence_warnings", "rank
 
 # --- maps --------------------------------------------------------------------------------
 def change_maps(grid, per_run: Sequence[dict], labels: Sequence[str],
-                settings: AnalysisSettings, window) -> Any:
+                settings: AnalysisSettings, window, *,
+                species: Sequence[str] = SPECIES) -> Any:
     """Per-cell change maps of every alternative against the reference (first) run.
 
     Returns the :class:`xarray.Dataset` described in
-    :class:`preyscape.analysis.compare.Comparison` (``maps``).
+    :class:`preyscape.analysis.compare.Comparison` (``maps``), with the
+    variables of the ``species`` compared only.
     """
     import xarray as xr
 
     dims = ("alternative", "y", "x")
     data: dict[str, Any] = {}
-    for sp in SPECIES:
+    for sp in species:
         a = per_run[0][sp]
         stacks: dict[str, list] = {k: [] for k in (
             "mean", "difference", "margin", "ratio", "level_change", "persistence_difference",
@@ -91,23 +93,31 @@ def _codes(key: str) -> dict[int, str]:
 
 
 # --- fences -------------------------------------------------------------------------------
-def _placed(run) -> list:
-    """The run's fences and closed refuges as placed measures (faces and lines)."""
+def _placed(run, species: Sequence[str] = SPECIES) -> list:
+    """The run's fences and closed refuges as placed measures (faces and lines).
+
+    A line stops only the ``species`` compared: the permeability of any other
+    species is dropped (a missing species passes), and a refuge closed to
+    predators is no line at all when predators are not compared.
+    """
     from shapely.geometry import LineString
 
     from preyscape.landscape.placed import PlacedMeasure
 
     out = []
     for m in run.measures:
+        closed = bool(m.get("closed_to_predators")) and "predator" in species
+        if m["kind"] == "refuge" and not closed:
+            continue
         faces = run.faces_of(m)
         if faces is None:
             continue
         lines = run.lines_of(m) if m["kind"] == "fence" else []
+        perm = {sp: v for sp, v in (m.get("permeability") or {}).items() if sp in species}
         out.append(PlacedMeasure(
             str(m["name"]), str(m["kind"]), None, faces,
             shapes=tuple(LineString(v) for v in lines if len(v) >= 2),
-            permeability=dict(m.get("permeability") or {}), gaps=tuple(m.get("gaps") or ()),
-            closed_to_predators=bool(m.get("closed_to_predators"))))
+            permeability=perm, gaps=tuple(m.get("gaps") or ()), closed_to_predators=closed))
     return out
 
 
@@ -116,11 +126,14 @@ FENCE_COLUMNS = ("alternative", "fence", "kind", "species", "length_m", "faces",
                  "open_end_points")
 
 
-def fence_table(runs: Sequence, labels: Sequence[str]) -> Any:
+def fence_table(runs: Sequence, labels: Sequence[str], *,
+                species: Sequence[str] = SPECIES) -> Any:
     """Topology of every fence and closed refuge of each alternative (a DataFrame).
 
-    One row per alternative, line and species it stops (a line that stops
-    no species completely: one row with its length). ``open_ends`` counts the
+    One row per alternative, line and species of ``species`` it stops (a line
+    that stops none of them completely: one row with its length; a refuge
+    closed to predators is left out when predators are not compared,
+    :func:`_placed`). ``open_ends`` counts the
     ends animals can walk round that are not drawn gates; ``way_round_m``
     is the narrowest of them (metres), ``open_end_at`` says where they are
     and ``open_end_points`` lists them as ``(x, y, way round)`` in metres.
@@ -133,7 +146,7 @@ def fence_table(runs: Sequence, labels: Sequence[str]) -> Any:
     for run, label in zip(runs, labels, strict=True):
         names = run.species_names
         who = {"prey": f"prey ({names['prey']})", "predator": f"predators ({names['predator']})"}
-        for t in measure_topologies(run.grid, _placed(run), who):
+        for t in measure_topologies(run.grid, _placed(run, species), who):
             leaks = [e for e in t["open_ends"] if not e["at_gap"]]
             rows.append({
                 "alternative": label, "fence": t["name"], "kind": t["kind"],
@@ -187,13 +200,14 @@ def cycle_length(run) -> float | None:
 
     The longer of the local period predicted for small cycles (``run.json``
     predictions; large cycles last longer) and the spacing of the first two
-    clear peaks of the run's landscape total of predators (peaks standing out
-    by at least a tenth of the total's range: common practice, no source).
+    clear peaks of the run's landscape total of predators (of prey in a run of
+    prey alone; peaks standing out by at least a tenth of the total's range:
+    common practice, no source).
     """
     from scipy.signal import find_peaks
 
     guess = [float((run.predictions or {}).get("period_years") or math.nan)]
-    tot = run.totals("predator")
+    tot = run.totals("predator" if "predator" in run.species else "prey")
     if tot.size > 2 and np.ptp(tot) > 0:
         peaks, _ = find_peaks(tot, prominence=0.1 * float(np.ptp(tot)))
         if peaks.size >= 2:
@@ -204,12 +218,12 @@ def cycle_length(run) -> float | None:
 
 # --- zones and sides ----------------------------------------------------------------------------
 def zone_tables(zonings: Sequence, per_run: Sequence[dict], labels: Sequence[str], grid,
-                presence: float) -> dict[str, Any]:
+                presence: float, *, species: Sequence[str] = SPECIES) -> dict[str, Any]:
     """Per zone (habitat class or user zone) and per side of each fence: before and after.
 
     Returns ``{"zones": DataFrame, "sides": DataFrame}``; one row per
-    alternative, zone and species, with the reference run's values
-    (``..._base``) and the alternative's.
+    alternative, zone and species of ``species``, with the reference run's
+    values (``..._base``) and the alternative's.
     """
     import pandas as pd
 
@@ -221,7 +235,7 @@ def zone_tables(zonings: Sequence, per_run: Sequence[dict], labels: Sequence[str
         for k, alt in enumerate(labels[1:], start=1):
             if alt not in zoning.alternatives:
                 continue
-            for sp in SPECIES:
+            for sp in species:
                 a, b = per_run[0][sp].stats, per_run[k][sp].stats
                 rows = _zone_rows(zoning, z_index, lab, cells, a, b, area, presence)
                 for row in rows:
@@ -275,10 +289,12 @@ def _pct(after: float, before: float) -> float:
 
 
 def ranking_table(runs: Sequence, labels: Sequence[str], per_run: Sequence[dict], maps,
-                  window, fences, settings: AnalysisSettings) -> Any:
+                  window, fences, settings: AnalysisSettings, *,
+                  species: Sequence[str] = SPECIES) -> Any:
     """One row per alternative, with the columns a planner reads (a DataFrame).
 
-    Columns, for each species ``sp``: ``{sp}_total_change_pct`` (change of
+    Columns, for each species ``sp`` of ``species`` (the species compared;
+    no predator columns for prey alone): ``{sp}_total_change_pct`` (change of
     the landscape's mean number of animals over every common snapshot after
     the start, %), ``{sp}_window_change_pct`` (the same in the window),
     ``{sp}_gain_km2`` and ``{sp}_loss_km2`` (area where the level rose or fell
@@ -304,7 +320,7 @@ def ranking_table(runs: Sequence, labels: Sequence[str], per_run: Sequence[dict]
     for k, (run, label) in enumerate(zip(runs[1:], labels[1:], strict=True), start=1):
         row: dict[str, Any] = {"alternative": label,
                                "measures": _measures_text(runs[0], run)}
-        for sp in SPECIES:
+        for sp in species:
             row.update(_species_columns(runs[0], run, k, sp, whole, window, maps, area,
                                         label))
             for name, t_base in per_run[0][sp].targets.items():
@@ -361,12 +377,20 @@ def rank(table, goal: str | None) -> Any:
     change of that species' landscape total in the window
     (``<species>_window_change_pct``), the best first, with a ``rank``
     column (1 = best). Without a goal the order is kept and ``rank`` is empty.
+
+    Raises
+    ------
+    InputError
+        If the goal's species has no column (runs of prey alone,
+        :func:`~preyscape.analysis.settings.check_goal`).
     """
     out = table.copy()
     if goal is None or not len(out):
         out.insert(0, "rank", [None] * len(out))
         return out
     sp, sign = GOALS[goal]
+    if f"{sp}_window_change_pct" not in out:
+        check_goal(goal, [s for s in SPECIES if f"{s}_window_change_pct" in out])
     key = out[f"{sp}_window_change_pct"] * sign
     out = out.assign(_key=key).sort_values("_key", ascending=False, kind="stable",
                                           na_position="last").drop(columns="_key")

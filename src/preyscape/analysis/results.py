@@ -49,9 +49,11 @@ from preyscape.errors import FileProblem, InputError
 from preyscape.landscape.grid import Grid
 from preyscape.store import SPECIES, data_mask, frames, grid_of, used_snapshots
 
-__all__ = ["CellStatistics", "RunResults", "cell_statistics", "find_damage", "map_layers_of",
-           "open_run",
-           "SPECIES"]
+__all__ = ["CellStatistics", "NO_PREDATOR", "RunResults", "cell_statistics", "find_damage",
+           "map_layers_of", "open_run", "SPECIES"]
+
+NO_PREDATOR = "no predator in this scenario"
+"""What outputs of a run of prey alone say, once, instead of empty predator maps and tables."""
 
 
 @dataclass(frozen=True)
@@ -189,6 +191,16 @@ class RunResults:
     def title(self) -> str:
         """The scenario's title, else the folder name."""
         return str(self.info.get("title") or self.path.name)
+
+    @property
+    def species(self) -> tuple[str, ...]:
+        """The species the run models: ``("prey", "predator")``, or ``("prey",)`` for prey alone.
+
+        A run of prey alone stores a predator density of zero everywhere; analyses
+        leave it out and say once that the scenario has no predator.
+        """
+        present = self.info.get("species_present")
+        return tuple(sp for sp in SPECIES if sp in present) if present else SPECIES
 
     @property
     def species_names(self) -> dict[str, str]:
@@ -374,6 +386,13 @@ class RunResults:
         stored_as = f"{self.path / 'run.json'}: analysis"
         s = AnalysisSettings.build(self.info.get("analysis") or {}, overrides, spelled,
                                    stored_as=stored_as)
+        if (overrides or {}).get("goal") is not None:  # a goal asked for now must fit the run
+            from preyscape.analysis.settings import check_goal
+
+            try:
+                check_goal(s.goal, self.species)
+            except InputError as err:
+                raise InputError(err.message, (spelled or {}).get("goal", "goal")) from None
         band = s.hotspot_distance
         if band is not None:
             given = (overrides or {}).get("hotspot_distance") is not None

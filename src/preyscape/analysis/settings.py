@@ -21,14 +21,14 @@ preyscape.errors.InputError: --fdr: must lie strictly between 0 and 1, not 1.5
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, fields
 from typing import Any
 
 from preyscape.errors import InputError
 
 __all__ = ["AnalysisSettings", "TransectLine", "DEFAULTS", "FRONT_THRESHOLD_SHARE",
-           "COLONISED_SHARE", "GOALS", "parse_years"]
+           "COLONISED_SHARE", "GOALS", "check_goal", "parse_years"]
 
 FRONT_THRESHOLD_SHARE = 0.1
 """Default arrival density of a front, as a share of the species' largest time-mean
@@ -156,6 +156,30 @@ def parse_years(value: Any, where: str = "years") -> tuple[float, float | None]:
         raise InputError(f"the window must start at 0 or later and end after its start, not "
                          f"{value!r}", where)
     return a, b
+
+
+def check_goal(goal: str | None, species: Sequence[str]) -> None:
+    """Refuse a ranking goal that names a species the runs do not model.
+
+    Parameters
+    ----------
+    goal : str or None
+        The goal (:data:`GOALS`); None ranks nothing.
+    species : sequence of str
+        The species every run compared models.
+
+    Raises
+    ------
+    InputError
+        Naming the setting (``--goal`` or ``analysis.goal``), the goal and the
+        goals that are valid for ``species``.
+    """
+    if goal is None or GOALS[goal][0] in species:
+        return
+    valid = [g for g, (sp, _) in GOALS.items() if sp in species]
+    raise InputError(f"the goal {goal!r} ranks the alternatives by their predators, but the "
+                     "runs compared model prey alone (no predator in these scenarios); give "
+                     f"one of {', '.join(valid)}, or no goal", "--goal or analysis.goal")
 
 
 def _checked(key: str, v: Any, where: str) -> Any:

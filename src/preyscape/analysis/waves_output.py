@@ -46,11 +46,11 @@ from preyscape.analysis.output import (
     write_csv,
     write_raster,
 )
+from preyscape.analysis.results import NO_PREDATOR
 from preyscape.analysis.settings import FRONT_THRESHOLD_SHARE, AnalysisSettings, TransectLine
 from preyscape.analysis.transects import auto_transect, transects_from_file
 from preyscape.errors import InputError
 from preyscape.names import slug
-from preyscape.store import SPECIES
 
 COMMAND = Command(
     name="waves",
@@ -205,6 +205,8 @@ class WavesOutput(Written):
             lines += fp.front_lines(f)
         if not shown:
             lines.append("  nothing to measure: " + self.nothing_to_measure())
+        if "predator" not in self.arrival:
+            lines.append(f"  {NO_PREDATOR}")
         return lines
 
     def nothing_to_measure(self) -> str:
@@ -245,14 +247,17 @@ def _label(out: WavesOutput, sp: str) -> str:
 
 def _report_blocks(out: WavesOutput) -> list:
     thr = {sp: a.threshold for sp, a in out.arrival.items()}
+    two = "predator" in out.arrival  # prey alone: no predator threshold or prediction
     blocks: list = [Paragraph(
         "The arrival time of a cell is the first time its density reaches the threshold "
-        f"(prey {_fmt(thr.get('prey'), 'per km²')}, predators "
-        f"{_fmt(thr.get('predator'), 'per km²')}). The front speed along a transect is the "
+        f"(prey {_fmt(thr.get('prey'), 'per km²')}"
+        + (f", predators {_fmt(thr.get('predator'), 'per km²')}" if two else "")
+        + "). The front speed along a transect is the "
         "slope of the front's position against time. It is set against two predictions. "
         "The best-habitat bound is the published minimal speed in a landscape made of the "
-        "best habitat only: Fisher–KPP 2√(rD) for prey spreading into empty habitat, and "
-        "Dunbar's 2√(D(eaK/(1+ahK) − m)) for predators invading prey at capacity. The "
+        "best habitat only: Fisher–KPP 2√(rD) for prey spreading into empty habitat"
+        + (", and Dunbar's 2√(D(eaK/(1+ahK) − m)) for predators invading prey at capacity"
+           if two else "") + ". The "
         "landscape prediction is the speed through the habitat the transect crosses "
         "(growth and movement of each class, homogenised or as periodic patches; "
         "Shigesada, Kawasaki & Teramoto 1986), and the map-wide value from all classes. "
@@ -393,7 +398,7 @@ def _arrival_maps(tmp: Path, run, settings: AnalysisSettings):
     grid = run.grid
     arrival: dict[str, SpeciesArrival] = {}
     arrivals, speeds, files = {}, {}, []
-    for sp in SPECIES:
+    for sp in run.species:
         mean = run.time_mean(sp)
         top = float(np.nanmax(mean)) if np.any(np.isfinite(mean)) else 0.0
         thr = settings.front_threshold(sp, top)
@@ -438,7 +443,7 @@ def _sample(grid, lines: Sequence[TransectLine], auto: bool) -> list:
 
 def _draw_maps(tmp: Path, run, arrival, arrivals, speeds, trs) -> list[FileRecord]:
     files = []
-    for sp in SPECIES:
+    for sp in arrival:
         if arrival[sp].no_front:  # a sentence instead of an empty figure
             continue
         thr = arrival[sp].threshold
@@ -460,8 +465,8 @@ def _fit_fronts(tmp: Path, run, arrival, trs, pred) -> tuple[list[FrontRow], lis
     fronts, files = [], []
     land, habitat = run.predictions.get("landscape"), run.habitat
     series = {sp: W.transect_series(run.ds, trs, species=sp, times=run.times) if trs else []
-              for sp in SPECIES}
-    for sp in SPECIES:
+              for sp in arrival}
+    for sp in arrival:
         thr = arrival[sp].threshold
         if not trs or thr is None:
             continue
@@ -525,7 +530,7 @@ def arrival_map(grid, arrival: np.ndarray, title: str, path: Path,
     vmax = float(data.max()) if data.count() else 1.0
     fig, ax, _ = map_figure(grid, arrival, title, ARRIVAL_CMAP, vmin=0.0,
                             vmax=max(vmax, 1e-12),
-                            units="arrival time (years); grey: never or no data")
+                            units="arrival time (years)", undefined="never reached")
     _draw_transects(ax, transects, _extent_km(grid))
     left, right, bottom, top = _extent_km(grid)
     ax.set_xlim(left, right)

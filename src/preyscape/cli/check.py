@@ -25,17 +25,117 @@ def check(args) -> int:
     from preyscape.scenario import load_scenario
 
     sc = load_scenario(args.scenario)
-    d = derived(prepare(sc, allow_large=args.allow_large))
+    setup = prepare(sc, allow_large=args.allow_large)
+    d = derived(setup)
     variants = [sc.for_variant(n) for n in sc.variant_names()[1:]]
     d["variant_measures"] = check_variant_measures(variants)
     d["variant_fence_topology"] = variant_fence_topology(variants)
+    d.update(start_and_warnings(setup, d))
     if args.json:
         from preyscape.store import json_safe
 
         print(json.dumps(json_safe(d), indent=2, default=str, allow_nan=False))
     else:
-        print("\n".join(check_lines(args.scenario, d)))
+        print("\n".join(check_lines(args.scenario, d) + start_warning_lines(d)))
     return 0
+
+
+# --- one species, and species that cannot invade (issue 12) ---------------------------
+def _grows(rate) -> bool:
+    return rate is not None and math.isfinite(rate) and rate > 0
+
+
+def _cannot_grow(rate) -> bool:
+    return rate is not None and math.isfinite(rate) and rate <= 0
+
+
+def _prey_front_line(d: dict) -> str:
+    b = d["best_habitat"]
+    if not _grows(b["r"]):
+        why = "prey do not grow (prey.growth = 0): they spread only by movement, with no front"
+    elif not b["D_N"] > 0:
+        why = "prey do not move (movement coefficient 0): no front"
+    else:
+        return (f"prey front speed    {_fmt(d['prey_front_speed'], 'km/yr')} "
+                "(Fisher–KPP 2√(rD), best habitat)")
+    return f"prey front speed    none: {why}"
+
+
+def _predator_front_line(d: dict) -> str:
+    b, gP = d["best_habitat"], d["predator_growth_at_capacity"]
+    if gP is None or not math.isfinite(gP):
+        return ("predator front      not defined: prey without a carrying capacity "
+                "(Lotka–Volterra), so there is no capacity to invade")
+    if gP <= 0:
+        why = (f"predators cannot invade or persist: even in prey at capacity they gain "
+               f"{_fmt(gP + b['m'], '/yr')}, no more than their mortality m = "
+               f"{_fmt(b['m'], '/yr')} (best habitat)")
+    elif not b["D_P"] > 0:
+        why = "predators do not move (movement coefficient 0): no front"
+    else:
+        return (f"predator front      {_fmt(d['predator_front_speed'], 'km/yr')} into prey at "
+                "capacity (Dunbar 1983, best habitat)")
+    return f"predator front      none: {why}"
+
+
+def _prey_patch_line(d: dict) -> str:
+    cp = d["critical_patch_prey"]
+    if not _grows(d["best_habitat"]["r"]):
+        return "critical patch      prey: none (prey do not grow, so no patch sustains them)"
+    return (f"critical patch      prey: strip {_fmt(cp['strip_width'], 'km')}, square side "
+            f"{_fmt(cp['square_side'], 'km')}, disc radius {_fmt(cp['disc_radius'], 'km')}")
+
+
+def _prey_only_lines(path: Path, d: dict) -> list[str]:
+    """The first lines of ``check`` for prey alone: no predator numbers, said once."""
+    g, b = d["grid"], d["best_habitat"]
+    lines = [
+        f"scenario            {path}",
+        f"grid                {g['rows']} rows x {g['cols']} cols, cell {g['cell_size_m'][0]:g}"
+        f" x {g['cell_size_m'][1]:g} m, extent {g['extent_km'][0]:.3g} x "
+        f"{g['extent_km'][1]:.3g} km",
+        f"cells with data     {g['cells_with_data']}",
+        f"time step           {_fmt(d['step_years'], 'yr')} ({d['steps']} steps, scheme "
+        f"{d['scheme']})",
+        "movement per step   prey D·dt/h² = " + _fmt(d["movement_per_step"]["prey"]),
+        f"best habitat        r = {_fmt(b['r'], '/yr')}, K = {_fmt(b['K'], 'per km²')}",
+        "predator            none: no predator in this scenario",
+        _prey_front_line(d),
+        _prey_patch_line(d) + "  (Skellam 1951; lethal surroundings)",
+    ]
+    return lines
+
+
+# --- start totals and warnings (issue 12) --------------------------------------------
+def start_and_warnings(setup, d: dict) -> dict:
+    """``start`` (animals at t = 0, per release) and ``warnings`` (possible slips)."""
+    from preyscape.plausibility import plausibility_warnings, start_totals
+
+    return {"start": start_totals(setup),
+            "warnings": [w.as_dict() for w in plausibility_warnings(setup, d)]}
+
+
+def _animals(x: float) -> str:
+    return f"{x:.4g} animal{'' if x == 1 else 's'}"
+
+
+def start_warning_lines(d: dict) -> list[str]:
+    """The start totals, each release, and the warnings, clearly marked."""
+    from preyscape.plausibility import CheckWarning
+
+    st = d["start"]
+    pred = "" if st["predator"] is None else f", predator {_animals(st['predator'])}"
+    lines = [f"start totals        prey {_animals(st['prey'])}{pred} (in "
+             f"{st['cells']} cells with data)"]
+    for r in st["releases"]:
+        lines.append(f"released            {r['key']}: {_animals(r['animals'])} ({r['species']}) "
+                     f"in {r['cells']} cell{'' if r['cells'] == 1 else 's'}")
+    ws = d["warnings"]
+    if ws:
+        lines.append(f"WARNINGS            {len(ws)}: the scenario is valid and runs, but check "
+                     "these values (a slip of units?)")
+        lines += [f"  WARNING {CheckWarning(**w).line()}" for w in ws]
+    return lines
 
 
 def _fmt(x, unit: str = "", digits: int = 4) -> str:
@@ -49,7 +149,8 @@ def check_lines(path: Path, d: dict) -> list[str]:
     g = d["grid"]
     eq = d["equilibrium"]
     b = d["best_habitat"]
-    lines = [
+    prey_only = "predator" not in d.get("species", ("prey", "predator"))
+    lines = _prey_only_lines(path, d) if prey_only else [
         f"scenario            {path}",
         f"grid                {g['rows']} rows x {g['cols']} cols, cell {g['cell_size_m'][0]:g}"
         f" x {g['cell_size_m'][1]:g} m, extent {g['extent_km'][0]:.3g} x "
@@ -69,12 +170,13 @@ def check_lines(path: Path, d: dict) -> list[str]:
     if d["hopf_capacity"] is not None:
         lines.append(f"Hopf capacity       K_H = {_fmt(d['hopf_capacity'], 'per km²')} "
                      "(oscillations where K > K_H; Rosenzweig 1971)")
-    cp, cq = d["critical_patch_prey"], d["critical_patch_predator"]
-    lines += [
-        f"prey front speed    {_best_speed(d, 'prey')}",
-        f"predator front      {_best_speed(d, 'predator')}",
-        f"critical patch      prey: strip {_fmt(cp['strip_width'], 'km')}, square side "
-        f"{_fmt(cp['square_side'], 'km')}, disc radius {_fmt(cp['disc_radius'], 'km')}",
+    cq = d["critical_patch_predator"]
+    lines += [] if prey_only else [
+        _prey_front_line(d),
+        _predator_front_line(d),
+        _prey_patch_line(d),
+        "                    predator: none (predators cannot grow even in prey at capacity)"
+        if _cannot_grow(d["predator_growth_at_capacity"]) else
         f"                    predator (prey at K): strip {_fmt(cq['strip_width'], 'km')}, "
         f"square side {_fmt(cq['square_side'], 'km')}, disc radius "
         f"{_fmt(cq['disc_radius'], 'km')}  (Skellam 1951; lethal surroundings)",
@@ -146,19 +248,6 @@ def _wrap(head: str, text: str) -> list[str]:
     import textwrap
 
     return textwrap.wrap(text, _WIDTH, initial_indent=f"{head:<20}", subsequent_indent=_INDENT)
-
-
-def _best_speed(d: dict, sp: str) -> str:
-    """The best-habitat speed, or in words why there is none (never a bare "0 km/yr")."""
-    v = d[f"{sp}_front_speed"]
-    if v is None or not math.isfinite(v):
-        return "not defined: prey without a carrying capacity (Lotka–Volterra)"
-    if v <= 0:
-        return ("none: prey cannot grow even in the best habitat" if sp == "prey" else
-                "none: predators cannot grow even on prey at capacity in the best habitat "
-                "(e a K/(1 + a h K) ≤ m)")
-    return _fmt(v, "km/yr") + (" (Fisher–KPP 2√(rD), best habitat)" if sp == "prey" else
-                               " into prey at capacity (Dunbar 1983, best habitat)")
 
 
 def _growth_cell(g) -> str:
@@ -236,25 +325,29 @@ def landscape_lines(d: dict) -> list[str]:
     invasion speed (``docs/method.md``, "Predictions for a mixed landscape").
     """
     rec = d["landscape"]
+    species = [sp for sp in ("prey", "predator") if sp in d.get("species", ("prey", "predator"))]
     unit = "band" if rec["basis"] == "suitability" else "class"
     width = max([len(unit)] + [len(c["name"]) for c in rec["classes"]]) + 2
     lines = _wrap(f"growth per {unit}", "growth rate at low density, per year; > 0 source, "
-                  "≤ 0 sink; predators with prey at each class's capacity")
-    lines.append(f"{_INDENT}{unit:<{width}}{'share':>7}  {'patch':>9}  {'prey':<14}predator")
+                  "≤ 0 sink" + ("; predators with prey at each class's capacity"
+                               if "predator" in species else ""))
+    lines.append(f"{_INDENT}{unit:<{width}}{'share':>7}  {'patch':>9}  "
+                 + "".join(f"{sp:<14}" for sp in species).rstrip())
     for c in rec["classes"]:
         patch = "n/a" if c["patch_km"] is None else f"{c['patch_km']:.3g} km"
         lines.append(f"{_INDENT}{c['name']:<{width}}{100 * c['share']:>5.1f} %  {patch:>9}  "
-                     f"{_growth_cell(c['prey_growth']):<14}{_growth_cell(c['predator_growth'])}")
+                     + "".join(f"{_growth_cell(c[f'{sp}_growth']):<14}"
+                               for sp in species).rstrip())
     sinks = []
-    for sp in ("prey", "predator"):
+    for sp in species:
         share = rec[sp]["sink_share"]
         if all(c[f"{sp}_growth"] is None for c in rec["classes"]):
             share = None  # growth not defined (predators on prey without a capacity)
         sinks.append(f"{sp} {'n/a' if share is None else f'{100 * share:.1f} %'}")
     lines.append(f"{'sink share':<20}" + ", ".join(sinks) + " of the landscape")
-    for sp in ("prey", "predator"):
+    for sp in species:
         lines += _wrap(f"{sp} growth", rec[sp]["verdict"])
-    for sp in ("prey", "predator"):
+    for sp in species:
         lines += _species_speed(d, sp)
     note = (("Habitat as in the class table" if rec["basis"] == "classes" else
              "Suitability in bands of 0.1, each taken at its mean")

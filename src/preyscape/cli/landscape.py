@@ -174,6 +174,10 @@ def add_parsers(sub) -> None:
                     help="parameter set: small mammals (default), larger mammals or "
                          "invertebrates")
     st.add_argument("--values", choices=("classes", "suitability"), help=_VALUES_HELP)
+    st.add_argument("--prey-only", action="store_true",
+                    help="prey alone: no predator; prey released near the centre on empty land")
+    st.add_argument("--edge", choices=("closed", "hostile"), default="closed",
+                    help="what lies beyond the map edge: closed (default) or hostile (lethal)")
     st.add_argument("--overwrite", action="store_true", help="replace an existing file")
     st.set_defaults(handler=_starter)
 
@@ -314,7 +318,7 @@ def _starter(args) -> int:
     from preyscape.starter import PAIRS, write_starter
 
     r = write_starter(args.raster, args.out, pair=args.pair, values=args.values,
-                      overwrite=args.overwrite)
+                      prey_only=args.prey_only, edge=args.edge, overwrite=args.overwrite)
     g = r["grid"]
     print(f"raster:   {args.raster} ({r['kind']}, {g.ny} x {g.nx} cells of {g.dx:g} m, "
           f"{g.n_cells} with data)")
@@ -322,7 +326,10 @@ def _starter(args) -> int:
         print(f"{'code':>6}  {'cells':>9}  {'share':>7}  class")
         for c in r["classes"]:
             print(f"{c['code']:>6}  {c['cells']:>9}  {100 * c['share']:6.2f}%  {c['name']}")
-    print(f"scenario: {r['out']} ({PAIRS[args.pair].title})")
+    title = PAIRS[args.pair].title
+    if args.prey_only:
+        title = f"{PAIRS[args.pair].prey} alone, no predator"
+    print(f"scenario: {r['out']} ({title})")
     print(f"next:     preyscape check {r['out']}   then   preyscape run {r['out']}")
     print(CAUTION)
     return 0

@@ -46,6 +46,11 @@ def summary(folder: Path) -> list[str]:
     if info.get("variant", "baseline") != "baseline" or info.get("measures"):
         ms = ", ".join(m["name"] for m in info.get("measures", [])) or "none"
         lines.append(f"  variant {info.get('variant', 'baseline')}; measures: {ms}")
+    for sp, tot in (info.get("totals_animals") or {}).items():
+        lines.append(f"  {sp}: {tot['start']:.4g} animals at the start, {tot['end']:.4g} at the "
+                     f"end (t = {info['years']:g} yr)")
+    if info.get("species_present") == ["prey"]:
+        lines.append("  no predator in this scenario")
     lines.append("  results.nc, summary/*.tif, maps/*.png, run.json")
     return lines
 

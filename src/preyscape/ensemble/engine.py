@@ -276,7 +276,8 @@ def _prepare_folder(plan: EnsemblePlan, out: Path, overwrite: bool) -> MemberSto
                  "seed": plan.design.seed, "presence": plan.presence,
                  "arrival_thresholds": json.dumps(plan.thresholds),
                  "species_names": json.dumps({"prey": sc.prey.name,
-                                              "predator": sc.predator.name}),
+                                              "predator": sc.predator.name
+                                              if sc.has_predator else None}),
                  "Conventions": "CF-1.8"}
         store = MemberStore.create(path, grid=_grid_of(sc), variants=list(plan.variants),
                                    design=plan.design, times=plan.times, attrs=attrs)

@@ -31,7 +31,7 @@ from pathlib import Path
 import numpy as np
 
 from preyscape.analysis.change import window_statistics
-from preyscape.assemble import Setup, epoch_state, interaction_of, prepare
+from preyscape.assemble import Setup, _predator, epoch_state, interaction_of, prepare
 from preyscape.ensemble.design import rebuild_of
 from preyscape.errors import FileProblem
 from preyscape.landscape.placed import combine
@@ -157,8 +157,8 @@ def derive_setup(land: VariantLandscape, sc: Scenario) -> Setup:
         fields, mv_n, mv_p, refuge = epoch_state(setup, base.epochs[0][2])
     elif "fields" in need:
         fields = build_fields(land.start_multipliers, grid.mask, sc.prey.growth,
-                              sc.prey.capacity, sc.predator.mortality,
-                              sc.prey.move_coefficient, sc.predator.move_coefficient,
+                              sc.prey.capacity, _predator(sc).mortality,
+                              sc.prey.move_coefficient, _predator(sc).move_coefficient,
                               inter.logistic)
     if "start" in need:
         N0, P0 = initial_state(sc, grid, fields)

@@ -735,23 +735,28 @@ def map_panels(grid: Grid, layers: Sequence[tuple[str, np.ndarray]], title: str,
     return _save(fig, path)
 
 
-def totals_plot(time: np.ndarray, prey: np.ndarray, predator: np.ndarray,
+def totals_plot(time: np.ndarray, prey: np.ndarray, predator: np.ndarray | None,
                 names: dict[str, str], path: Path, *, run: str | None = None) -> Path:
-    """Landscape totals of both species against time (years)."""
+    """Landscape totals of both species (``predator`` None: prey alone) against time (years)."""
     fig = _new((7.0, 3.8))
     ax = fig.add_subplot()
     ax.plot(time, prey, color="#2a788e", label=f"prey ({names.get('prey') or 'prey'})")
     ax.set_xlabel("time (years)")
     ax.set_ylabel("prey in the landscape (animals)", color="#2a788e")
+    run = run if run is not None else _current().run
+    suffix = f" — run: {run}" if run else ""
+    if predator is None:
+        ax.set_title(f"Animals in the whole landscape (no predator in this scenario){suffix}",
+                     fontsize=10)
+        fig.tight_layout()
+        return _save(fig, path)
     ax2 = ax.twinx()
     ax2.plot(time, predator, color="#b5367a", ls="--",
              label=f"predator ({names.get('predator') or 'predator'})")
     ax2.set_ylabel("predators in the landscape (animals)", color="#b5367a")
     lines = ax.get_lines() + ax2.get_lines()
     ax.legend(lines, [ln.get_label() for ln in lines], loc="upper right", fontsize=8)
-    run = run if run is not None else _current().run
-    ax.set_title("Animals in the whole landscape" + (f" — run: {run}" if run else ""),
-                 fontsize=10)
+    ax.set_title(f"Animals in the whole landscape{suffix}", fontsize=10)
     fig.tight_layout()
     return _save(fig, path)
 

@@ -5,7 +5,8 @@ the time-mean density of each species in every run, on ONE colour scale per
 species shared by all panels (so equal colours mean equal densities), each
 panel with its own run's measures; and, unless a comparison already gives the
 answer (a part of place ``answer``, such as a ranking), a table of the
-alternatives at a glance.
+alternatives at a glance. Only the species every run models are shown (no
+predator maps or columns for runs of prey alone).
 """
 
 from __future__ import annotations
@@ -15,8 +16,8 @@ from pathlib import Path
 
 import numpy as np
 
+from preyscape.analysis.compare import shared_species
 from preyscape.analysis.output import Figure, Paragraph, Part, Table
-from preyscape.store import SPECIES
 
 __all__ = ["alternatives_parts"]
 
@@ -37,19 +38,21 @@ def _glance(run, others: Sequence, outputs: Sequence) -> Table:
         rec = getattr(out, "record", None) or {}
         if rec.get("variant_b") is not None:
             by_label[rec["variant_b"]] = out
-    base = {sp: run.mean_total(sp) for sp in SPECIES}
-    rows = [(f"{run.label} (reference)", "—", round(base["prey"]), None,
-             round(base["predator"]), None, None)]
+    species = shared_species([run, *others])
+    base = {sp: run.mean_total(sp) for sp in species}
+    rows = [(f"{run.label} (reference)", "—", *(v for sp in species for v in (
+        round(base[sp]), None)), None)]
     for o in others:
-        tot = {sp: o.mean_total(sp) for sp in SPECIES}
+        tot = {sp: o.mean_total(sp) for sp in species}
         change = {sp: (100 * (tot[sp] - base[sp]) / base[sp] if base[sp] else None)
-                  for sp in SPECIES}
+                  for sp in species}
         area = _changed_area(by_label[o.label]) if o.label in by_label else None
-        rows.append((o.label, difference_words(run, o), round(tot["prey"]), change["prey"],
-                     round(tot["predator"]), change["predator"], area))
+        rows.append((o.label, difference_words(run, o),
+                     *(v for sp in species for v in (round(tot[sp]), change[sp])), area))
     names = run.species_names
-    return Table(("alternative", "what it changes", f"{names['prey']} on average (animals)",
-                  "change (%)", f"{names['predator']} on average (animals)", "change (%)",
+    return Table(("alternative", "what it changes",
+                  *(h for sp in species for h in (f"{names[sp]} on average (animals)",
+                                                  "change (%)")),
                   "area where the outcome changes (km²)"), tuple(rows),
                  caption="The alternatives at a glance: animals in the whole landscape, "
                          "averaged over the run, against the reference",
@@ -84,7 +87,7 @@ def alternatives_parts(run, others: Sequence, outputs: Sequence, work: Path, *,
         "Each alternative's average density over the run, one map per alternative. Each "
         "species has one colour scale shared by all its maps, so equal colours mean equal "
         "densities; each map shows that alternative's own measures.")]
-    for sp in SPECIES:
+    for sp in shared_species(runs):
         layers = [(f"{r.label}" + (" (reference)" if r is run else ""), r.time_mean(sp))
                   for r in runs]
         top = max(float(np.nanmax(v, initial=0.0)) for _, v in layers) or 1.0

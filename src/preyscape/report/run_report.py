@@ -53,8 +53,8 @@ from preyscape.analysis.output import (
     Table,
     provenance,
 )
+from preyscape.analysis.results import NO_PREDATOR
 from preyscape.errors import InputError
-from preyscape.store import SPECIES
 
 __all__ = ["SOURCES", "render_part", "write_report"]
 
@@ -124,14 +124,18 @@ def render_part(rep, part: Part) -> None:
 def _species_facts(run) -> list[tuple[str, str]]:
     st = run.info.get("settings") or {}
     facts = []
-    for sp in SPECIES if st else ():
+    for sp in run.species if st else ():
         s = st.get(sp) or {}
         coef = s.get("diffusivity") if s.get("movement") == "fickian" else s.get("motility")
         what = "diffusivity" if s.get("movement") == "fickian" else "motility"
         rate = (f"growth {s.get('growth')} /yr, capacity {s.get('capacity')} per km²"
                 if sp == "prey" else f"mortality {s.get('mortality')} /yr")
         facts.append((_name(run, sp), f"{rate}; {s.get('movement')} movement, {what} "
-                                      f"{coef} km²/yr (best habitat)"))
+                                      f"{coef} km²/yr (best habitat)"
+                       + _extinction_text(run, sp)))
+    if "predator" not in run.species:
+        facts.append(("predator", NO_PREDATOR))
+        return facts
     it = st.get("interaction") or {}
     if it:
         facts.append(("interaction", f"{it.get('form')}: attack rate {it.get('attack_rate')} "
@@ -140,8 +144,31 @@ def _species_facts(run) -> list[tuple[str, str]]:
     return facts
 
 
+def _extinction_text(run, sp: str) -> str:
+    """The species' extinction threshold as recorded in ``run.json``, or ""."""
+    ex = (run.info.get("extinction") or {}).get(sp)
+    if not ex:
+        return ""
+    return (f"; extinction threshold {ex['per_km2']:.4g} per km² ({ex['per_cell']:.4g} "
+            "per cell): lower densities were set to zero after every step")
+
+
+def _extinction_facts(run) -> list[tuple[str, str]]:
+    """What the extinction thresholds removed, once for the run (none: no fact)."""
+    if not any((run.info.get("extinction") or {}).values()):
+        return []
+    removed = run.info.get("extinction_removed_animals") or 0.0
+    return [("extinction thresholds", f"{removed:.4g} animals removed over the run (all "
+             "species). A threshold removes populations that would otherwise recover from a "
+             "fraction of an animal (common practice); it also slows invasion fronts a little "
+             "(Brunet & Derrida 1997, Phys Rev E 56:2597).")]
+
+
 def _prediction_facts(run) -> list[tuple[str, str]]:
     pr = run.predictions
+    if "predator" not in run.species:
+        return [("predicted front speed", "prey into empty habitat "
+                 f"{_num(pr.get('prey_front_speed'), 'km/yr')} (Fisher–KPP 2√(rD))")]
     eq = pr.get("equilibrium") or [None, None]
     stable = pr.get("stable")
     return [
@@ -183,7 +210,9 @@ def _landscape_facts(pr: dict) -> list[tuple[str, str]]:
             ("where each species can grow", " ".join(growth))]
 
 
-def _measure_rows(measures: list[dict]) -> list[list]:
+def _measure_rows(measures: list[dict], species: Sequence[str] = ("prey", "predator"),
+                  ) -> list[list]:
+    """One table row per measure; settings of species the run does not model are left out."""
     rows = []
     for m in measures:
         size = f"{m['area_km2']:.3g} km²" if "area_km2" in m else ""
@@ -192,11 +221,12 @@ def _measure_rows(measures: list[dict]) -> list[list]:
         end = "end" if m.get("end_year") is None else f"{m['end_year']:g}"
         if m["kind"] == "fence":
             p = m.get("permeability", {})
-            detail = (f"permeability prey {p.get('prey')}, predator {p.get('predator')}; "
-                      f"{len(m.get('gaps', []))} gaps")
+            detail = ("permeability " + ", ".join(f"{sp} {p.get(sp)}" for sp in species)
+                      + f"; {len(m.get('gaps', []))} gaps")
         elif m["kind"] == "refuge":
             detail = (f"{m.get('protected_fraction')} of prey protected"
-                      + ("; closed to predators" if m.get("closed_to_predators") else ""))
+                      + ("; closed to predators" if m.get("closed_to_predators")
+                         and "predator" in species else ""))
         else:
             detail = ", ".join(f"{k} = {v}" for k, v in (m.get("sets") or {}).items())
         rows.append([m["name"], m["kind"], f"{m['start_year']:g}–{end}", size, detail])
@@ -216,17 +246,17 @@ def _settings_part(run) -> Part:
                            f"{info['save_every_years']:g} yr ({info['snapshots']} snapshots)"),
         ("time step", f"{info['step_years']:.4g} yr ({info['steps']} steps, scheme "
                       f"{info.get('scheme')})"),
-        *_species_facts(run), *_prediction_facts(run),
+        *_species_facts(run), *_extinction_facts(run), *_prediction_facts(run),
         ("computed with", f"preyscape {info.get('preyscape_version')} in "
                           f"{info.get('wall_time_s')} s; finished {info.get('finished')}"),
     )
     blocks: list = [Facts(facts)]
     if run.measures:
         blocks.append(Table(("measure", "kind", "years", "size", "settings"),
-                            tuple(tuple(r) for r in _measure_rows(run.measures)),
+                            tuple(tuple(r) for r in _measure_rows(run.measures, run.species)),
                             caption="Measures in this run"))
         for t in run.info.get("fence_topology") or []:  # leaky fences, checked before the run
-            if t.get("warning"):
+            if t.get("warning") and t.get("species", "prey") in run.species:
                 blocks.append(Paragraph(t["warning"]))
     else:
         blocks.append(Paragraph("This run has no corridors, fences or refuges."))
@@ -249,8 +279,11 @@ def _maps_part(run, gif: Path | None) -> Part:
         if (maps / f).is_file():
             blocks.append(Figure(maps / f, cap, cap))
     if gif is not None and gif.is_file():
-        blocks.append(Figure(gif, "Animation of both species (each on one colour scale for "
-                             "the whole run)", "animated maps of prey and predator density"))
+        both = "predator" in run.species
+        blocks.append(Figure(gif, ("Animation of both species (each on one colour scale for "
+                                   "the whole run)") if both else "Animation of the prey (on one "
+                             "colour scale for the whole run)", "animated maps of "
+                             f"{'prey and predator' if both else 'prey'} density"))
     return Part(f"Maps of {run.label}", tuple(blocks), "maps")
 
 
@@ -262,11 +295,12 @@ def _colonisation_parts(other) -> list[Part]:
     if not targets:
         return []
     settings = other.settings()
-    thr = {sp: settings.arrival_threshold(sp) for sp in SPECIES}
-    rows = tuple((t.name, t.years.get("prey"), t.years.get("predator"))
+    thr = {sp: settings.arrival_threshold(sp) for sp in other.species}
+    rows = tuple((t.name, *(t.years.get(sp) for sp in thr))
                  for t in colonisation(other.ds, targets, thr, COLONISED_SHARE))
+    what = {"prey": "prey", "predator": "predators"}
     return [Part(f"Colonisation in {other.label}", (Table(
-        ("target patch", "prey colonised (year)", "predators colonised (year)"), rows),))]
+        ("target patch", *(f"{what[sp]} colonised (year)" for sp in thr)), rows),))]
 
 
 def _run_analyses(run, others: Sequence, work: Path) -> list:
@@ -366,6 +400,7 @@ def _parts(run, others: Sequence, work: Path, animate: bool,
         if animate:
             with map_context(**run.map_layers()):
                 gif = animate_run(run.grid, run.times, run.frame, work / "animation.gif",
+                                  species=run.species,
                                   names=run.species_names, title=run.title,
                                   max_frames=REPORT_FRAMES, scale="auto",
                                   floor=run.settings().presence)
@@ -377,11 +412,22 @@ def _parts(run, others: Sequence, work: Path, animate: bool,
         parts += o.report_parts()
     for other in others:
         parts += _colonisation_parts(other)
-    parts += [model_part(run), _settings_part(run),
-              Part("Sources", (Paragraph(
-                  "preyscape solves reaction–diffusion equations for the densities of both "
-                  "species on the habitat raster (Strang splitting of the local interaction "
-                  "and movement; Peaceman–Rachford ADI for movement). See docs/method.md for "
-                  "the equations and the published checks in the test suite."),
-                  Bullets(tuple(SOURCES))), "sources", place="method")]
+    parts += [model_part(run), _settings_part(run), _sources_part(run)]
     return parts
+
+
+PREDATOR_SOURCES = ("Lotka–Volterra", "Holling", "Predator")
+"""How the sources that concern predators begin (left out for a run of prey alone)."""
+
+
+def _sources_part(run) -> Part:
+    """How the model is solved and the published sources (place ``method``)."""
+    both = "predator" in run.species
+    sources = [s for s in SOURCES if both or not s.startswith(PREDATOR_SOURCES)]
+    return Part("Sources", (Paragraph(
+        "preyscape solves reaction–diffusion equations for the densities of "
+        + ("both species" if both else "the prey") + " on the habitat raster (Strang "
+        "splitting of the local " + ("interaction" if both else "growth") + " and movement; "
+        "Peaceman–Rachford ADI for movement). See docs/method.md for the equations and the "
+        "published checks in the test suite."), Bullets(tuple(sources))), "sources",
+        place="method")

@@ -66,8 +66,9 @@ def run_sentence(run, others: Sequence) -> str:
     g = info["grid"]
     dx, dy = g["cell_size_m"]
     area = g["cells_with_data"] * dx * dy / 1e6
-    text = (f"This report looks at {info['years']:g} years of {_name(run, 'prey')} (the prey) "
-            f"and {_name(run, 'predator')} (the predator) on {run.title}: "
+    who = (f"{_name(run, 'prey')} (the prey) and {_name(run, 'predator')} (the predator)"
+           if "predator" in run.species else f"{_name(run, 'prey')} (the prey, on its own)")
+    text = (f"This report looks at {info['years']:g} years of {who} on {run.title}: "
             f"{area:.3g} km² of habitat, mapped in cells of {dx:g} × {dy:g} m. The reference "
             f"run, '{run.label}', has {_measure_list(run.measures)}.")
     if others:
@@ -84,7 +85,7 @@ def _fallback_headline(out, names: dict) -> str | None:
     if not tot:
         return None
     bits = []
-    for sp in SPECIES:
+    for sp in (sp for sp in SPECIES if sp in tot):  # the species the record holds
         a, b = (tot.get(sp) or {}).get("a"), (tot.get(sp) or {}).get("b")
         if a and b is not None and math.isfinite(a) and math.isfinite(b):
             bits.append(f"{b:,.0f} instead of {a:,.0f} {names.get(sp, sp)} ({sp}) on average "
@@ -193,7 +194,13 @@ MOVES = {
 
 
 def model_part(run) -> Part:
-    """The model explained for a modeller (place ``method``): equations, forms, predictions."""
+    """The model explained for a modeller (place ``method``): equations, forms, predictions.
+
+    A run of prey alone gets the prey's equation and prediction only
+    (:func:`_prey_model_part`).
+    """
+    if "predator" not in run.species:
+        return _prey_model_part(run)
     st = run.info.get("settings") or {}
     it = st.get("interaction") or {}
     pr = run.predictions
@@ -226,6 +233,32 @@ def model_part(run) -> Part:
               Table(("prediction", "value", "meaning"), tuple(rows),
                     caption="Predictions of published theory for the best habitat; the "
                             "analyses above set their results against them"))
+    return Part("How the model works", blocks, "model", place="method")
+
+
+def _prey_model_part(run) -> Part:
+    """The model of a run of prey alone: growth and movement, and the front speed."""
+    st = run.info.get("settings") or {}
+    form = (st.get("interaction") or {}).get("form")
+    growth = ("exponential growth: g(N) = r·N, without a limit (the form 'lotka-volterra')"
+              if form == "lotka-volterra" else
+              "logistic growth: g(N) = r·N·(1 − N/K), which slows as the density nears the "
+              "habitat's capacity K (Verhulst 1838, from memory)")
+    facts = [("equation", "dN/dt = movement of prey + g(N) (N prey per km², per cell)"),
+             ("growth", growth)]
+    mv = (st.get("prey") or {}).get("movement")
+    if mv in MOVES:
+        facts.append(("movement of prey", MOVES[mv]))
+    rows = (("prey front speed (km/yr)", run.predictions.get("prey_front_speed"),
+             "Fisher–KPP minimal speed 2√(rD) of prey spreading into empty habitat (Fisher "
+             "1937; Kolmogorov, Petrovsky & Piskunov 1937)"),)
+    blocks = (Paragraph("How the model works. Each cell of the habitat map holds a density "
+                        "of prey; the population grows in each cell and moves between "
+                        "neighbouring cells. This scenario models the prey on its own."),
+              Facts(tuple(facts)),
+              Table(("prediction", "value", "meaning"), rows,
+                    caption="Prediction of published theory for the best habitat; the "
+                            "analyses above set their results against it"))
     return Part("How the model works", blocks, "model", place="method")
 
 

@@ -38,6 +38,7 @@ import numpy as np
 from preyscape.model.movement import Movement
 from preyscape.model.reactions import Interaction
 from preyscape.solve import kernels
+from preyscape.solve.extinction import apply_thresholds
 
 SCHEMES = ("adi", "implicit-euler", "explicit")
 
@@ -57,6 +58,7 @@ class StepStats:
 
     steps: int = 0
     clipped: float = 0.0
+    floored: float = 0.0  # density removed by extinction thresholds, animals/km² over cells
 
 
 @dataclass
@@ -88,6 +90,10 @@ class Stepper:
     reaction_substeps : int
         Reaction substeps per reaction step (1: plain RK4 where safe; more:
         RK4 on log densities with that many substeps).
+    extinction : tuple of float, optional
+        Prey and predator densities below which a cell is set to zero at the
+        end of every :meth:`advance` (the run loop advances from save point to
+        save point), animals/km² (0: none); see :mod:`preyscape.solve.extinction`.
     """
 
     mask: np.ndarray
@@ -103,6 +109,7 @@ class Stepper:
     damping_steps: int = 2
     reaction_substeps: int = 1
     stats: StepStats = field(default_factory=StepStats)
+    extinction: tuple[float, float] | None = None
 
     def __post_init__(self) -> None:
         if self.scheme not in SCHEMES:
@@ -110,12 +117,18 @@ class Stepper:
         if not (self.dt > 0 and math.isfinite(self.dt)):
             raise ValueError("dt must be a positive number of years")
         shape = self.mask.shape
-        self.mask = np.ascontiguousarray(self.mask, dtype=np.bool_)
+        self.mask = np.require(self.mask, dtype=np.bool_, requirements=["C", "A", "W"])
 
         def full(v):
             # per-cell parameters are stored as float32 (7 significant digits, far
-            # beyond any habitat parameter); all arithmetic is float64
-            return np.ascontiguousarray(np.broadcast_to(v, shape), dtype=np.float32)
+            # beyond any habitat parameter); all arithmetic is float64. Always a
+            # writable C array (a float32 field is used as it is, not copied): the
+            # kernels are compiled for exactly that type, and a read-only view (as
+            # np.broadcast_to gives) would compile them a second time
+            a = np.asarray(v)
+            if a.shape != shape:
+                a = np.broadcast_to(a, shape)
+            return np.require(a, dtype=np.float32, requirements=["C", "A", "W"])
 
         self.r, self.inv_K, self.m = full(self.r), full(self.inv_K), full(self.m)
         if self.refuge is None or np.ndim(self.refuge) == 0:
@@ -158,8 +171,6 @@ class Stepper:
         self._neg = (np.zeros(shape[1]), np.zeros(shape[1]))
         self._neg_rows = (np.zeros(shape[0]), np.zeros(shape[0]))
         self._tot = np.zeros(shape[0])
-        self._bands = kernels.n_bands(shape[0])
-        self._bands_t = kernels.n_bands(shape[1])
         # the explicit half of Peaceman-Rachford is positive while tau*dg <= 1
         self._may_undershoot = self.scheme == "adi" and any(
             tau * max(mv.max_rate_along()) > 1.0 for mv in self._mv
@@ -180,7 +191,7 @@ class Stepper:
             self.m, it.attack_rate, it.h, it.c, it.efficiency, self._refuge,
             0.5 * self.dt, tau_e,
             cxn, cyn, wn, ivn, cxp, cyp, wp, ivp,
-            self._neg_rows[0], self._neg_rows[1], self._bands,
+            self._neg_rows[0], self._neg_rows[1], False,
         )
 
     def _pass2(self, N, P, tau_e: float, fix: bool) -> None:
@@ -192,7 +203,7 @@ class Stepper:
             it.attack_rate, it.h, it.c, it.efficiency, self._refuge,
             0.5 * self.dt, tau_e,
             aln, acn, wn, ivn, alp, acp, wp, ivp,
-            self._neg[0], self._neg[1], self._bands_t,
+            self._neg[0], self._neg[1], fix,
         )
         if fix:
             for u, neg in zip((N, P), self._neg, strict=True):
@@ -233,6 +244,8 @@ class Stepper:
                 self._explicit_move(P, 1)
                 self._react(N, P, half)
                 self.stats.steps += 1
+            if self.extinction is not None:  # a census: see solve/extinction.py
+                self.stats.floored += apply_thresholds(N, P, self.extinction, self._tot)
             return
         for s in range(n):
             dt_r = half if s == 0 else self.dt
@@ -248,6 +261,8 @@ class Stepper:
                 self._pass2(N, P, half, self._may_undershoot)
             self.stats.steps += 1
         self._react(N, P, half)
+        if self.extinction is not None:  # a census: see solve/extinction.py
+            self.stats.floored += apply_thresholds(N, P, self.extinction, self._tot)
 
     def step(self, N: np.ndarray, P: np.ndarray, index: int) -> None:
         """Advance ``N`` and ``P`` by one Strang step, in place (see :meth:`advance`)."""
