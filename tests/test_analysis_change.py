@@ -213,5 +213,5 @@ def test_window_statistics_stream_the_snapshots(tmp_path):
         lambda: (u for _, u in frames(ds, "predator")), presence=1.0, zones=[zones]))
     assert results[40].snapshots == 40 and results[40].zone_sums[0].shape == (40, 2)
     assert np.nanmax(results[40].margin) > 0
-    assert peaks[40] < 1.2 * peaks[10]
+    assert peaks[40] < 1.5 * peaks[10]
     assert peaks[40] - peaks[10] < 3 * grid_bytes

@@ -198,5 +198,5 @@ def test_fluxes_and_colonisation_stream_the_snapshots(tmp_path):
     assert flows[0][10] > 0 and flows[1][18] > 0 and flows[1][10] < 0.01 * flows[0][10]
     # half of 20 per km² reaches the target's mean column (x = 10.45 km) at t = 6.3
     assert found[0].years["predator"] == pytest.approx((10.45 - 1.0) / 1.5, abs=0.1)
-    assert peaks[40] < 1.2 * peaks[10]
+    assert peaks[40] < 1.5 * peaks[10]
     assert peaks[40] - peaks[10] < 3 * grid_bytes

@@ -391,5 +391,5 @@ def test_hotspots_of_run_memory_does_not_grow_with_the_snapshots(tmp_path):
         hotspots_of_run(ds, sp, band_m=350.0) for sp in ("prey", "predator")])
     assert results[40][0].snapshots == 40 and results[10][0].snapshots == 10
     assert np.nanmax(results[40][1].persistence) > 0  # the front is a hotspot at times
-    assert peaks[40] < 1.2 * peaks[10]
+    assert peaks[40] < 1.5 * peaks[10]
     assert peaks[40] - peaks[10] < 3 * grid_bytes

@@ -53,6 +53,7 @@ __all__ = [
     "SampledTransect",
     "TransectSeries",
     "WaveSummary",
+    "arrival_and_profiles",
     "arrival_time",
     "arrival_time_of_run",
     "front_position",
@@ -203,6 +204,46 @@ def arrival_time_of_run(ds, species: str, threshold: float) -> np.ndarray:
     """
     mask = np.asarray(ds["mask"].values).astype(bool) if "mask" in ds else None
     return arrival_time(_frames_of(ds, species), _times_of(ds), threshold, mask=mask)
+
+
+def arrival_and_profiles(ds, species: str, threshold: float,
+                         transects: Sequence[SampledTransect] = (),
+                         ) -> tuple[np.ndarray | None, list[TransectSeries]]:
+    """:func:`arrival_time_of_run` and :func:`transect_series` from one read of each snapshot.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        An opened ``results.nc``.
+    species : {"prey", "predator"}
+        Which density.
+    threshold : float
+        Density that counts as arrived, animals/km²; not finite: no arrival times.
+    transects : sequence of SampledTransect
+        Where to take profiles (none: no profiles).
+
+    Returns
+    -------
+    arrival : numpy.ndarray or None
+        Arrival time per cell, years (None if ``threshold`` is not finite).
+    series : list of TransectSeries
+        One per transect.
+    """
+    from preyscape.analysis.transects import Profiles
+    from preyscape.store import frames
+
+    clock = ArrivalClock(threshold) if math.isfinite(threshold) else None
+    keep = Profiles(transects, species) if transects else None
+    if clock is None and keep is None:
+        return None, []
+    times = _times_of(ds)
+    for k, frame in frames(ds, species, range(times.size), raw=True):
+        for taker in (clock, keep):
+            if taker is not None:
+                taker.add(frame, times[k])
+    mask = np.asarray(ds["mask"].values).astype(bool) if "mask" in ds else None
+    return (None if clock is None else clock.result(mask),
+            [] if keep is None else keep.result())
 
 
 # ---------------------------------------------------------------------------

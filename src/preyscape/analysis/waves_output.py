@@ -376,9 +376,7 @@ def write_waves(run, out: str | Path, *, settings: AnalysisSettings | None = Non
     pred = {sp: float(v) for sp, v in pred.items() if v is not None}
     with output_folder(out, overwrite) as tmp:
         lines, auto = settings.transects, False
-        # given transects are sampled first, so their profiles come from the same pass
-        # over the snapshots as the arrival times
-        trs = _sample(run.grid, lines, auto) if lines else []
+        trs = _sample(run.grid, lines, auto) if lines else []  # profiles read with arrivals
         arrival, arrivals, speeds, files, series = _arrival_maps(tmp, run, settings, trs)
         if not lines:
             line = auto_transect(run.grid, arrivals)
@@ -396,8 +394,7 @@ def write_waves(run, out: str | Path, *, settings: AnalysisSettings | None = Non
 
 def _arrival_maps(tmp: Path, run, settings: AnalysisSettings, trs: Sequence = ()):
     """Arrival-time and local-speed rasters of both species, their key numbers, and the
-    profiles along the sampled transects ``trs`` (species to their series), all from one
-    pass over each species' snapshots."""
+    series along the sampled transects ``trs``: one pass over each species' snapshots."""
     from preyscape.analysis import waves as W
 
     grid = run.grid
@@ -409,7 +406,7 @@ def _arrival_maps(tmp: Path, run, settings: AnalysisSettings, trs: Sequence = ()
         thr = settings.front_threshold(sp, top)
         source = ("given" if settings.threshold(sp) is not None else
                   f"{FRONT_THRESHOLD_SHARE:.0%} of the largest time-mean density")
-        a, series[sp] = _arrival_and_profiles(run, sp, thr, trs)
+        a, series[sp] = W.arrival_and_profiles(run.ds, sp, thr, trs)
         if a is None:  # the species is absent: it never arrives anywhere
             a = np.full(grid.shape, np.nan)
         speed = W.local_front_speed(a, grid.dx, grid.dy)
@@ -430,30 +427,6 @@ def _arrival_maps(tmp: Path, run, settings: AnalysisSettings, trs: Sequence = ()
             occupied / max(grid.n_cells, 1))
         arrivals[sp], speeds[sp] = a, speed
     return arrival, arrivals, speeds, files, series
-
-
-def _arrival_and_profiles(run, sp: str, thr: float, trs: Sequence):
-    """Arrival-time map at ``thr`` (None if it is not finite) and the series along ``trs``
-    of one species, from every snapshot as stored (NaN off data), read once."""
-    from preyscape.analysis import waves as W
-    from preyscape.analysis.transects import Profiles
-    from preyscape.store import frames
-
-    clock = W.ArrivalClock(thr) if math.isfinite(thr) else None
-    keep = Profiles(trs, sp) if trs else None
-    if clock is None and keep is None:
-        return None, []
-    times = run.times
-    for k, frame in frames(run.ds, sp, range(times.size), raw=True):
-        if clock is not None:
-            clock.add(frame, times[k])
-        if keep is not None:
-            keep.add(frame, times[k])
-    a = None
-    if clock is not None:
-        ds = run.ds
-        a = clock.result(np.asarray(ds["mask"].values).astype(bool) if "mask" in ds else None)
-    return a, keep.result() if keep is not None else []
 
 
 def _sample(grid, lines: Sequence[TransectLine], auto: bool) -> list:
