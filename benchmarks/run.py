@@ -3,6 +3,9 @@
     python benchmarks/run.py                 # everything (about 15 minutes on 2 cores)
     python benchmarks/run.py --only step,scaling
     python benchmarks/run.py --json benchmarks/results.json
+    python benchmarks/run.py --only analyses          # the analyses and the report
+
+A subset updates its sections of the JSON file and keeps the others.
 
 Every speed is measured in this process next to its baseline, on this machine;
 targets are in docs/performance.md. Not part of the test suite.
@@ -528,9 +531,209 @@ def bench_compile(quick):
             "explicit_and_clip_cold_s": rare, "target_s": 8.0}
 
 
+ANALYSES_SCENARIO = """title = "Invented benchmark landscape, {n} x {n} cells (no real place)"
+
+[landscape]
+habitat = "habitat.tif"
+values = "classes"
+edge = "closed"
+
+[[landscape.classes]]
+code = 1
+name = "meadow"
+
+[[landscape.classes]]
+code = 2
+name = "scrub"
+prey_capacity = 0.5
+prey_movement = 0.8
+predator_movement = 1.5
+
+[[landscape.classes]]
+code = 3
+name = "woodland"
+prey_capacity = 0.15
+prey_movement = 0.6
+predator_movement = 2.0
+
+[prey]
+growth = 4.0
+capacity = 8000.0
+movement = "fickian"
+diffusivity = 0.5
+
+[predator]
+mortality = 1.0
+movement = "ecological"
+motility = {motility}
+
+[interaction]
+form = "holling-ii"
+attack_rate = 0.25
+handling_time = 0.002
+efficiency = 0.01
+
+[start]
+prey = "capacity"
+
+[[start.releases]]
+x = {rx}
+y = {ry}
+radius = {radius}
+density = 20.0
+
+[run]
+years = {years}
+save_every = {every}
+step = "auto"
+seed = 3
+
+[[measures]]
+name = "central refuge"
+kind = "refuge"
+geometry = "refuge.geojson"
+protected_fraction = 0.7
+baseline = true
+
+[[measures]]
+name = "long fence"
+kind = "fence"
+geometry = "fence.geojson"
+permeability = {{ prey = 1.0, predator = 0.0 }}
+baseline = false
+
+[[variants]]
+name = "fence"
+add = ["long fence"]
+
+[analysis]
+predator_threshold = 1.0
+
+[[analysis.transects]]
+name = "release to east edge"
+points = [[{rx}, {ry}], [{tx}, {ry}]]
+
+[[analysis.targets]]
+name = "east patch"
+geometry = "target.geojson"
+"""
+
+ANALYSES_YEARS = 12.0
+ANALYSES_SNAPSHOTS = 100  # saved after the start (t = 0 is saved too)
+
+
+def _geojson(geometry: dict) -> str:
+    return json.dumps({"type": "FeatureCollection", "features": [
+        {"type": "Feature", "properties": {"note": "invented"}, "geometry": geometry}]})
+
+
+def analyses_scenario(folder: Path, n: int, *, years: float = ANALYSES_YEARS,
+                      snapshots: int = ANALYSES_SNAPSHOTS, cell_m: float = 100.0) -> Path:
+    """An invented n x n landscape with a refuge, a fence variant, a target and a transect.
+
+    Three habitat classes cut from a fractal surface (50, 30, 20 %), vole-like
+    prey at capacity, predators released near the west edge; a refuge in the
+    west, a predator-proof fence across the whole landscape (north to south) at
+    60 % of the width (variant ``fence``), a target patch beyond the fence and
+    a transect from the release to the east edge. The predator motility scales
+    with the landscape's width squared, so the front crosses any size in about
+    the same number of years (it reaches the fence after about 7 of 12).
+    """
+    from preyscape.landscape.make import DEFAULT_CORNER, make_landscape
+
+    folder.mkdir(parents=True, exist_ok=True)
+    make_landscape(folder / "habitat.tif", "fractal", rows=n, cols=n, cell_size=cell_m,
+                   seed=5, fractions=(0.5, 0.3, 0.2), hurst=0.7)
+    x0, y0 = DEFAULT_CORNER
+    width = n * cell_m
+
+    def x(f):
+        return x0 + f * width
+
+    def y(f):
+        return y0 + f * width
+
+    def box(w, s, e, nn):
+        return {"type": "Polygon", "coordinates": [[[x(w), y(s)], [x(e), y(s)], [x(e), y(nn)],
+                                                    [x(w), y(nn)], [x(w), y(s)]]]}
+
+    (folder / "refuge.geojson").write_text(_geojson(box(0.3, 0.4, 0.4, 0.6)))
+    (folder / "target.geojson").write_text(_geojson(box(0.75, 0.45, 0.85, 0.55)))
+    (folder / "fence.geojson").write_text(_geojson(
+        {"type": "LineString", "coordinates": [[x(0.6), y(-0.01)], [x(0.6), y(1.01)]]}))
+    toml = folder / "scenario.toml"
+    toml.write_text(ANALYSES_SCENARIO.format(
+        n=n, motility=5.0 * (width / 100e3) ** 2, rx=x(0.05), ry=y(0.5), tx=x(0.99),
+        radius=2 * cell_m * max(1.0, n / 200), years=years, every=years / snapshots))
+    return toml
+
+
+def _timed_command(argv: list[str]) -> dict:
+    """Run ``preyscape ARGV`` in a fresh process: wall seconds, CPU seconds, peak RSS (MiB)."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    t = time.perf_counter()
+    res = subprocess.run([sys.executable, "-c", RUN_AND_MEASURE, *argv], capture_output=True,
+                         text=True)
+    wall = time.perf_counter() - t
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    if res.returncode != 0:
+        raise RuntimeError(f"preyscape {' '.join(argv)} failed:\n{res.stderr[-2000:]}")
+    cpu = (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)
+    return {"wall_s": wall, "cpu_s": cpu,
+            "peak_MB": float(res.stdout.strip().splitlines()[-1])}
+
+
+def bench_analyses(quick):
+    """Every analysis and the report against the simulation that made the runs.
+
+    A 1000 x 1000 landscape (400 x 400 with --quick), baseline and fence
+    variant with 100 snapshots each (`preyscape run`, both variants in one
+    command: the simulation time); then each of `hotspots`, `waves`,
+    `effects` (baseline), `compare` (baseline vs fence) and `report`
+    (baseline + fence, with the animation) in a fresh process, one after the
+    other. Each line gives wall and CPU seconds and the peak resident memory.
+    """
+    n = 400 if quick else 1000
+    subprocess.run([sys.executable, "-c", "from preyscape.solve.kernels import warm_up; "
+                    "warm_up()"], check=True)
+    with tempfile.TemporaryDirectory() as d:
+        d = Path(d)
+        toml = analyses_scenario(d / "scenario", n)
+        runs = d / "runs"
+        sim = _timed_command(["run", str(toml), "--out", str(runs), "--quiet"])
+        base, fence = str(runs / "baseline"), str(runs / "fence")
+        steps = {
+            "hotspots": ["hotspots", base, "--out", str(d / "hotspots")],
+            "waves": ["waves", base, "--out", str(d / "waves")],
+            "effects": ["effects", base, "--out", str(d / "effects")],
+            "compare": ["compare", base, fence, "--out", str(d / "compare")],
+            "report": ["report", base, fence, "--out", str(d / "report.html")],
+        }
+        out = {"cells": n * n, "snapshots": ANALYSES_SNAPSHOTS + 1, "runs": 2,
+               "simulation": sim, "run_wall_s": {}}
+        for name in ("baseline", "fence"):
+            info = json.loads((runs / name / "run.json").read_text())
+            out["run_wall_s"][name] = info.get("wall_time_s")
+        for name, argv in steps.items():
+            out[name] = _timed_command(argv)
+            print(f"  {name}: {out[name]['wall_s']:.1f} s, {out[name]['peak_MB']:.0f} MB",
+                  file=sys.stderr, flush=True)
+    total = sum(out[name]["wall_s"] for name in steps)
+    out["analyses"] = list(steps)
+    out["total_wall_s"] = total
+    out["ratio_to_simulation"] = total / sim["wall_s"]
+    out["ratio_cpu_to_simulation_cpu"] = (sum(out[name]["cpu_s"] for name in steps)
+                                          / sim["cpu_s"])
+    out["peak_MB_max"] = max(out[name]["peak_MB"] for name in steps)
+    out["load_average"] = os.getloadavg()
+    out["target_ratio"], out["target_MB"] = 2.0, 2048
+    return out
+
+
 BENCHES = {"step": bench_step, "previous": bench_previous, "compile": bench_compile,
            "scenario": bench_scenario, "reference": bench_reference, "memory": bench_memory,
-           "scaling": bench_scaling, "startup": bench_startup}
+           "scaling": bench_scaling, "startup": bench_startup,
+           "analyses": bench_analyses}
 
 
 def _table(res):
@@ -597,6 +800,18 @@ def _table(res):
         per = ", ".join(f"{r['n']}²: {r['ns_per_cell_step']:.1f}" for r in s["sizes"])
         row("time per cell-step by grid size (ns)", per, "about constant", True)
         row("1 vs 2 threads, 1000x1000", f"{s['speedup_2_threads']:.2f}x", "(reported)", True)
+    if "analyses" in res:
+        s = res["analyses"]
+        side = round(s["cells"] ** 0.5)
+        parts = ", ".join(f"{name} {s[name]['wall_s']:.0f} s / {s[name]['peak_MB']:.0f} MB"
+                          for name in s["analyses"])
+        row(f"analyses and report, {side}x{side}, {s['snapshots'] - 1} snapshots, vs the "
+            "simulation of both runs",
+            f"{s['ratio_to_simulation']:.2f}x ({s['total_wall_s']:.0f} s against "
+            f"{s['simulation']['wall_s']:.0f} s; CPU {s['ratio_cpu_to_simulation_cpu']:.2f}x); "
+            f"peak {s['peak_MB_max']:.0f} MB ({parts})",
+            f"≤ {s['target_ratio']:g}x, ≤ {s['target_MB']} MB",
+            s["ratio_to_simulation"] <= s["target_ratio"] and s["peak_MB_max"] <= s["target_MB"])
     if "startup" in res:
         s = res["startup"]
         row("preyscape --help", f"{s['help_s_python_m']:.2f} s", "≤ 0.5 s",
@@ -623,7 +838,15 @@ def main(argv=None):
         print(f"[{name}: {time.perf_counter() - t:.0f} s]", file=sys.stderr, flush=True)
     res["max_rss_MB_this_process"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(_table(res))
-    a.json.write_text(json.dumps(res, indent=2, default=float) + "\n")
+    # the sections not run this time keep their stored results
+    stored = {}
+    if a.json.is_file():
+        try:
+            stored = json.loads(a.json.read_text())
+        except (OSError, json.JSONDecodeError):
+            stored = {}
+    merged = {**(stored if isinstance(stored, dict) else {}), **res}
+    a.json.write_text(json.dumps(merged, indent=2, default=float) + "\n")
     print(f"\nwritten {a.json}")
 
 

@@ -213,3 +213,69 @@ def write_run_record(folder, species=None, **info) -> None:
 
     rec = {"variant": "baseline", "species": species or {}, "analysis": {}, **info}
     (Path(folder) / "run.json").write_text(json.dumps(rec))
+
+
+# ---------------------------------------------------------------------------
+# streaming: results files of a chosen length, and the memory an analysis holds
+# ---------------------------------------------------------------------------
+STREAM_SHAPE = (96, 120)  # rows, cols of 100 m: 92 kB per float64 grid
+
+
+def write_snapshots(path: Path, snapshots: int, shape: tuple[int, int] = STREAM_SHAPE) -> Path:
+    """A ``results.nc`` (written by :class:`preyscape.store.ResultWriter`, as a run writes
+    it) with the start and ``snapshots`` more, a quarter year apart: prey on a ridge that
+    drifts east, predators behind a front that moves east at 1.5 km/yr. A few no-data
+    cells. Invented values for tests of how analyses read snapshots."""
+    from preyscape.store import ResultWriter
+
+    grid = utm_grid(shape)
+    mask = np.ones(shape, dtype=bool)
+    mask[:3, :2] = False
+    grid = Grid(shape, grid.x0, grid.y0, grid.dx, grid.dy, grid.crs_wkt, mask)
+    yy, xx = np.mgrid[0:shape[0], 0:shape[1]] * DX / 1000.0  # km
+    writer = ResultWriter(path, grid, {}, {"title": "streaming test"})
+    try:
+        for k in range(snapshots + 1):
+            t = 0.25 * k
+            prey = 500.0 + 400.0 * np.exp(-((xx - 2.0 - 0.3 * t) ** 2 + (yy - 4.0) ** 2) / 2.0)
+            predator = 20.0 / (1.0 + np.exp((xx - 1.0 - 1.5 * t) / 0.3))
+            writer.write(t, prey, predator)
+    finally:
+        writer.close()
+    return path
+
+
+def peak_bytes(fn: Callable[[], Any]) -> int:
+    """Peak memory allocated while ``fn()`` runs, bytes (numpy arrays included: numpy
+    reports its allocations to :mod:`tracemalloc`)."""
+    import gc
+    import tracemalloc
+
+    gc.collect()
+    tracemalloc.start()
+    try:
+        fn()
+        return tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+
+
+def stream_peaks(folder: Path, analyse: Callable[[Any], Any], counts: tuple[int, ...] = (10, 40),
+                 ) -> tuple[dict[int, int], dict[int, Any]]:
+    """Peak memory (bytes) and result of ``analyse(ds)`` on results files of each number of
+    snapshots (:func:`write_snapshots`, opened lazily with xarray as runs are). A first
+    call, not measured, imports and caches what every call needs."""
+    import xarray as xr
+
+    peaks: dict[int, int] = {}
+    results: dict[int, Any] = {}
+    opened = {n: xr.open_dataset(write_snapshots(folder / f"run{n}.nc", n),
+                                 decode_times=False) for n in counts}
+    try:
+        analyse(opened[counts[0]])
+        for n, ds in opened.items():
+            peaks[n] = peak_bytes(lambda ds=ds, n=n: results.__setitem__(n, analyse(ds)))
+    finally:
+        for ds in opened.values():
+            ds.close()
+    return peaks, results

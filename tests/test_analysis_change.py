@@ -196,3 +196,22 @@ def test_first_crossing_interpolates():
     assert first_crossing([0, 1, 2], [0.0, 0.25, 0.75], 0.5) == pytest.approx(1.5)
     assert first_crossing([0, 1], [0.6, 0.7], 0.5) == 0.0
     assert math.isnan(first_crossing([0, 1], [0.1, 0.2], 0.5))
+
+
+def test_window_statistics_stream_the_snapshots(tmp_path):
+    # Design requirement (DEVELOPERS.md, "memory O(grid) regardless of run length"): both
+    # passes read the snapshots from the file one at a time, so 40 snapshots hold no more
+    # memory than 10 beyond the zone totals (keeping them would add 30 grids).
+    from conftest import STREAM_SHAPE, stream_peaks
+
+    from preyscape.store import frames
+
+    grid_bytes = 8 * STREAM_SHAPE[0] * STREAM_SHAPE[1]
+    zones = np.where(np.arange(STREAM_SHAPE[1])[None, :] < 60, 0, 1) + np.zeros(
+        STREAM_SHAPE, int)
+    peaks, results = stream_peaks(tmp_path, lambda ds: window_statistics(
+        lambda: (u for _, u in frames(ds, "predator")), presence=1.0, zones=[zones]))
+    assert results[40].snapshots == 40 and results[40].zone_sums[0].shape == (40, 2)
+    assert np.nanmax(results[40].margin) > 0
+    assert peaks[40] < 1.5 * peaks[10]
+    assert peaks[40] - peaks[10] < 3 * grid_bytes

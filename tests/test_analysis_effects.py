@@ -165,3 +165,38 @@ def test_net_flux_out_of_hostile_edges_is_the_loss():
     assert np.all(out[1:] > 0)
     total = np.array([f.sum() * AREA for f in frames])
     assert cumulative(out, times)[-1] == pytest.approx(total[0] - total[-1], rel=5e-4)
+
+
+def test_fluxes_and_colonisation_stream_the_snapshots(tmp_path):
+    # Design requirement (DEVELOPERS.md, "memory O(grid) regardless of run length"): the
+    # flows across transects and the colonisation of targets read one snapshot at a time,
+    # so 40 snapshots hold no more memory than 10 (keeping them would add 30 grids).
+    from conftest import STREAM_SHAPE, stream_peaks
+
+    from preyscape.analysis.effects import colonisation, transect_fluxes
+
+    grid_bytes = 8 * STREAM_SHAPE[0] * STREAM_SHAPE[1]
+    mv = build_movement(np.full(STREAM_SHAPE, 2.0), np.ones(STREAM_SHAPE, bool), H_M, H_M,
+                        "fickian")
+    ops = [{"span": (0.0, math.inf), "predator_cx": mv.cx, "predator_cy": mv.cy,
+            "predator_w": mv.w}]
+    target = np.zeros(STREAM_SHAPE, bool)
+    target[40:50, 100:110] = True
+
+    def both(ds):
+        x0, y0 = float(ds.x[0]), float(ds.y[0])  # the centre of cell (0, 0)
+        # drawn northwards between the centres of columns 49 and 50 (79 and 80):
+        # positive from west to east
+        lines = [[(x0 + xl, y0 - 9550.0), (x0 + xl, y0 + 50.0)] for xl in (4960.0, 7960.0)]
+        return (transect_fluxes(ds, ops, lines, "predator"),
+                colonisation(ds, [("east", target)], {"predator": 10.0}, 0.5))
+
+    peaks, results = stream_peaks(tmp_path, both)
+    (times, flows), found = results[40]
+    assert len(flows) == 2 and flows[0].shape == times.shape == (41,)
+    # the front (x = 1 + 1.5 t km) crosses the first line at t = 2.6, the second at 4.6
+    assert flows[0][10] > 0 and flows[1][18] > 0 and flows[1][10] < 0.01 * flows[0][10]
+    # half of 20 per km² reaches the target's mean column (x = 10.45 km) at t = 6.3
+    assert found[0].years["predator"] == pytest.approx((10.45 - 1.0) / 1.5, abs=0.1)
+    assert peaks[40] < 1.5 * peaks[10]
+    assert peaks[40] - peaks[10] < 3 * grid_bytes

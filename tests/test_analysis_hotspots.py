@@ -377,3 +377,19 @@ def test_places_compass_and_band_checks():
     ref = hotspots(values, mask, DX, DY, BAND)["hot"]
     (same,) = band_sensitivity(values, mask, DX, DY, [BAND], ref)
     assert same.overlap == 1.0 and same.hot_cells == int(ref.sum())
+
+
+def test_hotspots_of_run_memory_does_not_grow_with_the_snapshots(tmp_path):
+    # Design requirement (DEVELOPERS.md, "memory O(grid) regardless of run length"): the
+    # time mean and the persistence of every snapshot come from one pass over the file,
+    # one snapshot at a time, so 40 snapshots hold no more memory than 10; keeping them
+    # would add 30 grids (2.8 MB as float64, against a peak of a few MB).
+    from conftest import STREAM_SHAPE, stream_peaks
+
+    grid_bytes = 8 * STREAM_SHAPE[0] * STREAM_SHAPE[1]
+    peaks, results = stream_peaks(tmp_path, lambda ds: [
+        hotspots_of_run(ds, sp, band_m=350.0) for sp in ("prey", "predator")])
+    assert results[40][0].snapshots == 40 and results[10][0].snapshots == 10
+    assert np.nanmax(results[40][1].persistence) > 0  # the front is a hotspot at times
+    assert peaks[40] < 1.5 * peaks[10]
+    assert peaks[40] - peaks[10] < 3 * grid_bytes

@@ -479,3 +479,28 @@ def test_waves_with_nothing_to_measure_says_why_and_draws_nothing_empty(tmp_path
     assert not [b for b in blocks if type(b).__name__ == "Figure"]
     bullets = " ".join(" ".join(b.items) for b in blocks if type(b).__name__ == "Bullets")
     assert "no front" in bullets and "absent" in bullets
+
+
+def test_arrival_times_and_profiles_stream_the_snapshots(tmp_path):
+    # Design requirement (DEVELOPERS.md, "memory O(grid) regardless of run length"): the
+    # arrival time and the transect profiles read one snapshot at a time, so 40 snapshots
+    # hold no more memory than 10 beyond the profiles themselves (keeping the snapshots
+    # would add 30 grids, 2.8 MB).
+    from conftest import STREAM_SHAPE, stream_peaks
+
+    grid_bytes = 8 * STREAM_SHAPE[0] * STREAM_SHAPE[1]
+    grid = Grid(STREAM_SHAPE, 0.0, 9600.0, 100.0, 100.0)
+    line = W.sample_transect(grid, [[50.0, 5550.0], [11_950.0, 5550.0]])  # along row 40
+
+    def both(ds):
+        return (W.arrival_time_of_run(ds, "predator", 10.0),
+                W.transect_series(ds, line, species="predator"))
+
+    peaks, results = stream_peaks(tmp_path, both)
+    # the front (half of 20 per km² at x = 1 + 1.5 t km) passes column 70 (x = 7 km in
+    # the test field) at t = 4
+    arrival, series = results[40]
+    assert arrival[50, 70] == pytest.approx((7.0 - 1.0) / 1.5, abs=0.02)
+    assert series.values.shape == (41, line.n)
+    assert peaks[40] < 1.5 * peaks[10]
+    assert peaks[40] - peaks[10] < 3 * grid_bytes

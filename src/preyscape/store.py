@@ -244,12 +244,18 @@ def frames(ds, species: str, indices: Iterable[int] | None = None,
         mask = data_mask(ds)
     if indices is None:
         indices = used_snapshots(var.shape[0])
+    off = None if raw else ~np.asarray(mask, dtype=bool)
+    some_off = off is not None and bool(off.any())
     for k in indices:
-        frame = np.asarray(var.isel(time=int(k)).values, dtype=np.float64)
         if raw:
-            yield int(k), frame
+            yield int(k), np.asarray(var.isel(time=int(k)).values, dtype=np.float64)
             continue
-        yield int(k), np.where(mask & np.isfinite(frame), frame, 0.0)
+        # a new float64 array (never a view of the dataset), cleaned in place: what
+        # np.where(mask & isfinite, frame, 0) gives, without its passes when all is finite
+        frame = np.array(var.isel(time=int(k)).values, dtype=np.float64)
+        if some_off or not np.isfinite(frame).all():
+            frame[off | ~np.isfinite(frame)] = 0.0
+        yield int(k), frame
 
 
 def time_means(source, mask: np.ndarray | None = None,

@@ -232,17 +232,20 @@ def window_statistics(frames: Iterable[np.ndarray] | Callable[[], Iterable[np.nd
     again = frames if callable(frames) else (lambda kept=list(frames): kept)
     acc = occ = None
     n = 0
-    sel = [(lab, lab >= 0 if mask is None else (lab >= 0) & np.asarray(mask, bool))
-           for lab in (np.asarray(z) for z in zones)]
+    # per zoning, once: the flat indices of its cells, their zones, the number of zones
+    sel = []
+    for lab in (np.asarray(z) for z in zones):
+        idx = np.flatnonzero(lab >= 0 if mask is None else (lab >= 0) & np.asarray(mask, bool))
+        sel.append((idx, lab.ravel()[idx], int(lab.max()) + 1))
     sums: list[list[np.ndarray]] = [[] for _ in sel]
     for u in again():
-        u = np.nan_to_num(np.asarray(u, dtype=np.float64), nan=0.0)
+        u = _finite(u)
         if acc is None:
             acc, occ = np.zeros(u.shape), np.zeros(u.shape)
         acc += u
         occ += u >= presence
-        for k, (lab, ok) in enumerate(sel):
-            sums[k].append(np.bincount(lab[ok], weights=u[ok], minlength=int(lab.max()) + 1))
+        for k, (idx, lab, nz) in enumerate(sel):
+            sums[k].append(np.bincount(lab, weights=u.ravel()[idx], minlength=nz))
         n += 1
     if n == 0:
         raise ValueError("the window holds no snapshots")
@@ -250,7 +253,7 @@ def window_statistics(frames: Iterable[np.ndarray] | Callable[[], Iterable[np.nd
     run = np.zeros(mean.shape)
     hi, lo = np.zeros(mean.shape), np.zeros(mean.shape)
     for u in again():
-        run += np.nan_to_num(np.asarray(u, dtype=np.float64), nan=0.0) - mean
+        run += _finite(u) - mean
         np.maximum(hi, run, out=hi)
         np.minimum(lo, run, out=lo)
     m = np.ones(mean.shape, bool) if mask is None else np.asarray(mask, bool)
@@ -260,6 +263,13 @@ def window_statistics(frames: Iterable[np.ndarray] | Callable[[], Iterable[np.nd
 
     return WindowStatistics(out(mean), out((hi - lo) / n), out(occ / n), n,
                             tuple(np.array(z) for z in sums))
+
+
+def _finite(u) -> np.ndarray:
+    """``u`` as float64 with NaN as 0 and infinities as the largest floats (nan_to_num);
+    as it is, without a copy, when all is finite (snapshots from store.frames are)."""
+    u = np.asarray(u, dtype=np.float64)
+    return u if np.isfinite(u).all() else np.nan_to_num(u, nan=0.0)
 
 
 # --- level ----------------------------------------------------------------------------------

@@ -452,25 +452,35 @@ def _statistics(run: RunResults, indices, upto_indices, upto_times, settings: An
     """Window statistics, arrival-time map and target colonisation of each species compared."""
     from preyscape.analysis.change import first_crossing, window_statistics
     from preyscape.analysis.settings import COLONISED_SHARE
-    from preyscape.analysis.waves import arrival_time
+    from preyscape.analysis.waves import ArrivalClock
 
     mask = run.mask
     out = {}
     for sp in species:
-        stats = window_statistics(lambda sp=sp: (u for _, u in run.frames(sp, indices)),
-                                  presence=settings.presence, mask=mask,
-                                  zones=[z.labels for z in zonings])
         thr = settings.arrival_threshold(sp)
         shares: dict[str, list[float]] = {name: [] for name, _ in targets}
+        clock = ArrivalClock(thr)
 
-        def tracked(sp=sp, thr=thr, shares=shares):
-            for _, u in run.frames(sp, upto_indices):
+        def tracked(sp=sp, thr=thr, shares=shares, clock=clock, used=frozenset(indices)):
+            # every snapshot up to the window's end: arrival times and targets; the
+            # window's snapshots also go on to the statistics (one read for both)
+            for (k, u), t in zip(run.frames(sp, upto_indices), upto_times, strict=True):
+                clock.add(u, t)
                 for name, cells in targets:
                     c = cells & mask
                     shares[name].append(float(np.count_nonzero(u[c] >= thr)) / max(1, c.sum()))
-                yield u
+                if k in used:
+                    yield u
 
-        arrival = arrival_time(tracked(), upto_times, thr, mask=mask)
+        first = [tracked()]
+
+        def window(sp=sp, first=first):
+            # the statistics' first pass is the one above; their second reads the window
+            return first.pop() if first else (u for _, u in run.frames(sp, indices))
+
+        stats = window_statistics(window, presence=settings.presence, mask=mask,
+                                  zones=[z.labels for z in zonings])
+        arrival = clock.result(mask)
         reached = {name: first_crossing(upto_times, f, COLONISED_SHARE)
                    for name, f in shares.items()}
         out[sp] = RunSpecies(stats, arrival, reached)

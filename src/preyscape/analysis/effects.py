@@ -66,25 +66,39 @@ def colonisation_time(
     InputError
         If the patch has no cells with data.
     """
+    return _colonisation_times(ds, species, [target_cells], threshold=threshold,
+                               share=share)[0]
+
+
+def _colonisation_times(ds, species: str, targets: Sequence[np.ndarray], *,
+                        threshold: float, share: float) -> list[float]:
+    """:func:`colonisation_time` of several patches, reading each snapshot once for all."""
     _check_presence(threshold)
     if not 0 < share <= 1:
         raise ValueError(f"share must lie in (0, 1], not {share!r}")
     mask = data_mask(ds)
-    tgt = _cells(target_cells, mask.shape) & mask
-    n_cells = int(tgt.sum())
-    if n_cells == 0:
+    tgts = [_cells(cells, mask.shape) & mask for cells in targets]
+    n_cells = [int(t.sum()) for t in tgts]
+    if 0 in n_cells:
         raise InputError("the target patch has no cells with data; choose cells inside "
                          "the landscape", f"results: {species}")
     times = np.asarray(ds["time"].values, dtype=float)
-    prev_t, prev_f = math.nan, math.nan
+    found = [math.nan] * len(tgts)
+    prev = [(math.nan, math.nan)] * len(tgts)
+    left = list(range(len(tgts)))
     for k, u in frames(ds, species, range(times.size), mask=mask):
-        f = float(np.count_nonzero(u[tgt] >= threshold)) / n_cells
-        if f >= share:
-            if k == 0:
-                return float(times[k])
-            return float(prev_t + (share - prev_f) / (f - prev_f) * (times[k] - prev_t))
-        prev_t, prev_f = float(times[k]), f
-    return math.nan
+        for j in list(left):
+            f = float(np.count_nonzero(u[tgts[j]] >= threshold)) / n_cells[j]
+            prev_t, prev_f = prev[j]
+            if f >= share:
+                found[j] = (float(times[k]) if k == 0 else
+                            float(prev_t + (share - prev_f) / (f - prev_f) * (times[k] - prev_t)))
+                left.remove(j)
+            else:
+                prev[j] = (float(times[k]), f)
+        if not left:  # every patch colonised: the later snapshots need not be read
+            break
+    return found
 
 
 def net_flux(
@@ -141,33 +155,67 @@ def net_flux(
     numpy.ndarray
         Net flow across the transect at each snapshot, animals/yr.
     """
-    cx = np.asarray(cx, dtype=np.float64)
-    cy = np.asarray(cy, dtype=np.float64)
-    rows, cols = cx.shape[0], cx.shape[1] - 1
-    if cy.shape != (rows + 1, cols):
-        raise ValueError("cx must have shape (rows, cols+1) and cy (rows+1, cols)")
-    fx = np.asarray(faces_x, dtype=bool)
-    fy = np.asarray(faces_y, dtype=bool)
-    if fx.shape != cx.shape or fy.shape != cy.shape:
-        raise ValueError("faces_x must be shaped like cx and faces_y like cy")
-    sx = np.where(fx, np.broadcast_to(np.asarray(side_sign_x, dtype=float), cx.shape), 0.0)
-    sy = np.where(fy, np.broadcast_to(np.asarray(side_sign_y, dtype=float), cy.shape), 0.0)
-    gx, gy = sx * cx, sy * cy  # signed conductances of the transect's faces
-    wt = np.ones((rows, cols)) if w is None else np.asarray(w, dtype=np.float64)
-    out = []
-    for u in frames:
-        u = np.asarray(u, dtype=np.float64)
-        if u.shape != (rows, cols):
-            raise ValueError(f"frame has shape {u.shape}, the faces fit {(rows, cols)}")
-        wu = np.where(np.isfinite(u), u, 0.0) * wt
-        px = np.pad(wu, ((0, 0), (1, 1)))
-        py = np.pad(wu, ((1, 1), (0, 0)))
-        flow = np.sum(gx * (px[:, :-1] - px[:, 1:])) + np.sum(gy * (py[:-1, :] - py[1:, :]))
-        out.append(flow * cell_area_km2)
-    out = np.asarray(out, dtype=np.float64)
+    flow_of = _FaceFlow(cx, cy, w, faces_x, faces_y, side_sign_x, side_sign_y, cell_area_km2)
+    out = np.asarray([flow_of(u) for u in frames], dtype=np.float64)
     if out.size != np.size(times):
         raise ValueError(f"{out.size} frames but {np.size(times)} times")
     return out
+
+
+class _FaceFlow:
+    """The net flow across a transect's faces from one snapshot (:func:`net_flux`).
+
+    Built once per transect and movement operator; each snapshot then costs
+    O(faces of the transect), not O(cells).
+    """
+
+    def __init__(self, cx, cy, w, faces_x, faces_y, side_sign_x, side_sign_y,
+                 cell_area_km2: float) -> None:
+        cx = np.asarray(cx, dtype=np.float64)
+        cy = np.asarray(cy, dtype=np.float64)
+        rows, cols = cx.shape[0], cx.shape[1] - 1
+        if cy.shape != (rows + 1, cols):
+            raise ValueError("cx must have shape (rows, cols+1) and cy (rows+1, cols)")
+        fx = np.asarray(faces_x, dtype=bool)
+        fy = np.asarray(faces_y, dtype=bool)
+        if fx.shape != cx.shape or fy.shape != cy.shape:
+            raise ValueError("faces_x must be shaped like cx and faces_y like cy")
+        sx = np.where(fx, np.broadcast_to(np.asarray(side_sign_x, dtype=float), cx.shape), 0.0)
+        sy = np.where(fy, np.broadcast_to(np.asarray(side_sign_y, dtype=float), cy.shape), 0.0)
+        wt = None if w is None else np.asarray(w, dtype=np.float64)
+        self.shape = (rows, cols)
+        self.area = float(cell_area_km2)
+        # per axis: the signed conductances of the faces that carry a flow, and for the
+        # cell before (west or north) and after (east or south) each face its flat index,
+        # whether it lies inside the grid (beyond the edge the density is 0) and its weight
+        self.parts = []
+        for g, axis in ((sx * cx, 1), (sy * cy, 0)):
+            r, c = np.nonzero(g)
+            before = (r, c - 1) if axis == 1 else (r - 1, c)
+            after = (r, c)
+            ends = []
+            for rr, cc in (before, after):
+                inside = (rr >= 0) & (cc >= 0) & (rr < rows) & (cc < cols)
+                flat = np.where(inside, rr * cols + cc, 0)
+                weight = (np.ones(flat.size) if wt is None else
+                          np.where(inside, wt.ravel()[flat], 0.0))
+                ends.append((flat, inside, weight))
+            self.parts.append((g[r, c], ends))
+
+    def __call__(self, frame: np.ndarray) -> float:
+        """Net flow across the transect, animals/yr (NaN densities read as 0)."""
+        u = np.asarray(frame, dtype=np.float64)
+        if u.shape != self.shape:
+            raise ValueError(f"frame has shape {u.shape}, the faces fit {self.shape}")
+        flat = u.ravel()
+        flow = 0.0
+        for g, ends in self.parts:
+            wu = []
+            for idx, inside, weight in ends:
+                v = flat[idx]
+                wu.append(np.where(inside & np.isfinite(v), v, 0.0) * weight)
+            flow += float(np.sum(g * (wu[0] - wu[1])))
+        return flow * self.area
 
 
 def cumulative(values: np.ndarray, times: np.ndarray) -> np.ndarray:
@@ -265,18 +313,50 @@ def transect_flux(ds, operators: Sequence[dict], points: Sequence, species: str,
     flow : numpy.ndarray
         Animals per year crossing from the left of the line to its right.
     """
+    times, flows = transect_fluxes(ds, operators, [points], species)
+    return times, flows[0]
+
+
+def transect_fluxes(ds, operators: Sequence[dict], lines: Sequence[Sequence], species: str,
+                    ) -> tuple[np.ndarray, list[np.ndarray]]:
+    """:func:`transect_flux` of several transects, reading each snapshot once for all.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        An opened ``results.nc``.
+    operators : sequence of dict
+        The movement operators of every epoch.
+    lines : sequence of sequences of (float, float)
+        Each transect's vertices, map metres.
+    species : str
+        ``"prey"`` or ``"predator"``.
+
+    Returns
+    -------
+    times : numpy.ndarray
+        Snapshot times, years.
+    flows : list of numpy.ndarray
+        Per transect, animals per year crossing from its left to its right.
+    """
     ops = list(operators)
     grid = grid_of(ds)
-    fx, fy, sx, sy = transect_faces(points, grid)
+    faces = [transect_faces(points, grid) for points in lines]
     times = np.asarray(ds["time"].values, dtype=float)
     spans = [tuple(float(v) for v in op["span"]) for op in ops]
-    flow = np.zeros(times.size)
+    flows = [np.zeros(times.size) for _ in faces]
+    epoch, flow_of = -1, []
     for k, frame in frames(ds, species, range(times.size)):
-        t = float(times[k])
-        op = ops[_epoch_of(t, spans)]
-        flow[k] = net_flux([frame], [t], op[f"{species}_cx"], op[f"{species}_cy"],
-                           op[f"{species}_w"], fx, fy, sx, sy, grid.cell_area_km2)[0]
-    return times, flow
+        e = _epoch_of(float(times[k]), spans)
+        if e != epoch:  # one epoch's faces at a time
+            op = ops[e]
+            flow_of = [_FaceFlow(op[f"{species}_cx"], op[f"{species}_cy"], op[f"{species}_w"],
+                                 *f, grid.cell_area_km2) for f in faces]
+            epoch = e
+        for flow, of in zip(flows, flow_of, strict=True):
+            flow[k] = of(frame)
+    return times, flows
+
 
 @dataclass(frozen=True)
 class TargetColonisation:
@@ -301,6 +381,8 @@ def colonisation(ds, targets: Sequence[tuple[str, np.ndarray]], thresholds: dict
                  share: float) -> list[TargetColonisation]:
     """Colonisation time of each target patch by each species (:func:`colonisation_time`).
 
+    Each snapshot is read once per species for all the patches.
+
     Parameters
     ----------
     ds : xarray.Dataset
@@ -317,12 +399,12 @@ def colonisation(ds, targets: Sequence[tuple[str, np.ndarray]], thresholds: dict
     list of TargetColonisation
     """
     mask = data_mask(ds)
+    found = {sp: _colonisation_times(ds, sp, [cells for _, cells in targets],
+                                     threshold=thresholds[sp], share=share) if targets else []
+             for sp in thresholds}  # the species given (prey alone: prey only)
     out = []
-    for name, cells in targets:
-        years = {}
-        for sp in thresholds:  # the species given (prey alone: prey only)
-            t = colonisation_time(ds, sp, cells, threshold=thresholds[sp], share=share)
-            years[sp] = None if math.isnan(t) else t
+    for j, (name, cells) in enumerate(targets):
+        years = {sp: None if math.isnan(found[sp][j]) else found[sp][j] for sp in thresholds}
         out.append(TargetColonisation(name, int((cells & mask).sum()), years))
     return out
 
@@ -335,4 +417,5 @@ __all__ = [
     "net_flux",
     "transect_faces",
     "transect_flux",
+    "transect_fluxes",
 ]

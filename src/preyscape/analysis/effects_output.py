@@ -387,8 +387,11 @@ def _write_refuges(tmp: Path, run, other, settings: AnalysisSettings,
         cells = run.cells_of(m)
         regions, decay, diff, figure, fit = {}, None, False, None, {}
         for sp in run.species:
+            # the time means as the run keeps them: read once for all refuges and analyses
             eff = refuge_effect(run.ds, cells, ds_without=None if other is None else other.ds,
-                                species=sp, presence=settings.presence)
+                                species=sp, presence=settings.presence,
+                                mean=run.time_mean(sp),
+                                mean_without=None if other is None else other.time_mean(sp))
             regions[sp] = {"inside_outside": eff.inside_outside,
                            "inside_outside_without": eff.inside_outside_without}
             for region in ("inside", "outside"):
@@ -448,14 +451,17 @@ def _write_targets(tmp: Path, run, settings: AnalysisSettings, targets_file: Pat
 
 def _write_crossings(tmp: Path, run, settings: AnalysisSettings,
                      files: list[FileRecord]) -> list[CrossingRecord]:
-    from preyscape.analysis.effects import cumulative, transect_flux
+    from preyscape.analysis.effects import cumulative, transect_fluxes
 
     rows, out = [], []
     ops = run.operators() if settings.transects else []
-    for tr in settings.transects:
+    # every transect in one pass over each species' snapshots
+    flows = {sp: transect_fluxes(run.ds, ops, [tr.points for tr in settings.transects], sp)
+             for sp in run.species} if settings.transects else {}
+    for j, tr in enumerate(settings.transects):
         series, net = {}, {}
         for sp in run.species:
-            times, flow = transect_flux(run.ds, ops, tr.points, sp)
+            times, flow = flows[sp][0], flows[sp][1][j]
             total = cumulative(flow, times)
             series[sp] = (times, flow, total)
             net[sp] = float(total[-1])

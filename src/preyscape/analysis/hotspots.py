@@ -118,14 +118,14 @@ def hotspots(
 
 
 def _classify(z: np.ndarray, effect: np.ndarray, alpha: float,
-              floor_sd: float) -> dict[str, np.ndarray]:
+              floor_sd: float, *, p_values: bool = True) -> dict[str, np.ndarray]:
     if not (np.isfinite(floor_sd) and floor_sd >= 0):
         raise ValueError(f"floor_sd must be a finite number >= 0, got {floor_sd}")
     sig = fdr_significant(z, alpha, "two-sided")
     with np.errstate(invalid="ignore"):
         big = np.abs(effect) >= floor_sd
     hot, cold = sig & (z > 0), sig & (z < 0)
-    return {"z": z, "p": normal_p(z, "two-sided"), "effect": effect,
+    return {"z": z, "p": normal_p(z, "two-sided") if p_values else None, "effect": effect,
             "significant_hot": hot, "significant_cold": cold,
             "hot": hot & big & (effect > 0), "cold": cold & big & (effect < 0)}
 
@@ -174,27 +174,50 @@ def persistent_hotspots(
     ValueError
         If there is no snapshot.
     """
-    count = None
-    seen = None
-    n_frames = 0
-    gi = None
+    share = _HotShare(mask, dx_m, dy_m, band_m, alpha, floor_sd)
     for frame in frames:
+        share.add(frame)
+    return share.result()
+
+
+class _HotShare:
+    """Streaming :func:`persistent_hotspots`: :meth:`add` one snapshot at a time.
+
+    Holds a few grids (the counts, the cells seen, the Gi* weights of the
+    last data mask), whatever the number of snapshots.
+    """
+
+    def __init__(self, mask: np.ndarray | None, dx_m: float, dy_m: float, band_m: float,
+                 alpha: float, floor_sd: float) -> None:
+        self.mask, self.dx, self.dy, self.band = mask, dx_m, dy_m, band_m
+        self.alpha, self.floor_sd = alpha, floor_sd
+        self.count: np.ndarray | None = None
+        self.seen: np.ndarray | None = None
+        self.n = 0
+        self.gi: _GiStar | None = None
+
+    def add(self, frame: np.ndarray) -> None:
+        """Test one snapshot (NaN or off the mask: no data) and count its hotspots."""
         frame = np.asarray(frame, dtype=np.float64)
-        data = _data_mask(frame, mask)
-        if gi is None or not np.array_equal(data, gi.data):
-            gi = _GiStar(data, dx_m, dy_m, band_m)  # masks rarely change: reuse the counts
-        if count is None:
-            count = np.zeros(frame.shape)
-            seen = np.zeros(frame.shape, dtype=bool)
-        elif frame.shape != count.shape:
-            raise ValueError(f"snapshot shape {frame.shape} differs from {count.shape}")
-        z, effect, _, _ = gi.scores(frame)
-        count += _classify(z, effect, alpha, floor_sd)["hot"]
-        seen |= data
-        n_frames += 1
-    if n_frames == 0:
-        raise ValueError("no snapshots given")
-    return np.where(seen, count / n_frames, np.nan)
+        data = _data_mask(frame, self.mask)
+        if self.gi is None or not np.array_equal(data, self.gi.data):
+            # masks rarely change: reuse the counts
+            self.gi = _GiStar(data, self.dx, self.dy, self.band)
+        if self.count is None:
+            self.count = np.zeros(frame.shape)
+            self.seen = np.zeros(frame.shape, dtype=bool)
+        elif frame.shape != self.count.shape:
+            raise ValueError(f"snapshot shape {frame.shape} differs from {self.count.shape}")
+        z, effect, _, _ = self.gi.scores(frame)
+        self.count += _classify(z, effect, self.alpha, self.floor_sd, p_values=False)["hot"]
+        self.seen |= data
+        self.n += 1
+
+    def result(self) -> np.ndarray:
+        """Share (0–1) of the snapshots added in which each cell was a hotspot."""
+        if self.n == 0:
+            raise ValueError("no snapshots given")
+        return np.where(self.seen, self.count / self.n, np.nan)
 
 
 CLASS_NAMES = ("neither", "hotspot", "coldspot")
@@ -347,22 +370,21 @@ def hotspots_of_run(
     band = default_band_m(grid) if band_m is None else float(band_m)
     mask = data_mask(ds)
     acc = np.zeros(grid.shape)
+    share = _HotShare(mask, grid.dx, grid.dy, band, alpha, floor_sd) if persistent else None
     n = 0
-    for _, f in frames(ds, species, mask=mask):
-        acc += f
+    # one pass: the snapshots as stored (NaN marks no data, which the persistence needs),
+    # cleaned for the mean as store.frames cleans them (0 off the mask and where not finite)
+    for _, raw in frames(ds, species, raw=True):
+        acc += np.where(mask & np.isfinite(raw), raw, 0.0)
+        if share is not None:
+            share.add(raw)
         n += 1
     if n == 0:
         raise ValueError("the results dataset holds no snapshots")
     mean = np.where(mask, acc / n, np.nan)
     z, effect, xbar, sd = _GiStar(_data_mask(mean, mask), grid.dx, grid.dy, band).scores(mean)
     res = _classify(z, effect, alpha, floor_sd)
-    frac = None
-    if persistent:
-        # frames(...) gives 0 off the mask; the raw snapshots mark no data as NaN, which
-        # persistent_hotspots needs to know where there is no data
-        raw = (f for _, f in frames(ds, species, raw=True))
-        frac = persistent_hotspots(raw, mask, grid.dx, grid.dy, band, alpha=alpha,
-                                   floor_sd=floor_sd)
+    frac = None if share is None else share.result()
     return HotspotResult(species, band, float(alpha), float(floor_sd), n, mean, xbar, sd,
                          res["z"], res["p"], res["effect"], res["hot"], res["cold"],
                          res["significant_hot"], res["significant_cold"], frac)

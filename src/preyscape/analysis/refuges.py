@@ -283,6 +283,8 @@ def refuge_effect(
     bin_m: float | None = None,
     max_m: float | None = None,
     baseline: float | None = None,
+    mean: np.ndarray | None = None,
+    mean_without: np.ndarray | None = None,
 ) -> dict:
     """Inside/outside statistics, spill-over profile and decay length of a refuge.
 
@@ -308,6 +310,11 @@ def refuge_effect(
         (:func:`spillover_profile`).
     baseline : float, optional
         Far-field density of the profile, animals/km² (:func:`decay_length`).
+    mean, mean_without : numpy.ndarray, optional
+        The time-mean densities of ``species`` with and without the refuge over
+        the snapshots used (animals/km², NaN off data), when already known
+        (:meth:`preyscape.analysis.results.RunResults.time_mean`): they are then
+        not read again.
 
     Returns
     -------
@@ -323,11 +330,14 @@ def refuge_effect(
     c = _cells(cells, grid.shape)
     io_with = inside_outside(ds, c, species=species, presence=presence)
     io_without = None
-    mean = time_means(ds, species=(species,))[species]
+    if mean is None:
+        mean = time_means(ds, species=(species,))[species]
     if ds_without is not None:
         check_same_grid(ds, ds_without, ("with the refuge", "without the refuge"))
         io_without = inside_outside(ds_without, c, species=species, presence=presence)
-        mean = mean - time_means(ds_without, species=(species,))[species]
+        if mean_without is None:
+            mean_without = time_means(ds_without, species=(species,))[species]
+        mean = mean - mean_without
         if baseline is None:
             baseline = 0.0
     dist, dens = spillover_profile(mean, c, grid.mask, grid.dx, grid.dy, bin_m=bin_m,

@@ -18,7 +18,7 @@ import numpy as np
 from preyscape.errors import InputError
 from preyscape.landscape.grid import Grid
 
-__all__ = ["SampledTransect", "TransectSeries", "auto_transect", "front_position",
+__all__ = ["Profiles", "SampledTransect", "TransectSeries", "auto_transect", "front_position",
            "front_positions", "profile", "sample_transect", "transect_series",
            "transects_from_file"]
 
@@ -217,19 +217,46 @@ def transect_series(
         frames = source
         if times is None:
             raise ValueError("times (years) are needed with frames")
-    cols: list[list[np.ndarray]] = [[] for _ in trs]
-    tt = []
+    keep = Profiles(trs, species)
     for frame, t in zip(frames, times, strict=True):
-        f = np.asarray(frame)
-        for k, tr in enumerate(trs):
-            cols[k].append(profile(f, tr))
-        tt.append(float(t))
-    t_arr = np.asarray(tt)
-    out = [
-        TransectSeries(tr, species, t_arr, np.asarray(c).reshape(len(tt), tr.n))
-        for tr, c in zip(trs, cols, strict=True)
-    ]
+        keep.add(frame, t)
+    out = keep.result()
     return out[0] if single else out
+
+
+class Profiles:
+    """:func:`transect_series` one snapshot at a time: :meth:`add` each, then :meth:`result`.
+
+    Keeps only the profiles (snapshots x points), so several analyses can
+    share one pass over the snapshots.
+
+    Parameters
+    ----------
+    transects : sequence of SampledTransect
+        Where to sample.
+    species : str
+        Which density (a label of the series).
+    """
+
+    def __init__(self, transects: Sequence[SampledTransect], species: str) -> None:
+        self.transects = list(transects)
+        self.species = species
+        self.cols: list[list[np.ndarray]] = [[] for _ in self.transects]
+        self.times: list[float] = []
+
+    def add(self, frame: np.ndarray, t: float) -> None:
+        """Take the profiles of the snapshot at time ``t`` (years)."""
+        f = np.asarray(frame)
+        for k, tr in enumerate(self.transects):
+            self.cols[k].append(profile(f, tr))
+        self.times.append(float(t))
+
+    def result(self) -> list[TransectSeries]:
+        """One :class:`TransectSeries` per transect."""
+        t_arr = np.asarray(self.times)
+        return [TransectSeries(tr, self.species, t_arr,
+                               np.asarray(c).reshape(len(self.times), tr.n))
+                for tr, c in zip(self.transects, self.cols, strict=True)]
 
 
 def front_position(

@@ -48,10 +48,12 @@ from preyscape.analysis.transects import (
 from preyscape.analysis.wavetrains import WaveSummary, period_at, wave_summary, wavelength_along
 
 __all__ = [
+    "ArrivalClock",
     "FrontFit",
     "SampledTransect",
     "TransectSeries",
     "WaveSummary",
+    "arrival_and_profiles",
     "arrival_time",
     "arrival_time_of_run",
     "front_position",
@@ -111,23 +113,47 @@ def arrival_time(
         frames change shape, the times do not increase, or the threshold is
         not finite.
     """
-    threshold = float(threshold)
-    if not math.isfinite(threshold):
-        raise ValueError("threshold must be a finite density (animals/km²)")
-    arrival: np.ndarray | None = None
-    prev: np.ndarray | None = None
-    t_prev = -math.inf
+    clock = ArrivalClock(threshold)
     for frame, t in zip(frames, times, strict=True):
+        clock.add(frame, t)
+    return clock.result(mask)
+
+
+class ArrivalClock:
+    """:func:`arrival_time` one snapshot at a time: :meth:`add` each, then :meth:`result`.
+
+    Holds two grids (the arrival times and the previous snapshot), so several
+    analyses can share one pass over the snapshots.
+
+    Parameters
+    ----------
+    threshold : float
+        Density that counts as arrived, animals/km².
+    """
+
+    def __init__(self, threshold: float) -> None:
+        threshold = float(threshold)
+        if not math.isfinite(threshold):
+            raise ValueError("threshold must be a finite density (animals/km²)")
+        self.threshold = threshold
+        self.arrival: np.ndarray | None = None
+        self.prev: np.ndarray | None = None
+        self.t_prev = -math.inf
+
+    def add(self, frame: np.ndarray, t: float) -> None:
+        """Take the snapshot at time ``t`` (years; later than the one before)."""
+        threshold = self.threshold
         u = np.asarray(frame, dtype=float)
         t = float(t)
         if u.ndim != 2:
             raise ValueError(f"each frame must be 2-D (rows, cols), not shape {u.shape}")
-        if not t > t_prev:
+        if not t > self.t_prev:
             raise ValueError("snapshot times must increase strictly")
         with np.errstate(invalid="ignore"):
             above = u >= threshold  # NaN (no data) compares False
+        arrival, prev, t_prev = self.arrival, self.prev, self.t_prev
         if arrival is None:
-            arrival = np.full(u.shape, np.nan)
+            arrival = self.arrival = np.full(u.shape, np.nan)
             arrival[above] = t
         else:
             if u.shape != arrival.shape:
@@ -141,16 +167,21 @@ def arrival_time(
                 # no usable previous value (no data then): the snapshot time itself
                 frac = np.where(np.isfinite(frac), np.clip(frac, 0.0, 1.0), 1.0)
                 arrival[new] = t_prev + frac * (t - t_prev)
-        prev = u
-        t_prev = t
-    if arrival is None:
-        raise ValueError("no snapshots given")
-    if mask is not None:
-        m = np.asarray(mask, dtype=bool)
-        if m.shape != arrival.shape:
-            raise ValueError(f"mask shape {m.shape} differs from frame shape {arrival.shape}")
-        arrival[~m] = np.nan
-    return arrival
+        self.prev = u
+        self.t_prev = t
+
+    def result(self, mask: np.ndarray | None = None) -> np.ndarray:
+        """Arrival time per cell, years (as :func:`arrival_time` returns it)."""
+        arrival = self.arrival
+        if arrival is None:
+            raise ValueError("no snapshots given")
+        if mask is not None:
+            m = np.asarray(mask, dtype=bool)
+            if m.shape != arrival.shape:
+                raise ValueError(f"mask shape {m.shape} differs from frame shape "
+                                 f"{arrival.shape}")
+            arrival[~m] = np.nan
+        return arrival
 
 
 def arrival_time_of_run(ds, species: str, threshold: float) -> np.ndarray:
@@ -173,6 +204,46 @@ def arrival_time_of_run(ds, species: str, threshold: float) -> np.ndarray:
     """
     mask = np.asarray(ds["mask"].values).astype(bool) if "mask" in ds else None
     return arrival_time(_frames_of(ds, species), _times_of(ds), threshold, mask=mask)
+
+
+def arrival_and_profiles(ds, species: str, threshold: float,
+                         transects: Sequence[SampledTransect] = (),
+                         ) -> tuple[np.ndarray | None, list[TransectSeries]]:
+    """:func:`arrival_time_of_run` and :func:`transect_series` from one read of each snapshot.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        An opened ``results.nc``.
+    species : {"prey", "predator"}
+        Which density.
+    threshold : float
+        Density that counts as arrived, animals/km²; not finite: no arrival times.
+    transects : sequence of SampledTransect
+        Where to take profiles (none: no profiles).
+
+    Returns
+    -------
+    arrival : numpy.ndarray or None
+        Arrival time per cell, years (None if ``threshold`` is not finite).
+    series : list of TransectSeries
+        One per transect.
+    """
+    from preyscape.analysis.transects import Profiles
+    from preyscape.store import frames
+
+    clock = ArrivalClock(threshold) if math.isfinite(threshold) else None
+    keep = Profiles(transects, species) if transects else None
+    if clock is None and keep is None:
+        return None, []
+    times = _times_of(ds)
+    for k, frame in frames(ds, species, range(times.size), raw=True):
+        for taker in (clock, keep):
+            if taker is not None:
+                taker.add(frame, times[k])
+    mask = np.asarray(ds["mask"].values).astype(bool) if "mask" in ds else None
+    return (None if clock is None else clock.result(mask),
+            [] if keep is None else keep.result())
 
 
 # ---------------------------------------------------------------------------

@@ -375,14 +375,15 @@ def write_waves(run, out: str | Path, *, settings: AnalysisSettings | None = Non
         "prey": pr.get("prey_front_speed"), "predator": pr.get("predator_front_speed")}
     pred = {sp: float(v) for sp, v in pred.items() if v is not None}
     with output_folder(out, overwrite) as tmp:
-        arrival, arrivals, speeds, files = _arrival_maps(tmp, run, settings)
         lines, auto = settings.transects, False
+        trs = _sample(run.grid, lines, auto) if lines else []  # profiles read with arrivals
+        arrival, arrivals, speeds, files, series = _arrival_maps(tmp, run, settings, trs)
         if not lines:
             line = auto_transect(run.grid, arrivals)
             lines, auto = ((line,), True) if line is not None else ((), False)
-        trs = _sample(run.grid, lines, auto)
+            trs, series = _sample(run.grid, lines, auto), None
         files += _draw_maps(tmp, run, arrival, arrivals, speeds, trs)
-        fronts, front_files = _fit_fronts(tmp, run, arrival, trs, pred)
+        fronts, front_files = _fit_fronts(tmp, run, arrival, trs, pred, series)
         files += front_files
         write_csv(tmp / "fronts.csv", FRONTS_HEADER,
                   [[asdict(f)[k] for k in FRONTS_HEADER] for f in fronts])
@@ -391,22 +392,22 @@ def write_waves(run, out: str | Path, *, settings: AnalysisSettings | None = Non
                        run.species_names)
 
 
-def _arrival_maps(tmp: Path, run, settings: AnalysisSettings):
-    """Arrival-time and local-speed rasters of both species, and their key numbers."""
+def _arrival_maps(tmp: Path, run, settings: AnalysisSettings, trs: Sequence = ()):
+    """Arrival-time and local-speed rasters of both species, their key numbers, and the
+    series along the sampled transects ``trs``: one pass over each species' snapshots."""
     from preyscape.analysis import waves as W
 
     grid = run.grid
     arrival: dict[str, SpeciesArrival] = {}
-    arrivals, speeds, files = {}, {}, []
+    arrivals, speeds, files, series = {}, {}, [], {}
     for sp in run.species:
         mean = run.time_mean(sp)
         top = float(np.nanmax(mean)) if np.any(np.isfinite(mean)) else 0.0
         thr = settings.front_threshold(sp, top)
         source = ("given" if settings.threshold(sp) is not None else
                   f"{FRONT_THRESHOLD_SHARE:.0%} of the largest time-mean density")
-        if math.isfinite(thr):
-            a = W.arrival_time_of_run(run.ds, sp, thr)
-        else:  # the species is absent: it never arrives anywhere
+        a, series[sp] = W.arrival_and_profiles(run.ds, sp, thr, trs)
+        if a is None:  # the species is absent: it never arrives anywhere
             a = np.full(grid.shape, np.nan)
         speed = W.local_front_speed(a, grid.dx, grid.dy)
         for name, arr, what in ((f"{sp}_arrival.tif", a, "arrival time (years)"),
@@ -425,7 +426,7 @@ def _arrival_maps(tmp: Path, run, settings: AnalysisSettings):
             _f(float(np.median(fin))) if fin.size else None,
             occupied / max(grid.n_cells, 1))
         arrivals[sp], speeds[sp] = a, speed
-    return arrival, arrivals, speeds, files
+    return arrival, arrivals, speeds, files, series
 
 
 def _sample(grid, lines: Sequence[TransectLine], auto: bool) -> list:
@@ -459,13 +460,15 @@ def _draw_maps(tmp: Path, run, arrival, arrivals, speeds, trs) -> list[FileRecor
     return files
 
 
-def _fit_fronts(tmp: Path, run, arrival, trs, pred) -> tuple[list[FrontRow], list[FileRecord]]:
+def _fit_fronts(tmp: Path, run, arrival, trs, pred,
+                series: dict | None = None) -> tuple[list[FrontRow], list[FileRecord]]:
     from preyscape.analysis import waves as W
 
     fronts, files = [], []
     land, habitat = run.predictions.get("landscape"), run.habitat
-    series = {sp: W.transect_series(run.ds, trs, species=sp, times=run.times) if trs else []
-              for sp in arrival}
+    if series is None:  # not read with the arrival times
+        series = {sp: W.transect_series(run.ds, trs, species=sp, times=run.times) if trs
+                  else [] for sp in arrival}
     for sp in arrival:
         thr = arrival[sp].threshold
         if not trs or thr is None:

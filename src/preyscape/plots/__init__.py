@@ -506,7 +506,7 @@ def map_figure(grid: Grid, values: np.ndarray, title: str, cmap, *, norm=None,
 
 def _place_info(fig: Figure, st: _MapState) -> None:
     """The legend and the caption below the map(s), left-aligned with the first one."""
-    fig.canvas.draw()
+    fig.draw_without_rendering()  # the layout, without rasterising: it is measured only
     renderer = fig.canvas.get_renderer()
     boxes = [a.get_tightbbox(renderer) for a in fig.axes]
     x0 = min(a.get_window_extent().x0 for a in st.axes)
@@ -520,7 +520,7 @@ def _place_info(fig: Figure, st: _MapState) -> None:
         leg = fig.legend(handles=st.handles, loc="upper left", bbox_to_anchor=anchor,
                          ncols=ncol, fontsize=7, frameon=False, handlelength=2.2,
                          borderaxespad=0.0, columnspacing=1.2)
-        fig.canvas.draw()
+        fig.draw_without_rendering()
         y = leg.get_window_extent(renderer).y0 - 4
     text = "\n".join(textwrap.wrap(map_caption(st.grid, st.note), int(width_in * 16)))
     fig.text(*inv.transform((x0, y)), text, ha="left", va="top", fontsize=6.5,
