@@ -150,6 +150,35 @@ def test_fdr_matches_scipy():
         assert 50 < ref.sum() < 150
 
 
+def test_fdr_matches_scipy_whether_most_few_or_ranks_near_their_bounds_pass():
+    # Reference library: scipy.stats.false_discovery_control (Benjamini & Hochberg 1995,
+    # J R Stat Soc B 57:289). The rank is found by counting, which takes a different way
+    # when nearly every cell is significant (smooth density fields), when few are, and
+    # when p-values sit just above their bounds for many ranks (the rank falls by one a
+    # round, and sorting the p-values left takes over); non-finite z are not tested.
+    rng = np.random.default_rng(3)
+    m = 400
+    slow = np.concatenate([np.full(20, 1e-6), (np.arange(21, m + 1) + 0.5) * 0.05 / m])
+    cases = {"most": rng.normal(4.0, 1.5, 20_000),
+             "few": np.concatenate([rng.normal(size=20_000), rng.normal(4.5, 0.5, 60)]),
+             "near bounds, upper": scipy.stats.norm.isf(slow),
+             "near bounds, two-sided": scipy.stats.norm.isf(slow / 2)}
+    for name, z in cases.items():
+        z = z.copy()
+        z[:3] = [np.nan, np.inf, -np.inf]
+        finite = np.isfinite(z)
+        for tail in ("upper", "two-sided"):
+            p = (scipy.stats.norm.sf(z[finite]) if tail == "upper"
+                 else 2 * scipy.stats.norm.sf(np.abs(z[finite])))
+            ref = np.zeros(z.shape, bool)
+            ref[finite] = scipy.stats.false_discovery_control(p, method="bh") <= 0.05
+            got = fdr_significant(z, 0.05, tail)
+            np.testing.assert_array_equal(got, ref, err_msg=f"{name}, {tail}")
+            assert not got[~finite].any()
+    # by construction: the 20 small p-values pass, every later rank lies above its bound
+    assert fdr_significant(cases["near bounds, upper"], 0.05, "upper").sum() == 20
+
+
 def test_hotspots_flags_bump_hot():
     # Design requirement: a planted bump is a significant hotspot; z and p consistent.
     values, mask = _field()
